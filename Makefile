@@ -1,0 +1,33 @@
+# Two commands set everything up on a fresh machine: `make demo` and `make test`.
+PYTHON ?= python3
+VENV := .venv
+BIN := $(VENV)/bin
+STAMP := $(VENV)/.installed
+HOST ?= 127.0.0.1
+PORT ?= 8000
+DATA_DIR ?= var
+
+.PHONY: install demo run test bench clean
+
+$(STAMP): pyproject.toml
+	$(PYTHON) -m venv $(VENV)
+	$(BIN)/pip install --quiet --upgrade pip
+	$(BIN)/pip install --quiet -e '.[dev]'
+	touch $(STAMP)
+
+install: $(STAMP)
+
+demo: $(STAMP)
+	$(BIN)/epoch-assay demo --host $(HOST) --port $(PORT) --data-dir $(DATA_DIR)
+
+run: $(STAMP)
+	$(BIN)/epoch-assay serve --host $(HOST) --port $(PORT) --data-dir $(DATA_DIR)
+
+test: $(STAMP)
+	$(BIN)/python -m pytest
+
+bench: $(STAMP)
+	for script in tests/benchmarks/bench_*.py; do $(BIN)/python $$script || exit 1; done
+
+clean:
+	rm -rf $(VENV) var test-artifacts
