@@ -1,0 +1,3 @@
+from epoch_assay.cli import main
+
+raise SystemExit(main())

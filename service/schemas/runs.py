@@ -1,0 +1,106 @@
+"""Wire schemas of runs: the run spec clients post and the documents they read back."""
+
+from datetime import datetime
+from typing import Literal
+
+from pydantic import BaseModel, ConfigDict, Field, model_validator
+
+from worker.engine.pipeline import PipelineSpec
+from worker.engine.scoring_spec import ScoringSpec
+
+RunStatus = Literal["queued", "running", "succeeded", "failed"]
+
+RUN_EXAMPLE = {
+    "study": "READ-01",
+    "epoch_sets": ["es_3f9c0a1b7d2e4f60"],
+    "pipelines": [
+        {"name": "raw", "steps": []},
+        {"name": "hp0.1-avg", "steps": [{"step": "highpass", "cutoff_hz": 0.1}, {"step": "reference", "kind": "average"}]},
+    ],
+    "scoring": {
+        "conditions": ["incongruent", "congruent"],
+        "window_s": [0.3, 0.5],
+        "alpha": 0.05,
+        "correction": "fdr_bh",
+        "bootstrap": {"trials_per_condition": 40, "resamples": 1000, "seed": 7},
+    },
+}
+
+
+class RunCreate(BaseModel):
+    model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [RUN_EXAMPLE]})
+
+    study: str = Field(description="Code of the study the epoch sets belong to.")
+    epoch_sets: list[str] = Field(min_length=1, max_length=2000, description="Ids of the epoch sets to score.")
+    pipelines: list[PipelineSpec] = Field(min_length=1, max_length=512)
+    scoring: ScoringSpec
+
+    @model_validator(mode="after")
+    def _unique_names_and_ids(self) -> "RunCreate":
+        names = [pipeline.name for pipeline in self.pipelines]
+        repeated = sorted({name for name in names if names.count(name) > 1})
+        if repeated:
+            raise ValueError(f"pipeline names must be unique within a run; repeated: {', '.join(repeated)}")
+        if len(set(self.epoch_sets)) != len(self.epoch_sets):
+            raise ValueError("epoch_sets lists the same id more than once")
+        return self
+
+
+class RunAccepted(BaseModel):
+    id: str
+    status: RunStatus
+
+
+class RunOut(BaseModel):
+    id: str
+    study: str
+    status: RunStatus
+    progress: float = Field(ge=0.0, le=1.0, description="Share of (epoch set × pipeline) units done.")
+    error: str | None
+    created_at: datetime
+    started_at: datetime | None
+    finished_at: datetime | None
+
+
+class RunPage(BaseModel):
+    runs: list[RunOut]
+
+
+class ChannelResult(BaseModel):
+    name: str
+    t: float | None
+    p: float | None
+    p_adjusted: float | None
+    significant: bool
+
+
+class BootstrapResult(BaseModel):
+    median: float
+    ci_low: float
+    ci_high: float
+    resamples: int
+    trials_per_condition: int
+
+
+class PipelineResult(BaseModel):
+    pipeline: str
+    pipeline_hash: str
+    epoch_set: str
+    subject: str
+    session: str | None
+    n_trials: dict[str, int] | None = None
+    channels: list[ChannelResult] | None = None
+    significant_fraction: float | None = None
+    bootstrap: BootstrapResult | None = None
+    provenance: list[dict] = Field(description="One record per applied step.")
+    warnings: list[str]
+    error: str | None = Field(None, description="Why this epoch set could not be scored with this pipeline.")
+
+
+class RunResultDocument(BaseModel):
+    schema_version: int
+    run: str
+    study: str
+    scoring: dict
+    provenance: dict
+    results: list[PipelineResult]

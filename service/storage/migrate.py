@@ -1,0 +1,30 @@
+"""Bring a database to the newest schema with Alembic."""
+
+from pathlib import Path
+
+from alembic import command
+from alembic.config import Config
+from alembic.runtime.migration import MigrationContext
+from alembic.script import ScriptDirectory
+from sqlalchemy import Engine
+
+MIGRATIONS_DIR = Path(__file__).resolve().parents[2] / "migrations"
+
+
+def alembic_config(database_url: str) -> Config:
+    config = Config()
+    config.set_main_option("script_location", str(MIGRATIONS_DIR))
+    config.set_main_option("sqlalchemy.url", database_url)
+    return config
+
+
+def upgrade_to_head(database_url: str) -> None:
+    """Apply every migration not yet applied (``alembic upgrade head``)."""
+    command.upgrade(alembic_config(database_url), "head")
+
+
+def is_at_head(engine: Engine, database_url: str) -> bool:
+    """True when the database has every migration applied."""
+    head = ScriptDirectory.from_config(alembic_config(database_url)).get_current_head()
+    with engine.connect() as connection:
+        return MigrationContext.configure(connection).get_current_revision() == head

@@ -1,0 +1,32 @@
+import itertools
+
+import httpx
+import pytest
+
+from tests.support.live import LiveService, start_service
+
+_study_numbers = itertools.count(1)
+
+
+@pytest.fixture(scope="session")
+def service(tmp_path_factory: pytest.TempPathFactory) -> LiveService:
+    """One real API process and one real worker process for the API tests."""
+    live = start_service(tmp_path_factory.mktemp("service"))
+    yield live
+    live.stop()
+
+
+@pytest.fixture()
+def client(service: LiveService) -> httpx.Client:
+    with httpx.Client(base_url=service.base_url, timeout=30.0) as http:
+        yield http
+
+
+@pytest.fixture()
+def study(client: httpx.Client, request: pytest.FixtureRequest) -> str:
+    """A fresh study whose code is the test's name."""
+    name = "".join(c if c.isalnum() or c in "-_." else "-" for c in request.node.name)
+    code = f"s{next(_study_numbers)}-{name}"[:64]
+    answer = client.post("/v1/studies", json={"code": code, "title": f"study of {request.node.name}"})
+    assert answer.status_code == 201, answer.text
+    return code

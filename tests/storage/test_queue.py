@@ -1,0 +1,130 @@
+"""The job state machine of service.storage.queue, on a real SQLite file."""
+
+import threading
+import time
+from concurrent.futures import ThreadPoolExecutor
+
+import pytest
+
+from service.storage import queue
+from service.storage.db import Database
+from service.storage.ids import new_id
+from service.storage.migrate import upgrade_to_head
+from service.storage.models import Job, Run, Study
+
+
+@pytest.fixture()
+def database(tmp_path) -> Database:
+    url = f"sqlite:///{tmp_path / 'queue.sqlite3'}"
+    upgrade_to_head(url)
+    db = Database(url)
+    yield db
+    db.dispose()
+
+
+def _queue_runs(database: Database, n: int, max_attempts: int = 3) -> list[str]:
+    with database.session() as session:
+        study = Study(id=new_id("st"), code=new_id("code"), title="t")
+        session.add(study)
+        session.flush()
+        run_ids = []
+        for _ in range(n):
+            run = Run(id=new_id("run"), study_id=study.id, spec={}, status="queued")
+            session.add(run)
+            session.flush()
+            queue.enqueue(session, run.id, max_attempts=max_attempts)
+            run_ids.append(run.id)
+    return run_ids
+
+
+def _claim(database: Database, worker: str, lease_seconds: float = 60.0) -> queue.ClaimedJob | None:
+    with database.session() as session:
+        return queue.claim(session, worker, lease_seconds)
+
+
+def test_claim_moves_the_oldest_queued_job_and_its_run_to_running(database):
+    first, _second = _queue_runs(database, 2)
+    job = _claim(database, "w1")
+    assert job is not None and job.run_id == first and job.attempt == 1
+    with database.session() as session:
+        assert session.get(Run, first).status == "running"
+
+
+def test_claim_on_an_empty_queue_returns_none(database):
+    assert _claim(database, "w1") is None
+
+
+def test_concurrent_workers_never_claim_the_same_job(database):
+    run_ids = _queue_runs(database, 60)
+    claimed: list[str] = []
+    lock = threading.Lock()
+
+    def drain(worker: str) -> None:
+        while (job := _claim(database, worker)) is not None:
+            with lock:
+                claimed.append(job.run_id)
+
+    with ThreadPoolExecutor(max_workers=4) as pool:
+        list(pool.map(drain, ["w1", "w2", "w3", "w4"]))
+    assert sorted(claimed) == sorted(run_ids)
+
+
+def test_complete_marks_job_and_run_succeeded(database):
+    _queue_runs(database, 1)
+    job = _claim(database, "w1")
+    with database.session() as session:
+        assert queue.complete(session, job, "w1")
+    with database.session() as session:
+        assert session.get(Run, job.run_id).status == "succeeded"
+        assert session.get(Run, job.run_id).progress == 1.0
+        assert session.get(Job, job.id).status == "succeeded"
+
+
+def test_fail_keeps_the_reason_on_the_run(database):
+    _queue_runs(database, 1)
+    job = _claim(database, "w1")
+    with database.session() as session:
+        assert queue.fail(session, job, "w1", "ValueError: broken")
+    with database.session() as session:
+        run = session.get(Run, job.run_id)
+        assert (run.status, run.error) == ("failed", "ValueError: broken")
+
+
+def test_a_job_whose_lease_expired_is_taken_again_and_the_first_worker_can_no_longer_finish_it(database):
+    _queue_runs(database, 1)
+    lost = _claim(database, "w1", lease_seconds=0.05)
+    time.sleep(0.1)
+    retaken = _claim(database, "w2")
+    assert retaken is not None and retaken.id == lost.id and retaken.attempt == 2
+    with database.session() as session:
+        assert not queue.complete(session, lost, "w1")
+        assert not queue.heartbeat(session, lost, "w1", 60.0)
+    with database.session() as session:
+        assert queue.complete(session, retaken, "w2")
+
+
+def test_a_job_whose_worker_keeps_dying_fails_after_max_attempts(database):
+    (run_id,) = _queue_runs(database, 1, max_attempts=2)
+    for worker in ("w1", "w2"):
+        assert _claim(database, worker, lease_seconds=0.05) is not None
+        time.sleep(0.1)
+    assert _claim(database, "w3") is None
+    with database.session() as session:
+        run = session.get(Run, run_id)
+        assert run.status == "failed" and "2 times" in run.error
+
+
+def test_release_hands_the_job_back_without_counting_the_attempt(database):
+    _queue_runs(database, 1)
+    job = _claim(database, "w1")
+    with database.session() as session:
+        assert queue.release(session, job, "w1")
+    again = _claim(database, "w2")
+    assert again.id == job.id and again.attempt == 1
+
+
+def test_queue_depth_counts_waiting_jobs(database):
+    _queue_runs(database, 3)
+    _claim(database, "w1")
+    with database.session() as session:
+        assert queue.queue_depth(session) == 2
