@@ -19,12 +19,12 @@ def alembic_config(database_url: str) -> Config:
 
 
 def upgrade_to_head(database_url: str) -> None:
-    """Apply every migration not yet applied (``alembic upgrade head``)."""
-    command.upgrade(alembic_config(database_url), "head")
+    """Apply every migration not yet applied (``alembic upgrade heads``)."""
+    command.upgrade(alembic_config(database_url), "heads")
 
 
 def is_at_head(engine: Engine, database_url: str) -> bool:
     """True when the database has every migration applied."""
-    head = ScriptDirectory.from_config(alembic_config(database_url)).get_current_head()
+    heads = set(ScriptDirectory.from_config(alembic_config(database_url)).get_heads())
     with engine.connect() as connection:
-        return MigrationContext.configure(connection).get_current_revision() == head
+        return set(MigrationContext.configure(connection).get_current_heads()) == heads
