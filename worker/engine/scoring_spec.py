@@ -6,7 +6,7 @@ from pydantic import BaseModel, ConfigDict, Field, model_validator
 
 from worker.engine.epochs import EpochSetMeta
 from worker.engine.errors import SpecError
-from worker.engine.windows import sample_times, window_mask
+from worker.engine.windows import check_window_in_epoch
 
 
 class BootstrapSpec(BaseModel):
@@ -52,19 +52,7 @@ class ScoringSpec(BaseModel):
                     f"condition {label!r} has {count} trials in this epoch set; at least 2 are needed. "
                     f"Labels found (trials): {found}",
                 )
-        start, end = self.window_s
-        if start < meta.tmin - 0.5 / meta.sfreq or end > meta.tmax + 0.5 / meta.sfreq:
-            raise SpecError(
-                ("window_s",),
-                f"window [{start}, {end}] s lies outside the epoch [{meta.tmin:.4g}, {meta.tmax:.4g}] s; "
-                "choose a window inside the epoch",
-            )
-        if not window_mask(sample_times(meta.tmin, meta.sfreq, meta.n_times), self.window_s).any():
-            raise SpecError(
-                ("window_s",),
-                f"window [{start}, {end}] s contains no sample at {meta.sfreq:g} Hz; widen it to at least one "
-                f"sample period ({1 / meta.sfreq:.4g} s)",
-            )
+        check_window_in_epoch(self.window_s, meta, ("window_s",))
         if self.bootstrap is not None:
             for label in self.conditions:
                 count = meta.condition_counts.get(label, 0)

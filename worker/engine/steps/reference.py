@@ -1,0 +1,92 @@
+"""Re-referencing of EEG channels: to their average, or to one or more chosen channels."""
+
+from typing import Literal
+
+import numpy as np
+from pydantic import Field, model_validator
+
+from worker.engine.epochs import EpochSet, EpochSetMeta
+from worker.engine.errors import SpecError
+from worker.engine.provenance import StepRecord
+from worker.engine.steps.base import Step
+
+REFERENCED_CHANNEL_TYPES = ("eeg",)
+
+# Kinds whose reference is built from channels named in the spec; every other kind
+# must leave ``channels`` empty.
+_KINDS_WITH_CHANNELS = frozenset({"channels"})
+
+
+class Reference(Step):
+    """Subtract a reference signal from every EEG channel, bad ones included.
+
+    ``average``: the reference is the mean of the EEG channels not marked bad. Bad
+    channels are left out of the mean but re-referenced like the others (common
+    practice), so that a bad channel interpolated later matches its neighbours.
+
+    ``channels``: the reference is the mean of the listed EEG channels (one channel,
+    or several such as linked mastoids). The reference channels stay in the set; a
+    single reference channel becomes zero.
+    """
+
+    step: Literal["reference"] = "reference"
+    kind: Literal["average", "channels"] = Field(description="What the channels are referenced to.")
+    channels: tuple[str, ...] = Field((), description="Reference channel names (kind 'channels' only).")
+
+    @model_validator(mode="after")
+    def _channels_match_kind(self) -> "Reference":
+        if self.kind in _KINDS_WITH_CHANNELS:
+            if not self.channels:
+                raise ValueError(f"kind {self.kind!r} needs at least one channel name in 'channels'")
+            repeated = sorted({name for name in self.channels if self.channels.count(name) > 1})
+            if repeated:
+                raise ValueError(f"'channels' lists {', '.join(repeated)} more than once; list each channel once")
+        elif self.channels:
+            raise ValueError(f"kind {self.kind!r} takes no 'channels'; remove them or use kind 'channels'")
+        return self
+
+    def check(self, meta: EpochSetMeta) -> EpochSetMeta:
+        eeg_names = [name for name, kind in zip(meta.ch_names, meta.ch_types) if kind in REFERENCED_CHANNEL_TYPES]
+        if not eeg_names:
+            raise SpecError(("kind",), "this epoch set has no EEG channel to re-reference; remove the reference step")
+        types_by_name = dict(zip(meta.ch_names, meta.ch_types))
+        for index, name in enumerate(self.channels):
+            if name not in types_by_name:
+                raise SpecError(
+                    ("channels", index),
+                    f"channel {name!r} is not in this epoch set; available: {', '.join(eeg_names)}",
+                )
+            if types_by_name[name] not in REFERENCED_CHANNEL_TYPES:
+                raise SpecError(
+                    ("channels", index),
+                    f"channel {name!r} is of type {types_by_name[name]!r}, not EEG; choose EEG channels "
+                    f"from: {', '.join(eeg_names)}",
+                )
+        return meta
+
+    def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepRecord]:
+        targets = epochs.picks(REFERENCED_CHANNEL_TYPES, exclude_bads=False)
+        sources = self._reference_channels(epochs)
+        reference = epochs.data[:, sources].mean(axis=1, keepdims=True)
+        data = epochs.data.astype(np.float64, copy=True)
+        data[:, targets] -= reference
+        bad_sources = [name for name in self.channels if name in epochs.bads]
+        warnings = (
+            [f"reference channel(s) {', '.join(bad_sources)} are marked bad and were used nonetheless"]
+            if bad_sources
+            else []
+        )
+        return epochs.with_changes(data=data), self.record(warnings=warnings)
+
+    def _reference_channels(self, epochs: EpochSet) -> np.ndarray:
+        """Indices of the channels whose mean is the reference."""
+        if self.kind == "channels":
+            return epochs.channel_indices(self.channels)
+        good_eeg = epochs.picks(REFERENCED_CHANNEL_TYPES, exclude_bads=True)
+        if not good_eeg.size:
+            raise SpecError(
+                ("kind",),
+                "every EEG channel is marked bad, so there is no channel left to average; "
+                "use kind 'channels' or mark fewer channels bad",
+            )
+        return good_eeg
