@@ -1,4 +1,4 @@
-"""p-value corrections against statsmodels and the Benjamini–Hochberg worked example."""
+"""p-value corrections (Bonferroni, Holm, BH, BY) against statsmodels and the Benjamini–Hochberg worked example."""
 
 import numpy as np
 import pytest
@@ -20,7 +20,7 @@ def random_pvalues(shape, seed=0):
     return np.where(rng.random(shape) < 0.5, rng.random(shape) * 1e-3, rng.random(shape))
 
 
-@pytest.mark.parametrize("method", ["bonferroni", "fdr_bh"])
+@pytest.mark.parametrize("method", ["bonferroni", "holm", "fdr_bh", "fdr_by"])
 def test_matches_statsmodels_multipletests(method):
     p = random_pvalues(64)
     # Reference: statsmodels.stats.multitest.multipletests (Seabold & Perktold, 2010, statsmodels)
@@ -46,14 +46,14 @@ def test_bh_on_1995_worked_example_matches_statsmodels():
     np.testing.assert_allclose(adjust_pvalues(BH_1995_EXAMPLE, "fdr_bh"), expected, rtol=1e-12)
 
 
-@pytest.mark.parametrize("method", ["none", "bonferroni", "fdr_bh"])
+@pytest.mark.parametrize("method", ["none", "bonferroni", "holm", "fdr_bh", "fdr_by"])
 def test_rows_of_2d_input_are_adjusted_independently(method):
     p = random_pvalues((20, 32), seed=1)
     row_by_row = np.array([adjust_pvalues(row, method) for row in p])
     np.testing.assert_array_equal(adjust_pvalues(p, method), row_by_row)
 
 
-@pytest.mark.parametrize("method", ["bonferroni", "fdr_bh"])
+@pytest.mark.parametrize("method", ["bonferroni", "holm", "fdr_bh", "fdr_by"])
 def test_nan_stays_nan_and_is_not_counted_as_a_test(method):
     p = random_pvalues(30, seed=2)
     p[[3, 11, 29]] = np.nan
@@ -73,3 +73,21 @@ def test_none_returns_the_pvalues_unchanged():
 def test_unknown_method_is_refused():
     with pytest.raises(ValueError, match="unknown correction"):
         adjust_pvalues(np.array([0.1]), "holm_typo")
+
+
+@pytest.mark.parametrize("method", ["holm", "fdr_by"])
+def test_1995_worked_example_matches_statsmodels(method):
+    # Reference: statsmodels.stats.multitest.multipletests (Seabold & Perktold, 2010)
+    expected = multipletests(BH_1995_EXAMPLE, alpha=0.05, method=method)[1]
+    np.testing.assert_allclose(adjust_pvalues(BH_1995_EXAMPLE, method), expected, rtol=1e-12)
+
+
+def test_rows_with_different_nan_counts_match_statsmodels_row_by_row():
+    p = random_pvalues((3, 12), seed=4)
+    p[0, [1, 2]] = np.nan
+    p[2, 5] = np.nan
+    adjusted = adjust_pvalues(p, "fdr_by")
+    for row, expected_row in zip(p, adjusted):
+        finite = ~np.isnan(row)
+        # Reference: statsmodels multipletests(method="fdr_by") on each row's defined p-values (Seabold & Perktold, 2010)
+        np.testing.assert_allclose(expected_row[finite], multipletests(row[finite], method="fdr_by")[1], rtol=1e-12)

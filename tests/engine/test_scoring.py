@@ -1,6 +1,8 @@
-"""Scoring an epoch set: window means, per-channel tests, fraction, bootstrap, JSON."""
+"""Scoring an epoch set: window means, per-channel tests and fields, fractions, time course, bootstrap, JSON."""
 
 import json
+
+import pydantic
 
 import numpy as np
 import pytest
@@ -10,8 +12,8 @@ from statsmodels.stats.multitest import multipletests
 from tests.engine.stats_fixtures import MICROVOLT, small_epoch_set
 from worker.engine.errors import SpecError
 from worker.engine.scoring import score_epochs
-from worker.engine.scoring_spec import BootstrapSpec, ScoringSpec
-from worker.engine.stats import bootstrap_significant_fraction, window_means
+from worker.engine.scoring_spec import BootstrapSpec, ScoringSpec, TimeCourseSpec
+from worker.engine.stats import bootstrap_significant_fraction, hedges_g, standardized_measurement_error, window_means
 
 SPEC = ScoringSpec(conditions=("dev", "std"), window_s=(0.2, 0.4), alpha=0.05, correction="fdr_bh")
 WITH_BOOTSTRAP = SPEC.model_copy(update={"bootstrap": BootstrapSpec(trials_per_condition=20, resamples=100, seed=3)})
@@ -108,15 +110,26 @@ def test_to_json_is_json_with_nan_as_null(epochs):
     score = score_epochs(epochs.with_changes(data=flat), WITH_BOOTSTRAP)
     decoded = json.loads(json.dumps(score.to_json(), allow_nan=False))
     flat_channel = decoded["channels"][3]
-    assert flat_channel == {"name": "E4", "t": None, "p": None, "p_adjusted": None, "significant": False}
+    assert {key: flat_channel[key] for key in ("name", "t", "p", "p_adjusted", "significant", "hedges_g")} == {
+        "name": "E4", "t": None, "p": None, "p_adjusted": None, "significant": False, "hedges_g": None,
+    }
+    assert flat_channel["hedges_g_ci"] == [None, None]
 
 
 def test_to_json_has_exactly_the_documented_keys(epochs):
     document = score_epochs(epochs, WITH_BOOTSTRAP).to_json()
-    assert set(document) == {"n_trials", "channels", "significant_fraction", "bootstrap"}
-    assert set(document["channels"][0]) == {"name", "t", "p", "p_adjusted", "significant"}
-    assert set(document["bootstrap"]) == {"median", "ci_low", "ci_high", "resamples", "trials_per_condition"}
-    assert all(type(value) in (float, int) for value in document["bootstrap"].values())
+    assert set(document) == {
+        "n_trials", "channels", "significant_fraction", "significant_fraction_uploaded", "channels_kept",
+        "channels_uploaded", "median_sme_uv", "time_course", "bootstrap",
+    }
+    assert set(document["channels"][0]) == {
+        "name", "t", "p", "p_adjusted", "significant", "mean_diff_uv", "hedges_g", "hedges_g_ci", "sme_uv",
+    }
+    assert set(document["bootstrap"]) == {
+        "median", "ci_low", "ci_high", "resamples", "trials_per_condition", "mode", "ci", "trials_drawn",
+        "with_replacement",
+    }
+    assert set(document["time_course"]) == {"bin_s", "times_s", "significant_fraction"}
 
 
 def test_too_few_trials_for_the_bootstrap_is_a_spec_error(epochs):
@@ -140,3 +153,143 @@ def test_no_scorable_channel_is_a_spec_error(epochs):
     with pytest.raises(SpecError) as caught:
         score_epochs(epochs.with_changes(bads=frozenset(EEG)), SPEC)
     assert caught.value.loc == ("scoring",)
+
+
+def dev_std_means(epochs):
+    """Window means of the six EEG channels, (dev, std), each shape (n_trials, 6), in V."""
+    means = explicit_window_means(epochs, 75, 125)[:, :6]
+    return means[epochs.labels == "dev"], means[epochs.labels == "std"]
+
+
+def test_hedges_g_matches_hand_computed_case():
+    a = np.array([[1.0], [2.0], [3.0], [4.0], [5.0]])
+    b = np.array([[3.0], [4.0], [5.0], [6.0], [7.0]])
+    result = hedges_g(a, b)
+    # Hedges & Olkin (1985), ch. 5, computed by hand: pooled SD √2.5 = 1.581139, d = −2 / 1.581139 =
+    # −1.264911; J = 1 − 3 / (4·10 − 9) = 0.903226; g = −1.142500; large-sample variance
+    # (n1 + n2)/(n1 n2) + g²/(2(n1 + n2)) = 0.4 + 1.305307/20 = 0.465265, SE 0.682103;
+    # 95 % interval g ± 1.959964 · 0.682103 = [−2.479398, 0.194398].
+    np.testing.assert_allclose(result.g, [-1.142500], atol=1e-6)
+    np.testing.assert_allclose([result.ci_low[0], result.ci_high[0]], [-2.479398, 0.194398], atol=1e-6)
+
+
+def test_sme_matches_hand_computed_case():
+    values = np.array([[1.0], [2.0], [3.0], [4.0]])
+    # Luck et al. (2021), SME of a mean score = SD of the single-trial scores / √N; by hand:
+    # SD = √((2.25 + 0.25 + 0.25 + 2.25) / 3) = 1.290994, / √4 = 0.645497.
+    np.testing.assert_allclose(standardized_measurement_error(values), [0.645497], atol=1e-6)
+
+
+def test_channel_fields_equal_the_statistics_of_the_window_means(epochs):
+    score = score_epochs(epochs, SPEC)
+    dev, std = dev_std_means(epochs)
+    effect = hedges_g(dev, std)
+    np.testing.assert_allclose([c.mean_diff_uv for c in score.channels], (dev.mean(0) - std.mean(0)) / MICROVOLT)
+    np.testing.assert_allclose([c.hedges_g for c in score.channels], effect.g, rtol=1e-12)
+    np.testing.assert_allclose([c.hedges_g_ci for c in score.channels], np.c_[effect.ci_low, effect.ci_high])
+    # Luck et al. (2021): SD (ddof 1) over √N of each condition's single-trial window means, in µV.
+    np.testing.assert_allclose([c.sme_uv["dev"] for c in score.channels], dev.std(0, ddof=1) / np.sqrt(30) / MICROVOLT)
+
+
+def test_median_sme_is_the_median_over_scored_channels(epochs):
+    score = score_epochs(epochs, SPEC)
+    for label in ("dev", "std"):
+        assert score.median_sme_uv[label] == np.median([c.sme_uv[label] for c in score.channels])
+
+
+def test_mean_diff_is_first_minus_second_condition(epochs):
+    score = score_epochs(epochs, SPEC)
+    # The simulated 3 µV deflection is in "dev", the first condition of SPEC.
+    assert all(c.mean_diff_uv > 2.0 for c in score.channels[:3])
+
+
+@pytest.mark.parametrize("test", ["student", "mann_whitney"])
+def test_other_tests_match_scipy_on_the_window_means(epochs, test):
+    score = score_epochs(epochs, SPEC.model_copy(update={"test": test}))
+    dev, std = dev_std_means(epochs)
+    # Reference: scipy.stats.ttest_ind(equal_var=True) / mannwhitneyu(method="asymptotic") (Virtanen et al., 2020);
+    # for mann_whitney the channel's t carries U.
+    expected = (stats.ttest_ind(dev, std, equal_var=True) if test == "student"
+                else stats.mannwhitneyu(dev, std, method="asymptotic", axis=0))
+    np.testing.assert_allclose([c.t for c in score.channels], expected.statistic, rtol=1e-10)
+    np.testing.assert_allclose([c.p for c in score.channels], expected.pvalue, rtol=1e-8)
+
+
+def test_permutation_max_stat_adjusted_p_is_at_least_the_channel_p(epochs):
+    spec = SPEC.model_copy(update={"test": "permutation", "correction": "max_stat", "n_permutations": 200})
+    score = score_epochs(epochs, spec)
+    assert all(c.p_adjusted >= c.p for c in score.channels)
+    assert [c.significant for c in score.channels] == [True, True, True, False, False, False]
+
+
+def test_max_stat_without_permutation_is_refused():
+    with pytest.raises(pydantic.ValidationError, match="max_stat' needs test 'permutation'"):
+        ScoringSpec(conditions=("dev", "std"), window_s=(0.2, 0.4), correction="max_stat")
+
+
+def test_bootstrap_with_permutation_test_is_refused():
+    with pytest.raises(pydantic.ValidationError, match="bootstrap cannot be combined with test 'permutation'"):
+        ScoringSpec(conditions=("dev", "std"), window_s=(0.2, 0.4), test="permutation", bootstrap=BootstrapSpec())
+
+
+def test_bca_with_fixed_mode_is_refused():
+    with pytest.raises(pydantic.ValidationError, match="ci 'bca' needs mode 'all'"):
+        BootstrapSpec(mode="fixed", ci="bca")
+
+
+@pytest.mark.parametrize("mode", ["equalized", "all"])
+def test_modes_other_than_fixed_accept_fewer_trials_than_trials_per_condition(epochs, mode):
+    kept = np.r_[np.arange(15), np.arange(30, 60)]
+    fewer = epochs.with_changes(data=epochs.data[kept], labels=epochs.labels[kept])
+    spec = SPEC.model_copy(update={"bootstrap": BootstrapSpec(mode=mode, trials_per_condition=20, resamples=50)})
+    summary = score_epochs(fewer, spec).bootstrap
+    assert summary.trials_drawn == ({"dev": 15, "std": 15} if mode == "equalized" else {"dev": 30, "std": 15})
+
+
+def test_uploaded_fraction_counts_dropped_and_flagged_channels_as_not_significant(epochs):
+    dropped = epochs.with_changes(data=epochs.data[:, 1:], ch_names=epochs.ch_names[1:], ch_types=epochs.ch_types[1:],
+                                  bads=frozenset({"E3"}))
+    score = score_epochs(dropped, SPEC, uploaded_eeg_channels=tuple(EEG))
+    # E1 dropped, E3 flagged: E2 is the one significant channel left, of four scored and six uploaded.
+    assert [c.name for c in score.channels] == ["E2", "E4", "E5", "E6"]
+    assert (score.channels_kept, score.channels_uploaded) == (4, 6)
+    assert score.significant_fraction == sum(c.significant for c in score.channels) / 4
+    assert score.significant_fraction_uploaded == sum(c.significant for c in score.channels) / 6
+
+
+def test_uploaded_channels_default_to_the_epoch_sets_eeg_channels_bad_ones_included(epochs):
+    score = score_epochs(epochs.with_changes(bads=frozenset({"E2"})), SPEC)
+    assert (score.channels_kept, score.channels_uploaded) == (5, 6)
+
+
+def test_time_course_per_sample_equals_scipy_at_one_sample(epochs):
+    score = score_epochs(epochs, SPEC)
+    course = score.time_course
+    np.testing.assert_allclose(course.times_s, epochs.times)
+    sample = 100
+    values = epochs.data[:, :6, sample]
+    # Reference: scipy.stats.ttest_ind(equal_var=False) and statsmodels multipletests("fdr_bh") at one sample
+    p = stats.ttest_ind(values[epochs.labels == "dev"], values[epochs.labels == "std"], equal_var=False).pvalue
+    assert course.significant_fraction[sample] == multipletests(p, alpha=0.05, method="fdr_bh")[0].mean()
+
+
+def test_time_course_bins_average_consecutive_samples(epochs):
+    # 0.1 s at 250 Hz is 25 samples: 151 samples make 6 full bins and one of a single sample.
+    score = score_epochs(epochs, SPEC.model_copy(update={"time_course": TimeCourseSpec(bin_s=0.1)}))
+    course = score.time_course
+    assert len(course.times_s) == 7 and course.bin_s == 0.1
+    np.testing.assert_allclose(course.times_s[0], epochs.times[:25].mean())
+    binned = epochs.data[:, :6, 75:100].mean(axis=-1)
+    # Reference: scipy.stats.ttest_ind(equal_var=False) and statsmodels multipletests("fdr_bh") on bin 3
+    p = stats.ttest_ind(binned[epochs.labels == "dev"], binned[epochs.labels == "std"], equal_var=False).pvalue
+    assert course.significant_fraction[3] == multipletests(p, alpha=0.05, method="fdr_bh")[0].mean()
+
+
+def test_time_course_can_be_switched_off(epochs):
+    assert score_epochs(epochs, SPEC.model_copy(update={"time_course": None})).time_course is None
+
+
+def test_bin_longer_than_the_epoch_is_a_spec_error(epochs):
+    with pytest.raises(SpecError) as caught:
+        score_epochs(epochs, SPEC.model_copy(update={"time_course": TimeCourseSpec(bin_s=2.0)}))
+    assert caught.value.loc == ("scoring", "time_course", "bin_s")

@@ -1,24 +1,29 @@
 """Multiple-comparison adjustment of p-values across channels.
 
 Each method is one function ``(p, n_tests) -> adjusted`` working along the last axis, so
-a (n_resamples, n_channels) array is adjusted row by row without a Python loop. A new
-method (Holm, Benjamini–Yekutieli, ...) is one more function in ``_METHODS``.
+a (n_resamples, n_channels) array is adjusted row by row without a Python loop. The
+max-statistic correction is not an adjustment of p-values: it comes out of the
+permutation test itself (``worker.engine.stats.permutation``).
 """
 
-from typing import Callable, Literal
+from typing import Callable, Literal, get_args
 
 import numpy as np
 
-CorrectionMethod = Literal["none", "bonferroni", "fdr_bh"]
+PValueCorrection = Literal["none", "bonferroni", "holm", "fdr_bh", "fdr_by"]
+CorrectionMethod = Literal["none", "bonferroni", "holm", "fdr_bh", "fdr_by", "max_stat"]
+P_VALUE_CORRECTIONS: tuple[str, ...] = get_args(PValueCorrection)
 
 
-def adjust_pvalues(p: np.ndarray, method: CorrectionMethod) -> np.ndarray:
+def adjust_pvalues(p: np.ndarray, method: PValueCorrection) -> np.ndarray:
     """Adjusted p-values, one family of tests per row.
 
     Parameters
     ----------
     p : array, shape (..., n_channels), p-values in [0, 1]; NaN for an undefined test
-    method : "none", "bonferroni" or "fdr_bh" (Benjamini–Hochberg false discovery rate)
+    method : "none", "bonferroni", "holm" (Holm's step-down), "fdr_bh"
+        (Benjamini–Hochberg false discovery rate) or "fdr_by" (Benjamini–Yekutieli,
+        valid under any dependence between channels)
 
     Returns
     -------
@@ -42,21 +47,46 @@ def _bonferroni(p: np.ndarray, n_tests: np.ndarray) -> np.ndarray:
     return np.minimum(p * n_tests, 1.0)
 
 
-def _benjamini_hochberg(p: np.ndarray, n_tests: np.ndarray) -> np.ndarray:
-    # argsort puts NaN last, so the tested channels hold ranks 1..n_tests of their row.
+def _sorted(p: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Sort order, sorted values and ranks 1..n of each row; argsort puts NaN last."""
     order = np.argsort(p, axis=-1)
-    ranks = np.arange(1, p.shape[-1] + 1)
-    scaled = np.take_along_axis(p, order, axis=-1) * n_tests / ranks
-    scaled = np.where(np.isnan(scaled), np.inf, scaled)
-    # The adjusted value of rank i is the smallest scaled value at rank i or above.
-    step_up = np.minimum.accumulate(scaled[..., ::-1], axis=-1)[..., ::-1]
+    return order, np.take_along_axis(p, order, axis=-1), np.arange(1, p.shape[-1] + 1)
+
+
+def _unsort(p: np.ndarray, order: np.ndarray, sorted_adjusted: np.ndarray) -> np.ndarray:
     adjusted = np.empty_like(p)
-    np.put_along_axis(adjusted, order, np.minimum(step_up, 1.0), axis=-1)
+    np.put_along_axis(adjusted, order, np.minimum(sorted_adjusted, 1.0), axis=-1)
     return np.where(np.isnan(p), np.nan, adjusted)
+
+
+def _holm(p: np.ndarray, n_tests: np.ndarray) -> np.ndarray:
+    order, ordered, ranks = _sorted(p)
+    scaled = np.where(np.isnan(ordered), -np.inf, ordered * (n_tests - ranks + 1))
+    # Step-down: the adjusted value of rank i is the largest scaled value at rank i or below.
+    return _unsort(p, order, np.maximum.accumulate(scaled, axis=-1))
+
+
+def _step_up(p: np.ndarray, n_tests: np.ndarray, factor: np.ndarray | float) -> np.ndarray:
+    order, ordered, ranks = _sorted(p)
+    scaled = np.where(np.isnan(ordered), np.inf, ordered * n_tests * factor / ranks)
+    # The adjusted value of rank i is the smallest scaled value at rank i or above.
+    return _unsort(p, order, np.minimum.accumulate(scaled[..., ::-1], axis=-1)[..., ::-1])
+
+
+def _benjamini_hochberg(p: np.ndarray, n_tests: np.ndarray) -> np.ndarray:
+    return _step_up(p, n_tests, 1.0)
+
+
+def _benjamini_yekutieli(p: np.ndarray, n_tests: np.ndarray) -> np.ndarray:
+    # c(m) = 1 + 1/2 + ... + 1/m, with m the number of tests of each row.
+    harmonic = np.concatenate([[0.0], np.cumsum(1.0 / np.arange(1, p.shape[-1] + 1))])
+    return _step_up(p, n_tests, harmonic[n_tests])
 
 
 _METHODS: dict[str, Callable[[np.ndarray, np.ndarray], np.ndarray]] = {
     "none": _unadjusted,
     "bonferroni": _bonferroni,
+    "holm": _holm,
     "fdr_bh": _benjamini_hochberg,
+    "fdr_by": _benjamini_yekutieli,
 }
