@@ -31,6 +31,7 @@ from scipy.fft import irfft, next_fast_len, rfft, rfftfreq
 from demo.scenario import CONDITIONS, INCONGRUENT, SESSION, STUDY_CODE, subject_id
 from worker.engine.epochs import EpochSet
 from worker.engine.io.npz import write_npz
+from worker.engine.montage import standard_montage
 from worker.engine.units import uv_to_v
 
 EEG_CHANNELS = (
@@ -183,10 +184,8 @@ class SimulatedComponents:
 
 def eeg_info(sfreq: float = 250.0) -> mne.Info:
     """MNE measurement info of the 32 EEG channels with their 10-20 positions."""
-    montage_name = "colin27_1020" if "colin27_1020" in mne.channels.get_builtin_montages() else "standard_1020"
     info = mne.create_info(list(EEG_CHANNELS), sfreq, "eeg")
-    # MNE 1.13 renamed the standard 10-20 montage; the positions are the same.
-    info.set_montage(mne.channels.make_standard_montage(montage_name), verbose=False)
+    info.set_montage(standard_montage("standard_1020"), verbose=False)
     return info
 
 

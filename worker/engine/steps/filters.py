@@ -30,19 +30,31 @@ IIR design
     (``scipy.signal.sosfiltfilt``): zero phase, -3 dB at the cutoff per pass and so
     -6 dB overall, with twice the roll-off of one pass.
 
+Band-pass
+    FIR: one windowed sinc with both cutoffs (``firwin`` with ``pass_zero="bandpass"``),
+    whose length follows the rule above for the narrower of the two transition bands,
+    so both edges get that width. IIR: a Butterworth band-pass of ``order`` (``order``
+    poles per edge), forward and backward.
+
 Padding
     Each epoch is extended at both ends by even reflection (``numpy.pad`` mode
     "reflect") and the padding is cut off after filtering. FIR: by the kernel length.
     IIR: by the number of samples over which the impulse response of the slowest pole
     decays to 1e-4 of its start, ``ceil(ln(1e4) / -ln|p|)`` for the pole ``p`` of
     largest modulus; that leaves the whole impulse response below about 1e-3 of its peak.
+
+Memory
+    Rows (one channel of one trial) are filtered in blocks whose padded copy stays under
+    ``FILTER_BLOCK_BYTES``: many short epochs each padded by a long kernel (a 0.1 Hz
+    high-pass at 500 Hz has 16 501 taps) would otherwise need many times the data's size.
 """
 
 import math
+from collections.abc import Callable
 from typing import ClassVar, Literal
 
 import numpy as np
-from pydantic import Field
+from pydantic import Field, model_validator
 from scipy import signal
 from scipy.optimize import brentq
 
@@ -63,7 +75,10 @@ _IIR_PADDING_DECAY = 1e-4
 # common practice: an epoch should hold about three periods of a high-pass cutoff
 _HIGHPASS_PERIODS_PER_EPOCH = 3.0
 
-FilterBand = Literal["highpass", "lowpass"]
+# Padded rows filtered at once stay below this size (float64); see "Memory" above.
+FILTER_BLOCK_BYTES = 64 * 2**20
+
+FilterBand = Literal["highpass", "lowpass", "bandpass"]
 
 
 def fir_transition_hz(cutoff_hz: float) -> float:
@@ -82,14 +97,17 @@ def fir_n_taps(transition_hz: float, sfreq: float) -> int:
     return n_taps + 1 - n_taps % 2
 
 
-def design_fir(band: FilterBand, cutoff_hz: float, sfreq: float) -> np.ndarray:
-    """Symmetric windowed-sinc kernel, shape (n_taps,), n_taps odd, -6 dB at ``cutoff_hz``."""
-    n_taps = fir_n_taps(fir_transition_hz(cutoff_hz), sfreq)
+def design_fir(band: FilterBand, cutoff_hz: float | tuple[float, float], sfreq: float) -> np.ndarray:
+    """Symmetric windowed-sinc kernel, shape (n_taps,), n_taps odd, -6 dB at each cutoff (in Hz).
+
+    ``cutoff_hz`` is one frequency, or (low, high) for ``band="bandpass"``.
+    """
+    n_taps = fir_n_taps(fir_transition_hz(float(np.min(cutoff_hz))), sfreq)
     return signal.firwin(n_taps, cutoff_hz, window="hamming", pass_zero=band, fs=sfreq)
 
 
-def design_iir(band: FilterBand, cutoff_hz: float, order: int, sfreq: float) -> np.ndarray:
-    """Butterworth second-order sections, shape (n_sections, 6), -3 dB at ``cutoff_hz`` per pass."""
+def design_iir(band: FilterBand, cutoff_hz: float | tuple[float, float], order: int, sfreq: float) -> np.ndarray:
+    """Butterworth second-order sections, shape (n_sections, 6), -3 dB at each cutoff (in Hz) per pass."""
     return signal.butter(order, cutoff_hz, btype=band, output="sos", fs=sfreq)
 
 
@@ -106,16 +124,33 @@ def _reflect_pad(data: np.ndarray, n_pad: int) -> np.ndarray:
     return np.pad(data, [(0, 0)] * (data.ndim - 1) + [(n_pad, n_pad)], mode="reflect")
 
 
+def filter_rows_in_blocks(
+    data: np.ndarray, n_pad: int, filter_padded: Callable[[np.ndarray], np.ndarray]
+) -> np.ndarray:
+    """Apply ``filter_padded`` to reflection-padded blocks of rows and cut the padding off.
+
+    data : array, shape (..., n_times); returned with the same shape, as float64.
+    filter_padded : filters an array of shape (n_rows, n_times + 2 * n_pad) along its last axis.
+    """
+    n_times = data.shape[-1]
+    rows = data.reshape(-1, n_times)
+    filtered = np.empty(rows.shape, dtype=np.float64)
+    rows_per_block = max(1, FILTER_BLOCK_BYTES // ((n_times + 2 * n_pad) * 8))
+    for start in range(0, rows.shape[0], rows_per_block):
+        block = _reflect_pad(np.asarray(rows[start : start + rows_per_block], dtype=np.float64), n_pad)
+        filtered[start : start + rows_per_block] = filter_padded(block)[:, n_pad : n_pad + n_times]
+    return filtered.reshape(data.shape)
+
+
 def fir_zero_phase(data: np.ndarray, kernel: np.ndarray) -> np.ndarray:
     """Filter along the last axis with a symmetric odd-length kernel, delay removed.
 
     data : array, shape (..., n_times); returned with the same shape, as float64.
     """
-    n_pad = kernel.size
-    padded = _reflect_pad(np.asarray(data, dtype=np.float64), n_pad)
-    kernel_nd = kernel.reshape((1,) * (data.ndim - 1) + (-1,))
-    filtered = signal.oaconvolve(padded, kernel_nd, mode="same", axes=-1)
-    return filtered[..., n_pad : n_pad + data.shape[-1]]
+    kernel_2d = kernel.reshape(1, -1)
+    return filter_rows_in_blocks(
+        data, kernel.size, lambda padded: signal.oaconvolve(padded, kernel_2d, mode="same", axes=-1)
+    )
 
 
 def iir_zero_phase(data: np.ndarray, sos: np.ndarray) -> np.ndarray:
@@ -123,56 +158,90 @@ def iir_zero_phase(data: np.ndarray, sos: np.ndarray) -> np.ndarray:
 
     data : array, shape (..., n_times); returned with the same shape, as float64.
     """
-    n_pad = iir_padding_samples(sos)
-    padded = _reflect_pad(np.asarray(data, dtype=np.float64), n_pad)
-    filtered = signal.sosfiltfilt(sos, padded, axis=-1, padtype=None)
-    return filtered[..., n_pad : n_pad + data.shape[-1]]
+    return filter_rows_in_blocks(
+        data, iir_padding_samples(sos), lambda padded: signal.sosfiltfilt(sos, padded, axis=-1, padtype=None)
+    )
 
 
-class _CutoffFilter(Step):
-    """A zero-phase filter with one cutoff; subclasses set ``band`` and ``step``."""
+def _check_below_nyquist(loc: tuple[str, ...], cutoff_hz: float, meta: EpochSetMeta) -> None:
+    if cutoff_hz >= meta.nyquist:
+        raise SpecError(
+            loc,
+            f"cutoff {cutoff_hz:g} Hz is not below the Nyquist frequency: Nyquist is {meta.nyquist:g} Hz "
+            f"at this sampling rate ({meta.sfreq:g} Hz); choose a cutoff below it",
+        )
+
+
+def _check_fir_band_ends_below_nyquist(
+    loc: tuple[str, ...], cutoff_hz: float, transition_hz: float, meta: EpochSetMeta
+) -> None:
+    band_end_hz = cutoff_hz + transition_hz / 2
+    if band_end_hz > meta.nyquist:
+        raise SpecError(
+            loc,
+            f"the FIR transition band of a {cutoff_hz:g} Hz cutoff is {transition_hz:.3g} Hz wide and "
+            f"would end at {band_end_hz:.4g} Hz, above the Nyquist frequency of {meta.nyquist:g} Hz; "
+            f"choose a cutoff of at most {fir_max_cutoff_hz(meta.nyquist):.4g} Hz, or method 'iir'",
+        )
+
+
+def short_epoch_warnings(epochs: EpochSet, highpass_hz: float) -> list[str]:
+    """A warning when each epoch is shorter than three periods of a high-pass cutoff (in Hz)."""
+    duration_s = epochs.n_times / epochs.sfreq
+    needed_s = _HIGHPASS_PERIODS_PER_EPOCH / highpass_hz
+    if duration_s >= needed_s:
+        return []
+    return [
+        f"each epoch lasts {duration_s:.3g} s, shorter than three periods of the {highpass_hz:g} Hz "
+        f"high-pass cutoff ({needed_s:.3g} s), so the filtered epochs depend on the edge padding; "
+        "filtering the continuous recording before epoching is better"
+    ]
+
+
+class _ZeroPhaseFilter(Step):
+    """A zero-phase filter of EEG and EOG channels; subclasses set ``band``, ``step`` and the cutoffs."""
 
     stage: ClassVar[str] = "continuous"
     band: ClassVar[FilterBand]
 
-    cutoff_hz: float = Field(gt=0.0, allow_inf_nan=False, description="Cutoff frequency, in Hz (-6 dB point).")
     method: Literal["fir", "iir"] = Field("fir", description="Windowed-sinc FIR or Butterworth IIR.")
     order: int = Field(4, ge=1, le=10, description="Butterworth order of each pass (iir only).")
-
-    def check(self, meta: EpochSetMeta) -> EpochSetMeta:
-        nyquist = meta.nyquist
-        if self.cutoff_hz >= nyquist:
-            raise SpecError(
-                ("cutoff_hz",),
-                f"cutoff {self.cutoff_hz:g} Hz is not below the Nyquist frequency: Nyquist is {nyquist:g} Hz "
-                f"at this sampling rate ({meta.sfreq:g} Hz); choose a cutoff below it",
-            )
-        if self.method == "fir":
-            transition_hz = fir_transition_hz(self.cutoff_hz)
-            band_end_hz = self.cutoff_hz + transition_hz / 2
-            if band_end_hz > nyquist:
-                raise SpecError(
-                    ("cutoff_hz",),
-                    f"the FIR transition band of a {self.cutoff_hz:g} Hz cutoff is {transition_hz:.3g} Hz wide and "
-                    f"would end at {band_end_hz:.4g} Hz, above the Nyquist frequency of {nyquist:g} Hz; "
-                    f"choose a cutoff of at most {fir_max_cutoff_hz(nyquist):.4g} Hz, or method 'iir'",
-                )
-        return meta
 
     def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepRecord]:
         picks = epochs.picks(FILTERED_CHANNEL_TYPES, exclude_bads=False)
         data = epochs.data.astype(np.float64, copy=True)
         if picks.size:
             data[:, picks] = self._filter(epochs.data[:, picks], epochs.sfreq)
-        return epochs.with_changes(data=data), self.record(warnings=self._warnings(epochs))
+        highpass_hz = self._highpass_hz()
+        warnings = [] if highpass_hz is None else short_epoch_warnings(epochs, highpass_hz)
+        return epochs.with_changes(data=data), self.record(warnings=warnings)
 
     def _filter(self, data: np.ndarray, sfreq: float) -> np.ndarray:
         if self.method == "fir":
-            return fir_zero_phase(data, design_fir(self.band, self.cutoff_hz, sfreq))
-        return iir_zero_phase(data, design_iir(self.band, self.cutoff_hz, self.order, sfreq))
+            return fir_zero_phase(data, design_fir(self.band, self._cutoffs(), sfreq))
+        return iir_zero_phase(data, design_iir(self.band, self._cutoffs(), self.order, sfreq))
 
-    def _warnings(self, epochs: EpochSet) -> list[str]:
-        return []
+    def _cutoffs(self) -> float | tuple[float, float]:
+        raise NotImplementedError
+
+    def _highpass_hz(self) -> float | None:
+        """The cutoff below which the filter removes, in Hz; None for a low-pass."""
+        raise NotImplementedError
+
+
+class _CutoffFilter(_ZeroPhaseFilter):
+    """A zero-phase filter with one cutoff."""
+
+    cutoff_hz: float = Field(gt=0.0, allow_inf_nan=False, description="Cutoff frequency, in Hz (-6 dB point).")
+
+    def check(self, meta: EpochSetMeta) -> EpochSetMeta:
+        _check_below_nyquist(("cutoff_hz",), self.cutoff_hz, meta)
+        if self.method == "fir":
+            _check_fir_band_ends_below_nyquist(("cutoff_hz",), self.cutoff_hz, fir_transition_hz(self.cutoff_hz), meta)
+        return meta
+
+    def _cutoffs(self) -> float:
+        return self.cutoff_hz
 
 
 class HighPass(_CutoffFilter):
@@ -181,16 +250,8 @@ class HighPass(_CutoffFilter):
     step: Literal["highpass"] = "highpass"
     band: ClassVar[FilterBand] = "highpass"
 
-    def _warnings(self, epochs: EpochSet) -> list[str]:
-        duration_s = epochs.n_times / epochs.sfreq
-        needed_s = _HIGHPASS_PERIODS_PER_EPOCH / self.cutoff_hz
-        if duration_s >= needed_s:
-            return []
-        return [
-            f"each epoch lasts {duration_s:.3g} s, shorter than three periods of the {self.cutoff_hz:g} Hz "
-            f"high-pass cutoff ({needed_s:.3g} s), so the filtered epochs depend on the edge padding; "
-            "filtering the continuous recording before epoching is better"
-        ]
+    def _highpass_hz(self) -> float | None:
+        return self.cutoff_hz
 
 
 class LowPass(_CutoffFilter):
@@ -198,3 +259,42 @@ class LowPass(_CutoffFilter):
 
     step: Literal["lowpass"] = "lowpass"
     band: ClassVar[FilterBand] = "lowpass"
+
+    def _highpass_hz(self) -> float | None:
+        return None
+
+
+class BandPass(_ZeroPhaseFilter):
+    """Zero-phase band-pass filter of EEG and EOG channels, -6 dB at ``low_hz`` and ``high_hz``."""
+
+    step: Literal["bandpass"] = "bandpass"
+    band: ClassVar[FilterBand] = "bandpass"
+
+    low_hz: float = Field(gt=0.0, allow_inf_nan=False, description="Lower cutoff, in Hz (-6 dB point).")
+    high_hz: float = Field(gt=0.0, allow_inf_nan=False, description="Upper cutoff, in Hz (-6 dB point).")
+
+    @model_validator(mode="after")
+    def _ordered_cutoffs(self) -> "BandPass":
+        if not self.low_hz < self.high_hz:
+            raise ValueError("low_hz must be below high_hz; for a band-stop use a line_noise step or two filters")
+        return self
+
+    def check(self, meta: EpochSetMeta) -> EpochSetMeta:
+        _check_below_nyquist(("high_hz",), self.high_hz, meta)
+        if self.method == "fir":
+            transition_hz = fir_transition_hz(self.low_hz)
+            _check_fir_band_ends_below_nyquist(("high_hz",), self.high_hz, transition_hz, meta)
+            if self.low_hz + transition_hz / 2 >= self.high_hz - transition_hz / 2:
+                raise SpecError(
+                    ("high_hz",),
+                    f"the passband [{self.low_hz:g}, {self.high_hz:g}] Hz is narrower than the FIR transition band "
+                    f"of {transition_hz:.3g} Hz at each edge; move high_hz to at least "
+                    f"{self.low_hz + transition_hz:.4g} Hz, or use method 'iir'",
+                )
+        return meta
+
+    def _cutoffs(self) -> tuple[float, float]:
+        return (self.low_hz, self.high_hz)
+
+    def _highpass_hz(self) -> float | None:
+        return self.low_hz

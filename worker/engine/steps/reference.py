@@ -1,4 +1,4 @@
-"""Re-referencing of EEG channels: to their average, or to one or more chosen channels."""
+"""Re-referencing of EEG channels: to their average, to chosen channels, to infinity (REST), or not at all."""
 
 from typing import Literal
 
@@ -7,8 +7,10 @@ from pydantic import Field, model_validator
 
 from worker.engine.epochs import EpochSet, EpochSetMeta
 from worker.engine.errors import SpecError
+from worker.engine.montage import eeg_channels_without_position, epoch_set_positions
 from worker.engine.provenance import StepRecord
 from worker.engine.steps.base import Step
+from worker.engine.steps.rest import rest_reference_weights
 
 REFERENCED_CHANNEL_TYPES = ("eeg",)
 
@@ -27,10 +29,18 @@ class Reference(Step):
     ``channels``: the reference is the mean of the listed EEG channels (one channel,
     or several such as linked mastoids). The reference channels stay in the set; a
     single reference channel becomes zero.
+
+    ``rest``: the reference is the weighted mean of the good EEG channels that the
+    reference electrode standardization technique (Yao, 2001) gives for a spherical
+    head fitted to their positions (see :mod:`worker.engine.steps.rest`); positions come
+    from the file or, by channel name, from MNE's standard 10-20 montage.
+
+    ``none``: the data are left as recorded (their reference is already the one wanted);
+    the step is recorded so the choice shows in the provenance.
     """
 
     step: Literal["reference"] = "reference"
-    kind: Literal["average", "channels"] = Field(description="What the channels are referenced to.")
+    kind: Literal["average", "channels", "rest", "none"] = Field(description="What the channels are referenced to.")
     channels: tuple[str, ...] = Field((), description="Reference channel names (kind 'channels' only).")
 
     @model_validator(mode="after")
@@ -62,12 +72,31 @@ class Reference(Step):
                     f"channel {name!r} is of type {types_by_name[name]!r}, not EEG; choose EEG channels "
                     f"from: {', '.join(eeg_names)}",
                 )
+        if self.kind == "rest":
+            unplaced = eeg_channels_without_position(meta)
+            if unplaced:
+                raise SpecError(
+                    ("kind",),
+                    f"the REST reference needs electrode positions, and channel(s) {', '.join(unplaced)} have none "
+                    "in the file nor under their name in the standard 10-20 montage; upload positions with the "
+                    "epoch set, rename the channels to 10-20 names, or choose kind 'average'",
+                )
         return meta
 
     def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepRecord]:
+        if self.kind == "none":
+            return epochs, self.record()
+        missing = [name for name in self.channels if name not in epochs.ch_names]
+        if missing:
+            raise SpecError(
+                ("channels",),
+                f"reference channel(s) {', '.join(missing)} are no longer in the epoch set (an earlier step "
+                "dropped them); interpolate bad channels instead of dropping them, or reference first",
+            )
         targets = epochs.picks(REFERENCED_CHANNEL_TYPES, exclude_bads=False)
         sources = self._reference_channels(epochs)
-        reference = epochs.data[:, sources].mean(axis=1, keepdims=True)
+        weights = self._reference_weights(epochs, sources)
+        reference = np.einsum("c,tcn->tn", weights, epochs.data[:, sources])[:, None, :]
         data = epochs.data.astype(np.float64, copy=True)
         data[:, targets] -= reference
         bad_sources = [name for name in self.channels if name in epochs.bads]
@@ -90,3 +119,17 @@ class Reference(Step):
                 "use kind 'channels' or mark fewer channels bad",
             )
         return good_eeg
+
+    def _reference_weights(self, epochs: EpochSet, sources: np.ndarray) -> np.ndarray:
+        """Weight of each reference channel, shape (n_sources,); the reference is their weighted sum."""
+        if self.kind != "rest":
+            return np.full(sources.size, 1.0 / sources.size)
+        positions = epoch_set_positions(epochs)[sources]
+        unplaced = [epochs.ch_names[i] for i, known in zip(sources, np.isfinite(positions).all(axis=1)) if not known]
+        if unplaced:
+            raise SpecError(
+                ("kind",),
+                f"the REST reference needs electrode positions, and channel(s) {', '.join(unplaced)} have none "
+                "in the file nor in the standard 10-20 montage; upload positions or choose kind 'average'",
+            )
+        return rest_reference_weights(positions)
