@@ -1,22 +1,32 @@
-"""The ``epoch-assay`` command: serve, api, worker, migrate, demo."""
+"""The ``epoch-assay`` command: serve, api, worker, migrate, keys, demo."""
 
 import argparse
-import logging
+import ipaddress
 import os
+import signal
+import socket
 import subprocess
 import sys
 import time
 from pathlib import Path
 
 import httpx
+from pydantic import ValidationError
 
+from epoch_assay.client import add_client_parser
+from service.logs import configure_logging
 from service.settings import Settings
 
 
 def _settings(args: argparse.Namespace) -> Settings:
     """Settings from flags where given, else from EPOCH_ASSAY_* variables, else defaults."""
-    given = {"data_dir": args.data_dir, "database_url": args.database_url}
-    return Settings(**{key: value for key, value in given.items() if value is not None})
+    given = {"data_dir": args.data_dir, "database_url": args.database_url,
+             "open": True if getattr(args, "open", False) else None}
+    try:
+        return Settings(**{key: value for key, value in given.items() if value is not None})
+    except ValidationError as error:
+        problems = "; ".join(f"{'.'.join(map(str, e['loc'])) or 'settings'}: {e['msg']}" for e in error.errors())
+        raise SystemExit(f"epoch-assay: invalid settings (flags or EPOCH_ASSAY_* variables): {problems}") from None
 
 
 def _add_storage_flags(parser: argparse.ArgumentParser) -> None:
@@ -27,7 +37,32 @@ def _add_storage_flags(parser: argparse.ArgumentParser) -> None:
 def _add_server_flags(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--host", default="127.0.0.1", help="address to listen on (default 127.0.0.1)")
     parser.add_argument("--port", type=int, default=8000, help="port to listen on (default 8000)")
+    parser.add_argument("--open", action="store_true",
+                        help="no access control, for local use; refused unless --host is a loopback address "
+                             "(EPOCH_ASSAY_OPEN=1)")
     _add_storage_flags(parser)
+
+
+def is_loopback(host: str) -> bool:
+    """True when every address ``host`` stands for is a loopback address (127.0.0.0/8, ::1)."""
+    try:
+        return ipaddress.ip_address(host.strip("[]")).is_loopback
+    except ValueError:
+        pass
+    try:
+        addresses = {info[4][0] for info in socket.getaddrinfo(host, None)}
+    except OSError:
+        return False
+    return bool(addresses) and all(ipaddress.ip_address(address.split("%")[0]).is_loopback for address in addresses)
+
+
+def _refuse_open_off_loopback(settings: Settings, host: str) -> None:
+    if settings.open and not is_loopback(host):
+        raise SystemExit(
+            f"epoch-assay: refusing to serve {host} with access control off (--open or EPOCH_ASSAY_OPEN=1): anyone "
+            "who can reach that address could read and change every study. Listen on 127.0.0.1 for local use, "
+            "or leave --open out and give each client a key (epoch-assay keys create)."
+        )
 
 
 def _prepare(settings: Settings) -> None:
@@ -46,11 +81,13 @@ def _serve_api(settings: Settings, host: str, port: int) -> None:
 
     from service.app import create_app
 
-    uvicorn.run(create_app(settings), host=host, port=port, log_level="info")
+    # Logging is set up by main(); uvicorn's own config and access log would replace the JSON lines.
+    uvicorn.run(create_app(settings), host=host, port=port, log_config=None, access_log=False)
 
 
 def cmd_api(args: argparse.Namespace) -> int:
     settings = _settings(args)
+    _refuse_open_off_loopback(settings, args.host)
     _prepare(settings)
     _serve_api(settings, args.host, args.port)
     return 0
@@ -58,14 +95,32 @@ def cmd_api(args: argparse.Namespace) -> int:
 
 def cmd_serve(args: argparse.Namespace) -> int:
     settings = _settings(args)
+    _refuse_open_off_loopback(settings, args.host)
     _prepare(settings)
+    # uvicorn re-raises the signal that stopped it once it is done; exiting through SystemExit (rather
+    # than dying of the signal) lets the finally below stop the worker instead of leaving it orphaned.
+    for stop_signal in (signal.SIGTERM, signal.SIGINT):
+        signal.signal(stop_signal, _exit_on_signal)
     worker = subprocess.Popen([sys.executable, "-m", "epoch_assay", "worker", *_storage_argv(settings)])
     try:
         _serve_api(settings, args.host, args.port)
     finally:
-        worker.terminate()
-        worker.wait(timeout=60)
+        _stop_child(worker)
     return 0
+
+
+def _exit_on_signal(signum: int, _frame: object) -> None:
+    raise SystemExit(128 + signum)
+
+
+def _stop_child(process: subprocess.Popen, timeout_s: float = 60.0) -> None:
+    """SIGTERM (a worker then hands its job back), and SIGKILL if it does not stop in time."""
+    process.terminate()
+    try:
+        process.wait(timeout=timeout_s)
+    except subprocess.TimeoutExpired:
+        process.kill()
+        process.wait()
 
 
 def cmd_worker(args: argparse.Namespace) -> int:
@@ -79,6 +134,63 @@ def cmd_migrate(args: argparse.Namespace) -> int:
     settings = _settings(args)
     _prepare(settings)
     print(f"database at the newest schema: {settings.resolved_database_url}")
+    return 0
+
+
+def _database(settings: Settings):  # type: ignore[no-untyped-def]
+    from service.storage.db import Database
+
+    _prepare(settings)
+    return Database(settings.resolved_database_url)
+
+
+def cmd_keys_create(args: argparse.Namespace) -> int:
+    from service.storage.keys import KeyProblem, create_key
+
+    database = _database(_settings(args))
+    try:
+        with database.session() as session:
+            created = create_key(session, args.role, args.study, args.label)
+    except KeyProblem as error:
+        raise SystemExit(f"epoch-assay keys create: {error}") from None
+    finally:
+        database.dispose()
+    scope = f"study {created.info.study_code}" if created.info.study_code else "every study"
+    print(f"created {created.info.id}: {created.info.role} key for {scope}. The token below is shown only now; "
+          "keep it secret (clients send it as 'Authorization: Bearer <token>').", file=sys.stderr)
+    print(created.token)
+    return 0
+
+
+def cmd_keys_revoke(args: argparse.Namespace) -> int:
+    from service.storage.keys import KeyProblem, revoke_key
+
+    database = _database(_settings(args))
+    try:
+        with database.session() as session:
+            info = revoke_key(session, args.key)
+    except KeyProblem as error:
+        raise SystemExit(f"epoch-assay keys revoke: {error}") from None
+    finally:
+        database.dispose()
+    print(f"revoked {info.id} ({info.role}{' for study ' + info.study_code if info.study_code else ''})")
+    return 0
+
+
+def cmd_keys_list(args: argparse.Namespace) -> int:
+    from service.storage.keys import list_keys
+
+    database = _database(_settings(args))
+    try:
+        with database.session() as session:
+            keys = list_keys(session)
+    finally:
+        database.dispose()
+    print(f"{'id':<22} {'role':<6} {'study':<20} {'created':<20} {'revoked':<20} label")
+    for key in keys:
+        revoked = key.revoked_at.strftime("%Y-%m-%d %H:%M:%S") if key.revoked_at else "-"
+        print(f"{key.id:<22} {key.role:<6} {key.study_code or '(all)':<20} "
+              f"{key.created_at.strftime('%Y-%m-%d %H:%M:%S'):<20} {revoked:<20} {key.label or ''}")
     return 0
 
 
@@ -100,10 +212,13 @@ def cmd_demo(args: argparse.Namespace) -> int:
     from demo.load import load_demo
 
     settings = _settings(args)
+    _refuse_open_off_loopback(settings.model_copy(update={"open": True}), args.host)
     base_url = f"http://{args.host}:{args.port}"
+    # The demo is for one person at this machine: no keys, and log lines for people rather than machines.
+    env = {"EPOCH_ASSAY_LOG_FORMAT": "text", **os.environ}
     server = subprocess.Popen(
-        [sys.executable, "-m", "epoch_assay", "serve", "--host", args.host, "--port", str(args.port),
-         *_storage_argv(settings)]
+        [sys.executable, "-m", "epoch_assay", "serve", "--open", "--host", args.host, "--port", str(args.port),
+         *_storage_argv(settings)], env=env,
     )
     try:
         _wait_until_healthy(base_url, server)
@@ -118,8 +233,7 @@ def cmd_demo(args: argparse.Namespace) -> int:
         pass
     finally:
         if server.poll() is None:
-            server.terminate()
-            server.wait(timeout=60)
+            _stop_child(server, timeout_s=90.0)
     return 0
 
 
@@ -143,7 +257,26 @@ def build_parser() -> argparse.ArgumentParser:
     _add_storage_flags(migrate)
     migrate.set_defaults(handler=cmd_migrate)
 
-    demo = commands.add_parser("demo", help="serve, load the simulated demo study and score it")
+    keys = commands.add_parser("keys", help="API keys: create, revoke, list")
+    key_commands = keys.add_subparsers(dest="keys_command", required=True)
+    create = key_commands.add_parser("create", help="make a key and print its token (shown only once)")
+    create.add_argument("--role", required=True, choices=("admin", "write", "read"),
+                        help="admin: every study, may create studies; write/read: one study (needs --study)")
+    create.add_argument("--study", help="code of the study a read or write key covers")
+    create.add_argument("--label", help="a note to tell keys apart in `keys list`, e.g. 'acquisition PC 2'")
+    _add_storage_flags(create)
+    create.set_defaults(handler=cmd_keys_create)
+    revoke = key_commands.add_parser("revoke", help="revoke a key by its id (key_…) or its token")
+    revoke.add_argument("key", metavar="TOKEN_OR_ID")
+    _add_storage_flags(revoke)
+    revoke.set_defaults(handler=cmd_keys_revoke)
+    listing = key_commands.add_parser("list", help="list keys (never their tokens)")
+    _add_storage_flags(listing)
+    listing.set_defaults(handler=cmd_keys_list)
+
+    add_client_parser(commands)
+
+    demo = commands.add_parser("demo", help="serve (with --open), load the simulated demo study and score it")
     _add_server_flags(demo)
     demo.add_argument("--subjects", type=int, default=6, help="number of simulated subjects (default 6)")
     demo.add_argument("--once", action="store_true", help="stop the service after the demo run")
@@ -152,7 +285,6 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv: list[str] | None = None) -> int:
-    logging.basicConfig(level=os.environ.get("EPOCH_ASSAY_LOG_LEVEL", "INFO"),
-                        format="%(asctime)s %(levelname)s %(name)s: %(message)s")
+    configure_logging(os.environ.get("EPOCH_ASSAY_LOG_LEVEL", "INFO"), os.environ.get("EPOCH_ASSAY_LOG_FORMAT", "json"))
     args = build_parser().parse_args(argv)
     return args.handler(args)

@@ -4,8 +4,11 @@ from fastapi import FastAPI
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from epoch_assay import __version__
-from service.api import epoch_sets, health, runs, studies
+from service.api import epoch_set_json, epoch_sets, health, recordings, reports, runs, studies, webhooks
+from service.api.responses import install_problem_openapi
 from service.errors import PayloadTooLarge, install_problem_handlers, problem
+from service.metrics import ServiceMetrics
+from service.middleware import RequestContext
 from service.settings import Settings
 from service.storage.blobs import BlobStore
 from service.storage.db import Database
@@ -13,7 +16,13 @@ from service.storage.db import Database
 DESCRIPTION = (
     "Scores EEG preprocessing pipelines on a lab's own epoch sets: per channel a test of the mean "
     "amplitude in a time window between two conditions, the share of channels significant, bootstrap "
-    "confidence intervals. Research software, not for clinical decisions. Errors are RFC 9457 problem+json."
+    "confidence intervals. Research software, not for clinical decisions.\n\n"
+    "**Access.** Send an API key as `Authorization: Bearer <token>` (made with `epoch-assay keys create`). "
+    "An admin key manages everything; a read or write key covers one study. 401: no valid key; 404: no such "
+    "study, or one the key does not cover; 403: the key's role does not allow the action.\n\n"
+    "**Retries.** A POST with an `Idempotency-Key` header returns its first answer again when retried with the "
+    "same body (header `Idempotent-Replayed: true`), and 409 for the same key with another body.\n\n"
+    "**Errors** are RFC 9457 `application/problem+json` documents. Every answer carries `X-Request-ID`."
 )
 
 
@@ -69,9 +78,14 @@ def create_app(settings: Settings) -> FastAPI:
     app.state.settings = settings
     app.state.database = Database(settings.resolved_database_url)
     app.state.blobs = BlobStore(settings.blob_dir)
+    app.state.metrics = ServiceMetrics(settings.worker_stale_seconds)
     install_problem_handlers(app)
-    for module in (health, studies, epoch_sets, runs):
+    # epoch_set_json before epoch_sets: it takes the JSON bodies of the same path; multipart falls through.
+    for module in (health, studies, epoch_set_json, epoch_sets, recordings, runs, webhooks, reports):
         app.include_router(module.router)
+    install_problem_openapi(app)
     app.add_middleware(BodySizeLimit, max_upload_bytes=settings.max_upload_bytes,
                        max_json_bytes=settings.max_json_body_bytes)
+    # Added last, so it is outermost: it sees (and times) the 413 answers of the size limit too.
+    app.add_middleware(RequestContext, metrics=app.state.metrics)
     return app

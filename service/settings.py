@@ -3,7 +3,7 @@
 from functools import cached_property
 from pathlib import Path
 
-from pydantic import Field
+from pydantic import Field, model_validator
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
 MIB = 1024 * 1024
@@ -26,7 +26,34 @@ class Settings(BaseSettings):
     lease_seconds: float = Field(60.0, gt=1.0, le=3600.0, description="How long a claimed job is held without a heartbeat.")
     heartbeat_seconds: float = Field(10.0, gt=0.1, description="How often a running worker renews its lease.")
     poll_seconds: float = Field(0.5, gt=0.0, description="How often an idle worker looks for a job.")
-    max_attempts: int = Field(3, ge=1, le=100, description="Attempts before a job whose worker keeps dying is failed.")
+    max_attempts: int = Field(
+        3, ge=1, le=100, description="Attempts before a job that keeps failing (or whose worker keeps dying) is failed."
+    )
+    retry_backoff_seconds: float = Field(
+        5.0, ge=0.0, description="Wait before retrying a failed attempt; doubled at each further attempt."
+    )
+    open: bool = Field(False, description="Turn access control off (only allowed on a loopback address).")
+    idempotency_ttl_seconds: float = Field(
+        86400.0, gt=0.0, description="How long the answer to a POST with an Idempotency-Key is kept for replay."
+    )
+    webhook_max_attempts: int = Field(10, ge=1, le=100, description="Delivery attempts of one webhook event.")
+    webhook_backoff_seconds: float = Field(
+        10.0, gt=0.0, description="Wait after the first failed delivery; doubled at each further attempt."
+    )
+    webhook_backoff_max_seconds: float = Field(3600.0, gt=0.0, description="Longest wait between two delivery attempts.")
+    webhook_timeout_seconds: float = Field(10.0, gt=0.0, le=300.0, description="Timeout of one delivery request.")
+    worker_stale_seconds: float = Field(
+        60.0, gt=0.0, description="/readyz wants a worker heard from within this many seconds."
+    )
+
+    @model_validator(mode="after")
+    def _heartbeat_within_lease(self) -> "Settings":
+        if self.heartbeat_seconds * 2 > self.lease_seconds:
+            raise ValueError(
+                f"heartbeat_seconds ({self.heartbeat_seconds}) must be at most half of lease_seconds "
+                f"({self.lease_seconds}), or a busy worker loses its job between two heartbeats"
+            )
+        return self
 
     @cached_property
     def resolved_database_url(self) -> str:

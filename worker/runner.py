@@ -1,4 +1,12 @@
-"""The worker process: claim a job, run it with heartbeats, store the outcome. Nothing scientific."""
+"""The worker process: claim a job, run it with heartbeats, store the outcome. Nothing scientific.
+
+SIGTERM (or SIGINT) hands the current job back at the next unit boundary (one pipeline on one
+epoch set) and stops: the job goes back to the queue without counting the attempt, so a
+deploy does not wait for a long run and loses nothing but the unit in progress. A job whose
+attempt raises is retried with backoff up to ``max_attempts``, except when retrying cannot
+help (the stored file is gone or malformed, the spec cannot run). Each worker also sends the
+webhook events in a thread (``service.delivery``).
+"""
 
 import json
 import logging
@@ -9,8 +17,11 @@ import threading
 import time
 from types import FrameType
 
+from pydantic import ValidationError
 from sqlalchemy import select
+from sqlalchemy.orm import Session
 
+from service.delivery import Deliverer
 from service.settings import Settings
 from service.storage import queue
 from service.storage.blobs import BlobStore
@@ -18,21 +29,31 @@ from service.storage.db import Database
 from service.storage.migrate import is_at_head
 from service.storage.models import EpochSet, Run, RunEpochSet, RunResult, Study
 from worker.engine.epochs import EpochSet as EngineEpochSet
-from worker.engine.io.npz import read_npz
+from worker.engine.errors import EpochSetFormatError, EpochSetTooLargeError, SpecError
+from worker.engine.io import read_epoch_set_file
+from worker.engine.recording import ChannelSpec, ContinuousInput, EpochingSpec, load_recording
 from worker.run_job import EpochSetRef, execute_run
 
 log = logging.getLogger("epoch_assay.worker")
+# Errors that will happen again on every attempt: the stored file is gone or malformed, the spec cannot run.
+PERMANENT_ERRORS = (FileNotFoundError, EpochSetFormatError, EpochSetTooLargeError, SpecError, ValidationError)
 
 
 class LeaseLost(Exception):
-    """Another worker took the job over; this one must drop its work."""
+    """Another worker took the job over (or the run was deleted); this one must drop its work."""
+
+
+class HandBack(Exception):
+    """The worker was asked to stop; the job goes back to the queue."""
 
 
 class Heartbeat:
     """Renews a job's lease in a background thread and carries the latest progress."""
 
-    def __init__(self, database: Database, job: queue.ClaimedJob, worker_id: str, settings: Settings) -> None:
+    def __init__(self, database: Database, job: queue.ClaimedJob, worker_id: str, settings: Settings,
+                 stopping: threading.Event) -> None:
         self._database, self._job, self._worker_id, self._settings = database, job, worker_id, settings
+        self._stopping = stopping
         self._stop = threading.Event()
         self._thread = threading.Thread(target=self._beat, name=f"heartbeat-{job.id}", daemon=True)
         self.progress = 0.0
@@ -47,16 +68,23 @@ class Heartbeat:
         self._thread.join()
 
     def report(self, progress: float) -> None:
-        """Record progress; raise LeaseLost once the lease is known to be gone."""
+        """Record progress (called after each unit); raise LeaseLost or HandBack when the work must stop."""
         self.progress = progress
         if self.lost:
             raise LeaseLost(self._job.id)
+        if self._stopping.is_set() and progress < 1.0:
+            raise HandBack(self._job.id)
 
     def _beat(self) -> None:
         while not self._stop.wait(self._settings.heartbeat_seconds):
-            with self._database.session() as session:
-                held = queue.heartbeat(session, self._job, self._worker_id, self._settings.lease_seconds, self.progress)
-                queue.record_worker_seen(session, self._worker_id)
+            try:
+                with self._database.session() as session:
+                    held = queue.heartbeat(session, self._job, self._worker_id, self._settings.lease_seconds,
+                                           self.progress)
+                    queue.record_worker_seen(session, self._worker_id)
+            except Exception:  # noqa: BLE001 - a missed beat is retried; the lease outlasts a few of them
+                log.exception("heartbeat failed; trying again", extra={"job": self._job.id})
+                continue
             if not held:
                 self.lost = True
                 return
@@ -69,9 +97,10 @@ class Worker:
         self.blobs = BlobStore(settings.blob_dir)
         self.worker_id = f"{socket.gethostname()}:{os.getpid()}"
         self._stopping = threading.Event()
+        self._last_seen_recorded = 0.0
 
     def request_stop(self, *_signal: int | FrameType | None) -> None:
-        """Finish the current job, then stop (SIGTERM, SIGINT)."""
+        """Hand the current job back at the next unit boundary, then stop (SIGTERM, SIGINT)."""
         self._stopping.set()
 
     def wait_for_schema(self, timeout_s: float = 60.0) -> None:
@@ -85,38 +114,73 @@ class Worker:
         signal.signal(signal.SIGTERM, self.request_stop)
         signal.signal(signal.SIGINT, self.request_stop)
         self.wait_for_schema()
+        stop_delivery = threading.Event()
+        delivery = threading.Thread(target=Deliverer(self.database, self.settings).run_until, args=(stop_delivery,),
+                                    name="webhook-delivery", daemon=True)
+        delivery.start()
         log.info("worker %s ready", self.worker_id)
-        while not self._stopping.is_set():
-            if not self.run_one():
-                self._stopping.wait(self.settings.poll_seconds)
+        try:
+            while not self._stopping.is_set():
+                if not self.run_one():
+                    self._stopping.wait(self.settings.poll_seconds)
+        finally:
+            stop_delivery.set()
+            delivery.join(timeout=self.settings.webhook_timeout_seconds + 5)
+            with self.database.session() as session:
+                queue.forget_worker(session, self.worker_id)
+            log.info("worker %s stopped", self.worker_id)
 
     def run_one(self) -> bool:
         """Claim and run one job; False when the queue was empty."""
         with self.database.session() as session:
-            queue.record_worker_seen(session, self.worker_id)
+            self._note_alive(session)
             job = queue.claim(session, self.worker_id, self.settings.lease_seconds)
         if job is None:
             return False
-        log.info("claimed %s (run %s, attempt %d)", job.id, job.run_id, job.attempt)
-        with Heartbeat(self.database, job, self.worker_id, self.settings) as beat:
+        context = {"job": job.id, "run": job.run_id, "attempt": job.attempt}
+        log.info("claimed a job", extra=context)
+        with Heartbeat(self.database, job, self.worker_id, self.settings, self._stopping) as beat:
             try:
                 document = self._execute(job, beat)
             except LeaseLost:
-                log.warning("lost the lease of %s; dropping its work", job.id)
+                log.warning("lost the lease (or the run was deleted); dropping the work", extra=context)
                 return True
-            except Exception as error:  # noqa: BLE001 - any failure of a job ends that job, not the worker
-                log.exception("job %s failed", job.id)
+            except HandBack:
                 with self.database.session() as session:
-                    queue.fail(session, job, self.worker_id, f"{type(error).__name__}: {error}")
+                    queue.release(session, job, self.worker_id)
+                log.info("stopping: handed the job back to the queue", extra=context)
+                return True
+            except Exception as error:  # noqa: BLE001 - any failure of a job ends that attempt, not the worker
+                self._record_failure(job, error, context)
                 return True
         with self.database.session() as session:
             if queue.complete(session, job, self.worker_id):
                 session.add(RunResult(run_id=job.run_id, document=json.dumps(document, allow_nan=False)))
+                log.info("job succeeded", extra=context)
         return True
+
+    def _record_failure(self, job: queue.ClaimedJob, error: Exception, context: dict[str, object]) -> None:
+        reason = f"{type(error).__name__}: {error}"
+        with self.database.session() as session:
+            if isinstance(error, PERMANENT_ERRORS):
+                queue.fail(session, job, self.worker_id, reason)
+                outcome = queue.FAILED
+            else:
+                outcome = queue.retry_or_fail(session, job, self.worker_id, reason, self.settings.retry_backoff_seconds)
+        log.error("job attempt failed", exc_info=error, extra=context | {"outcome": outcome})
+
+    def _note_alive(self, session: Session) -> None:
+        """Record that this worker is alive, at most about once a second (an idle worker polls more often)."""
+        now = time.monotonic()
+        if now - self._last_seen_recorded >= min(1.0, self.settings.heartbeat_seconds):
+            queue.record_worker_seen(session, self.worker_id)
+            self._last_seen_recorded = now
 
     def _execute(self, job: queue.ClaimedJob, beat: Heartbeat) -> dict:
         with self.database.session() as session:
             run = session.get(Run, job.run_id)
+            if run is None:
+                raise LeaseLost(job.id)
             study_code = session.scalar(select(Study.code).where(Study.id == run.study_id))
             rows = session.execute(
                 select(EpochSet).join(RunEpochSet, RunEpochSet.epoch_set_id == EpochSet.id)
@@ -126,5 +190,17 @@ class Worker:
             spec = run.spec
         return execute_run(job.run_id, study_code, spec, refs, self._load, beat.report)
 
-    def _load(self, ref: EpochSetRef) -> EngineEpochSet:
-        return read_npz(self.blobs.path(ref.sha256), max_array_bytes=self.settings.max_array_bytes)
+    def _load(self, ref: EpochSetRef) -> EngineEpochSet | ContinuousInput:
+        """The epoch set, or for a recording its file, events and epoching (epoched per pipeline by run_job)."""
+        with self.database.session() as session:
+            row = session.get(EpochSet, ref.id)
+            if row is None:
+                raise FileNotFoundError(f"epoch set {ref.id} is no longer stored")
+            source, file_sha256, events_sha256 = row.source, row.file_sha256, row.events_sha256
+            epoching, channels = row.epoching, row.channels
+        if source == "recording":
+            events_path = self.blobs.path(events_sha256) if events_sha256 else None
+            return load_recording(self.blobs.path(file_sha256), events_path, EpochingSpec.model_validate(epoching),
+                                  ChannelSpec.model_validate(channels or {}),
+                                  max_array_bytes=self.settings.max_array_bytes)
+        return read_epoch_set_file(self.blobs.path(ref.sha256), max_array_bytes=self.settings.max_array_bytes)[0]

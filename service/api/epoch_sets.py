@@ -3,18 +3,24 @@
 from typing import Annotated
 
 from fastapi import APIRouter, File, Form, Query, Response, UploadFile, status
-from sqlalchemy import select
+from sqlalchemy import or_, select
 from sqlalchemy.exc import IntegrityError
+from sqlalchemy.orm import Session
 
+from service.api.access import CallerDep
 from service.api.deps import BlobsDep, SessionDep, SettingsDep
+from service.api.idempotency import IdempotencyDep, canonical_fingerprint
 from service.api.lookups import study_by_code
-from service.errors import NotFound, format_error_to_unprocessable, too_large_to_payload_error
+from service.api.responses import errors
+from service.errors import Conflict, NotFound, format_error_to_unprocessable, too_large_to_payload_error
 from service.schemas.epoch_sets import SUBJECT_PATTERN, EpochSetOut
+from service.schemas.json_epoch_sets import JSON_EPOCH_SET_OPENAPI
 from service.storage.ids import new_id
-from service.storage.models import EpochSet, Study
+from service.storage.models import EpochSet, RunEpochSet, Study
 from worker.engine.epochs import EpochSet as EngineEpochSet
 from worker.engine.errors import EpochSetFormatError, EpochSetTooLargeError
-from worker.engine.io.npz import read_npz
+from worker.engine.io import read_epoch_set_file
+from worker.engine.io.detect import FileFormat
 
 router = APIRouter(prefix="/v1/studies/{code}/epoch-sets", tags=["epoch sets"])
 
@@ -27,7 +33,7 @@ def epoch_set_out(row: EpochSet, study_code: str) -> EpochSetOut:
     )
 
 
-def _new_row(study: Study, subject: str, session: str | None, sha256: str, size: int, epochs: EngineEpochSet) -> EpochSet:
+def new_epoch_set_row(study: Study, subject: str, session: str | None, sha256: str, size: int, epochs: EngineEpochSet) -> EpochSet:
     meta = epochs.meta()
     return EpochSet(
         id=new_id("es"), study_id=study.id, subject=subject, session=session, sha256=sha256, size_bytes=size,
@@ -41,60 +47,77 @@ def _new_row(study: Study, subject: str, session: str | None, sha256: str, size:
     "",
     status_code=status.HTTP_201_CREATED,
     response_model=EpochSetOut,
+    openapi_extra=JSON_EPOCH_SET_OPENAPI,
     responses={
         200: {"model": EpochSetOut, "description": "The same bytes were stored before; the existing epoch set."},
-        413: {"description": "The upload or the arrays it declares are too large."},
-        422: {"description": "The file is malformed; the detail names the field and the fix."},
+        **errors(400, 401, 403, 404, 409, 413, 422,
+                 unprocessable="The file is malformed (the detail names the field and the fix), or a form field "
+                               "breaks its pattern."),
     },
 )
 def upload_epoch_set(
     code: str,
-    file: Annotated[UploadFile, File(description="An NPZ epoch-set file (see the README).")],
-    subject: Annotated[str, Form(pattern=SUBJECT_PATTERN, description="Subject id, e.g. sub-01.")],
+    file: Annotated[UploadFile, File(description="An NPZ or MNE epochs (-epo.fif) file, told apart by content "
+                                                 "(see the README).")],
+    subject: Annotated[str, Form(pattern=SUBJECT_PATTERN, description="Subject id, e.g. sub-01.",
+                                 examples=["sub-01"])],
     session: SessionDep,
     blobs: BlobsDep,
     settings: SettingsDep,
-    response: Response,
-    session_label: Annotated[str | None, Form(alias="session", pattern=SUBJECT_PATTERN)] = None,
-) -> EpochSetOut:
+    caller: CallerDep,
+    idempotency: IdempotencyDep,
+    session_label: Annotated[str | None, Form(alias="session", pattern=SUBJECT_PATTERN, examples=["ses-01"])] = None,
+) -> Response:
     """Upload one epoch set to a study. Uploading the same bytes again returns the stored one (200)."""
-    study = study_by_code(session, code)
+    study = study_by_code(session, code, caller, "write")
     with blobs.staged(file.file) as staged:
-        existing = session.scalar(select(EpochSet).where(EpochSet.study_id == study.id, EpochSet.sha256 == staged.sha256))
+        # A retried multipart body has a new boundary, so the fingerprint is what it carries, not its bytes.
+        fingerprint = canonical_fingerprint({"sha256": staged.sha256, "subject": subject, "session": session_label})
+        if (replayed := idempotency.replay(fingerprint)) is not None:
+            return replayed
+        existing = _stored_bytes(session, study, staged.sha256)
         if existing is not None:
-            response.status_code = status.HTTP_200_OK
-            return epoch_set_out(existing, study.code)
+            return idempotency.remember(status.HTTP_200_OK, epoch_set_out(existing, study.code))
         try:
-            epochs = read_npz(staged.path, max_array_bytes=settings.max_array_bytes)
+            epochs, file_format = read_epoch_set_file(staged.path, max_array_bytes=settings.max_array_bytes,
+                                                      allowed=(FileFormat.NPZ, FileFormat.FIF))
         except EpochSetFormatError as error:
             raise format_error_to_unprocessable(error) from None
         except EpochSetTooLargeError as error:
             raise too_large_to_payload_error(error) from None
-        row = _new_row(study, subject, session_label, staged.sha256, staged.size, epochs)
+        row = new_epoch_set_row(study, subject, session_label, staged.sha256, staged.size, epochs)
+        row.file_format = file_format.value
         staged.commit()
-    session.add(row)
-    try:
-        session.flush()
-    except IntegrityError:
-        # The same bytes arrived in a concurrent request that committed first.
-        session.rollback()
-        response.status_code = status.HTTP_200_OK
-        existing = session.scalars(
-            select(EpochSet).where(EpochSet.study_id == study.id, EpochSet.sha256 == row.sha256)
-        ).one()
-        return epoch_set_out(existing, code)
-    return epoch_set_out(row, study.code)
+        session.add(row)
+        try:
+            session.flush()
+        except IntegrityError:
+            # The same bytes arrived in a concurrent request that committed first.
+            session.rollback()
+            existing = _stored_bytes(session, study, staged.sha256)
+            return idempotency.remember(status.HTTP_200_OK, epoch_set_out(existing, study.code))
+        answer = idempotency.remember(status.HTTP_201_CREATED, epoch_set_out(row, study.code),
+                                      location=f"/v1/studies/{study.code}/epoch-sets/{row.id}")
+        session.commit()
+        # Linked again after the commit: a delete of the same bytes in another study may have removed it meanwhile.
+        staged.commit()
+    return answer
 
 
-@router.get("", response_model=list[EpochSetOut])
+def _stored_bytes(session: Session, study: Study, sha256: str) -> EpochSet | None:
+    return session.scalar(select(EpochSet).where(EpochSet.study_id == study.id, EpochSet.sha256 == sha256))
+
+
+@router.get("", response_model=list[EpochSetOut], responses=errors(401, 404))
 def list_epoch_sets(
     code: str,
     session: SessionDep,
+    caller: CallerDep,
     subject: Annotated[str | None, Query(description="Only this subject.")] = None,
     session_label: Annotated[str | None, Query(alias="session", description="Only this session.")] = None,
 ) -> list[EpochSetOut]:
     """The study's epoch sets, oldest first."""
-    study = study_by_code(session, code)
+    study = study_by_code(session, code, caller, "read")
     query = select(EpochSet).where(EpochSet.study_id == study.id)
     if subject is not None:
         query = query.where(EpochSet.subject == subject)
@@ -104,11 +127,61 @@ def list_epoch_sets(
     return [epoch_set_out(row, study.code) for row in rows]
 
 
-@router.get("/{epoch_set_id}", response_model=EpochSetOut, responses={404: {"description": "No such epoch set."}})
-def get_epoch_set(code: str, epoch_set_id: str, session: SessionDep) -> EpochSetOut:
+@router.get("/{epoch_set_id}", response_model=EpochSetOut, responses=errors(401, 404))
+def get_epoch_set(code: str, epoch_set_id: str, session: SessionDep, caller: CallerDep) -> EpochSetOut:
     """One epoch set of the study."""
-    study = study_by_code(session, code)
+    study = study_by_code(session, code, caller, "read")
+    return epoch_set_out(_epoch_set_of(session, study, epoch_set_id), study.code)
+
+
+def _epoch_set_of(session: Session, study: Study, epoch_set_id: str) -> EpochSet:
     row = session.get(EpochSet, epoch_set_id)
     if row is None or row.study_id != study.id:
-        raise NotFound(f"no epoch set {epoch_set_id!r} in study {code!r}; list them with GET /v1/studies/{code}/epoch-sets")
-    return epoch_set_out(row, study.code)
+        raise NotFound(f"no epoch set {epoch_set_id!r} in study {study.code!r}; "
+                       f"list them with GET /v1/studies/{study.code}/epoch-sets")
+    return row
+
+
+@router.delete(
+    "/{epoch_set_id}",
+    status_code=status.HTTP_204_NO_CONTENT,
+    responses=errors(401, 403, 404, 409, conflict="A run still scores this epoch set; delete the run first."),
+)
+def delete_epoch_set(code: str, epoch_set_id: str, session: SessionDep, blobs: BlobsDep, caller: CallerDep) -> Response:
+    """Delete an epoch set; its files go too once no epoch set (of any study) names the same bytes.
+
+    Refused with 409 while a run refers to it, so no result loses the data it was computed on.
+    """
+    study = study_by_code(session, code, caller, "write")
+    row = _epoch_set_of(session, study, epoch_set_id)
+    _refuse_if_scored(session, row)
+    # An upload's blob is named by sha256; a recording's by file_sha256 and events_sha256.
+    blob_names = {name for name in (row.sha256, row.file_sha256, row.events_sha256) if name}
+    session.delete(row)
+    try:
+        session.flush()
+    except IntegrityError:
+        # A run naming it was created concurrently and committed first.
+        session.rollback()
+        raise _scored_conflict(epoch_set_id, []) from None
+    session.commit()
+    for name in blob_names:
+        blobs.discard(name, lambda name=name: _blob_in_use(session, name))
+    return Response(status_code=status.HTTP_204_NO_CONTENT)
+
+
+def _blob_in_use(session: Session, sha256: str) -> bool:
+    named = or_(EpochSet.sha256 == sha256, EpochSet.file_sha256 == sha256, EpochSet.events_sha256 == sha256)
+    return session.scalar(select(EpochSet.id).where(named).limit(1)) is not None
+
+
+def _refuse_if_scored(session: Session, row: EpochSet) -> None:
+    run_ids = session.scalars(select(RunEpochSet.run_id).where(RunEpochSet.epoch_set_id == row.id).limit(5)).all()
+    if run_ids:
+        raise _scored_conflict(row.id, run_ids)
+
+
+def _scored_conflict(epoch_set_id: str, run_ids: list[str]) -> Conflict:
+    named = f" ({', '.join(run_ids)}{', …' if len(run_ids) == 5 else ''})" if run_ids else ""
+    return Conflict(f"epoch set {epoch_set_id} is scored by a run{named}; delete the runs that use it first "
+                    "(DELETE /v1/runs/ID), then the epoch set")

@@ -1,21 +1,32 @@
-"""Finding stored things by their public names, with the 404 every router gives."""
+"""Finding stored things by their public names, with the 404 every router gives.
+
+Each lookup also asks the caller: a study (or a run of a study) the caller's key does not
+cover is answered exactly like one that does not exist.
+"""
 
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
+from service.api.access import Action, Caller, study_not_found
 from service.errors import NotFound
 from service.storage.models import Run, Study
 
 
-def study_by_code(session: Session, code: str) -> Study:
+def study_by_code(session: Session, code: str, caller: Caller, action: Action) -> Study:
     study = session.scalar(select(Study).where(Study.code == code))
     if study is None:
-        raise NotFound(f"no study with code {code!r}; list the studies with GET /v1/studies")
+        raise study_not_found(code)
+    caller.require(study, action)
     return study
 
 
-def run_by_id(session: Session, run_id: str) -> Run:
+def run_not_found(run_id: str) -> NotFound:
+    return NotFound(f"no run with id {run_id!r}; list runs with GET /v1/runs?study=CODE")
+
+
+def run_by_id(session: Session, run_id: str, caller: Caller, action: Action) -> Run:
     run = session.get(Run, run_id)
-    if run is None:
-        raise NotFound(f"no run with id {run_id!r}; list runs with GET /v1/runs?study=CODE")
+    if run is None or not caller.covers(run.study):
+        raise run_not_found(run_id)
+    caller.require(run.study, action)
     return run

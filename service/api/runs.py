@@ -1,17 +1,26 @@
 """Runs: score pipelines on epoch sets; poll their state; read their results."""
 
-from typing import Annotated
+import json
+from datetime import datetime
+from typing import Annotated, Literal
 
-from fastapi import APIRouter, Query, Response, status
-from sqlalchemy import select
+from fastapi import APIRouter, Header, Query, Response, status
+from sqlalchemy import and_, delete, or_, select
+from sqlalchemy.exc import IntegrityError
 
+from service.api.access import CallerDep
 from service.api.deps import SessionDep, SettingsDep
+from service.api.idempotency import IdempotencyDep, canonical_fingerprint
 from service.api.lookups import run_by_id, study_by_code
-from service.errors import Conflict, Unprocessable, spec_error_to_unprocessable
+from service.api.pagination import as_utc, decode_cursor, encode_cursor
+from service.api.responses import errors
+from service.api.result_csv import CSV_EXAMPLE, preferred_media_type, result_csv
+from service.errors import Conflict, NotAcceptable, Unprocessable, spec_error_to_unprocessable
+from service.schemas.epoch_sets import SUBJECT_PATTERN
 from service.schemas.runs import RunAccepted, RunCreate, RunOut, RunPage, RunResultDocument, RunStatus
 from service.storage import queue
 from service.storage.ids import new_id
-from service.storage.models import EpochSet, Run, RunEpochSet, RunResult, Study
+from service.storage.models import EpochSet, Run, RunEpochSet, RunPipeline, RunResult, Study
 from worker.engine.epochs import EpochSetMeta
 from worker.engine.errors import SpecError
 
@@ -22,6 +31,8 @@ def run_out(run: Run, study_code: str) -> RunOut:
     return RunOut(
         id=run.id, study=study_code, status=run.status, progress=run.progress, error=run.error,
         created_at=run.created_at, started_at=run.started_at, finished_at=run.finished_at,
+        pipelines=[pipeline["name"] for pipeline in run.spec.get("pipelines", [])],
+        epoch_sets=list(run.spec.get("epoch_sets", [])),
     )
 
 
@@ -70,59 +81,135 @@ def _located(error: SpecError, row: EpochSet, *prefix: str | int) -> Unprocessab
     "",
     status_code=status.HTTP_202_ACCEPTED,
     response_model=RunAccepted,
-    responses={404: {"description": "No such study."}, 422: {"description": "The spec cannot run on these epoch sets."}},
+    responses=errors(400, 401, 403, 404, 409, 413, 422, unprocessable="The spec is malformed or cannot run on these "
+                                                                 "epoch sets; the detail names the field."),
 )
-def create_run(body: RunCreate, session: SessionDep, settings: SettingsDep, response: Response) -> RunAccepted:
+def create_run(body: RunCreate, session: SessionDep, settings: SettingsDep, caller: CallerDep,
+               idempotency: IdempotencyDep) -> Response:
     """Queue a run that scores each pipeline on each epoch set."""
-    study = study_by_code(session, body.study)
+    study = study_by_code(session, body.study, caller, "write")
+    if (replayed := idempotency.replay(canonical_fingerprint(body.model_dump(mode="json")))) is not None:
+        return replayed
     epoch_sets = _epoch_sets_of_run(session, study, body.epoch_sets)
     check_run_spec(body, epoch_sets)
     run = Run(id=new_id("run"), study_id=study.id, spec=body.model_dump(mode="json"), status=queue.QUEUED)
     session.add(run)
     session.flush()
     session.add_all(RunEpochSet(run_id=run.id, epoch_set_id=row.id, position=i) for i, row in enumerate(epoch_sets))
+    session.add_all(RunPipeline(run_id=run.id, position=i, name=p.name) for i, p in enumerate(body.pipelines))
     queue.enqueue(session, run.id, max_attempts=settings.max_attempts)
-    response.headers["Location"] = f"/v1/runs/{run.id}"
-    return RunAccepted(id=run.id, status=queue.QUEUED)
+    try:
+        session.flush()
+    except IntegrityError:
+        # An epoch set of the run was deleted by a concurrent request that committed first.
+        session.rollback()
+        raise Unprocessable("epoch_sets: an epoch set of this run was deleted while the run was being created; "
+                            f"list the remaining ones with GET /v1/studies/{body.study}/epoch-sets") from None
+    return idempotency.remember(status.HTTP_202_ACCEPTED, RunAccepted(id=run.id, status=queue.QUEUED),
+                                location=f"/v1/runs/{run.id}")
 
 
-@router.get("", response_model=RunPage)
+@router.get("", response_model=RunPage, responses=errors(401, 404, 422))
 def list_runs(
     session: SessionDep,
+    caller: CallerDep,
     study: Annotated[str | None, Query(description="Only runs of this study (its code).")] = None,
+    subject: Annotated[str | None, Query(pattern=SUBJECT_PATTERN, description="Only runs scoring an epoch set "
+                                                                              "of this subject.")] = None,
+    session_label: Annotated[str | None, Query(alias="session", pattern=SUBJECT_PATTERN,
+                                               description="Only runs scoring an epoch set of this session.")] = None,
     status_filter: Annotated[RunStatus | None, Query(alias="status")] = None,
-    limit: Annotated[int, Query(ge=1, le=500)] = 100,
+    pipeline: Annotated[str | None, Query(min_length=1, max_length=200,
+                                          description="Only runs with a pipeline of this name.")] = None,
+    created_after: Annotated[datetime | None, Query(description="Only runs created at or after this time "
+                                                                "(ISO 8601; UTC if no zone is given).")] = None,
+    created_before: Annotated[datetime | None, Query(description="Only runs created before this time.")] = None,
+    limit: Annotated[int, Query(ge=1, le=500, description="Runs per page.")] = 100,
+    cursor: Annotated[str | None, Query(max_length=400, description="next_cursor of the previous page.")] = None,
 ) -> RunPage:
-    """Runs, newest first."""
-    query = select(Run, Study.code).join(Study, Run.study_id == Study.id)
+    """Runs the key covers, newest first, one page at a time (pass ``next_cursor`` on for the next page)."""
+    query = select(Run, Study.code).join(Study, Run.study_id == Study.id).where(caller.study_filter(Run.study_id))
     if study is not None:
-        query = query.where(Run.study_id == study_by_code(session, study).id)
+        query = query.where(Run.study_id == study_by_code(session, study, caller, "read").id)
+    if subject is not None or session_label is not None:
+        scored = select(RunEpochSet.run_id).join(EpochSet, RunEpochSet.epoch_set_id == EpochSet.id)
+        if subject is not None:
+            scored = scored.where(EpochSet.subject == subject)
+        if session_label is not None:
+            scored = scored.where(EpochSet.session == session_label)
+        query = query.where(Run.id.in_(scored))
     if status_filter is not None:
         query = query.where(Run.status == status_filter)
-    rows = session.execute(query.order_by(Run.created_at.desc(), Run.id.desc()).limit(limit)).all()
-    return RunPage(runs=[run_out(run, code) for run, code in rows])
+    if pipeline is not None:
+        query = query.where(Run.id.in_(select(RunPipeline.run_id).where(RunPipeline.name == pipeline)))
+    if created_after is not None:
+        query = query.where(Run.created_at >= as_utc(created_after))
+    if created_before is not None:
+        query = query.where(Run.created_at < as_utc(created_before))
+    if cursor is not None:
+        last_created, last_id = decode_cursor(cursor)
+        query = query.where(or_(Run.created_at < last_created, and_(Run.created_at == last_created, Run.id < last_id)))
+    rows = session.execute(query.order_by(Run.created_at.desc(), Run.id.desc()).limit(limit + 1)).all()
+    page = rows[:limit]
+    next_cursor = encode_cursor(page[-1][0].created_at, page[-1][0].id) if len(rows) > limit else None
+    return RunPage(runs=[run_out(run, code) for run, code in page], next_cursor=next_cursor)
 
 
-@router.get("/{run_id}", response_model=RunOut, responses={404: {"description": "No such run."}})
-def get_run(run_id: str, session: SessionDep) -> RunOut:
+@router.get("/{run_id}", response_model=RunOut, responses=errors(401, 404))
+def get_run(run_id: str, session: SessionDep, caller: CallerDep) -> RunOut:
     """The state of a run: queued, running (with progress), succeeded or failed (with the error)."""
-    run = run_by_id(session, run_id)
+    run = run_by_id(session, run_id, caller, "read")
     return run_out(run, run.study.code)
+
+
+@router.delete("/{run_id}", status_code=status.HTTP_204_NO_CONTENT, responses=errors(401, 403, 404))
+def delete_run(run_id: str, session: SessionDep, caller: CallerDep) -> Response:
+    """Delete a run, its job and its result. A running run is dropped by its worker at the next heartbeat.
+
+    Its epoch sets stay; delete them afterwards if they are no longer wanted.
+    """
+    run = run_by_id(session, run_id, caller, "write")
+    session.execute(delete(Run).where(Run.id == run.id))
+    return Response(status_code=status.HTTP_204_NO_CONTENT)
+
+
+MEDIA_TYPES = ("application/json", "text/csv")
 
 
 @router.get(
     "/{run_id}/result",
     responses={
-        200: {"model": RunResultDocument, "description": "The result document."},
-        404: {"description": "No such run."},
-        409: {"description": "The run has not succeeded (yet)."},
+        200: {"model": RunResultDocument, "description": "The result document, or its CSV table.",
+              "content": {"text/csv": {"schema": {"type": "string"}, "example": CSV_EXAMPLE}}},
+        **errors(401, 404, 406, 409, conflict="The run has not succeeded (yet)."),
     },
 )
-def get_run_result(run_id: str, session: SessionDep) -> Response:
-    """The result document of a succeeded run."""
-    run = run_by_id(session, run_id)
+def get_run_result(
+    run_id: str,
+    session: SessionDep,
+    caller: CallerDep,
+    result_format: Annotated[Literal["json", "csv"] | None, Query(
+        alias="format", description="csv: one row per pipeline × epoch set × channel. Overrides Accept.")] = None,
+    accept: Annotated[str | None, Header(include_in_schema=False)] = None,
+) -> Response:
+    """The result document of a succeeded run, as JSON or (``Accept: text/csv`` or ``?format=csv``) CSV."""
+    run = run_by_id(session, run_id, caller, "read")
+    media_type = _result_media_type(result_format, accept)
     result = session.get(RunResult, run.id)
     if run.status != queue.SUCCEEDED or result is None:
         hint = f"it failed: {run.error}" if run.status == queue.FAILED else f"poll GET /v1/runs/{run.id} until status is succeeded"
         raise Conflict(f"run {run.id} is {run.status}, so it has no result; {hint}")
+    if media_type == "text/csv":
+        return Response(content=result_csv(json.loads(result.document)), media_type="text/csv; charset=utf-8",
+                        headers={"Content-Disposition": f'attachment; filename="{run.id}.csv"'})
     return Response(content=result.document, media_type="application/json")
+
+
+def _result_media_type(result_format: str | None, accept: str | None) -> str:
+    if result_format is not None:
+        return "text/csv" if result_format == "csv" else "application/json"
+    media_type = preferred_media_type(accept or "", MEDIA_TYPES)
+    if media_type is None:
+        raise NotAcceptable(f"the result is available as {' or '.join(MEDIA_TYPES)}; the Accept header "
+                            f"{accept!r} takes neither (or use ?format=csv / ?format=json)")
+    return media_type

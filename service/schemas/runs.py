@@ -43,15 +43,30 @@ class RunCreate(BaseModel):
             raise ValueError(f"pipeline names must be unique within a run; repeated: {', '.join(repeated)}")
         if len(set(self.epoch_sets)) != len(self.epoch_sets):
             raise ValueError("epoch_sets lists the same id more than once")
+        reference = self.scoring.reference_pipeline
+        if reference is not None and reference not in names:
+            raise ValueError(f"scoring.reference_pipeline {reference!r} is not a pipeline of this run; "
+                             f"name one of: {', '.join(names)}")
         return self
 
 
 class RunAccepted(BaseModel):
+    model_config = ConfigDict(json_schema_extra={"examples": [{"id": "run_0123456789abcdef", "status": "queued"}]})
+
     id: str
     status: RunStatus
 
 
+RUN_OUT_EXAMPLE = {
+    "id": "run_0123456789abcdef", "study": "READ-01", "status": "running", "progress": 0.25, "error": None,
+    "created_at": "2026-12-01T10:00:00Z", "started_at": "2026-12-01T10:00:01Z", "finished_at": None,
+    "pipelines": ["raw", "hp0.1-avg"], "epoch_sets": ["es_3f9c0a1b7d2e4f60"],
+}
+
+
 class RunOut(BaseModel):
+    model_config = ConfigDict(json_schema_extra={"examples": [RUN_OUT_EXAMPLE]})
+
     id: str
     study: str
     status: RunStatus
@@ -60,10 +75,15 @@ class RunOut(BaseModel):
     created_at: datetime
     started_at: datetime | None
     finished_at: datetime | None
+    pipelines: list[str] = Field(description="The pipeline names of the run, in order.")
+    epoch_sets: list[str] = Field(description="The ids of the epoch sets the run scores.")
 
 
 class RunPage(BaseModel):
+    model_config = ConfigDict(json_schema_extra={"examples": [{"runs": [RUN_OUT_EXAMPLE], "next_cursor": None}]})
+
     runs: list[RunOut]
+    next_cursor: str | None = Field(description="Pass as ?cursor= for the next page; null on the last page.")
 
 
 class ChannelResult(BaseModel):
@@ -97,7 +117,25 @@ class PipelineResult(BaseModel):
     error: str | None = Field(None, description="Why this epoch set could not be scored with this pipeline.")
 
 
+RESULT_EXAMPLE = {
+    "schema_version": 1, "run": "run_0123456789abcdef", "study": "READ-01",
+    "scoring": RUN_EXAMPLE["scoring"],
+    "provenance": {"software": {"epoch-assay": "0.1.0"}, "scoring_hash": "5d2c…", "pipeline_hashes": {"raw": "9f2c…"},
+                   "epoch_set_sha256": {"es_3f9c0a1b7d2e4f60": "9b1c…"}, "seeds": {"bootstrap": 7}},
+    "results": [{
+        "pipeline": "raw", "pipeline_hash": "9f2c…", "epoch_set": "es_3f9c0a1b7d2e4f60", "subject": "sub-01",
+        "session": "ses-01", "n_trials": {"congruent": 70, "incongruent": 70},
+        "channels": [{"name": "Pz", "t": -4.1, "p": 0.0001, "p_adjusted": 0.002, "significant": True}],
+        "significant_fraction": 0.41,
+        "bootstrap": {"median": 0.38, "ci_low": 0.22, "ci_high": 0.53, "resamples": 1000, "trials_per_condition": 40},
+        "provenance": [], "warnings": [],
+    }],
+}
+
+
 class RunResultDocument(BaseModel):
+    model_config = ConfigDict(json_schema_extra={"examples": [RESULT_EXAMPLE]})
+
     schema_version: int
     run: str
     study: str

@@ -1,14 +1,21 @@
 """Content-addressed blob store on a local folder.
 
 A blob is stored under ``<root>/<sha[:2]>/<sha>``; it is written to a temporary file in
-``<root>/tmp`` first and moved into place with an atomic rename, so a reader never sees a
-half-written blob and an interrupted upload leaves nothing behind but a temp file.
+``<root>/tmp`` first and hard-linked into place, so a reader never sees a half-written blob
+and an interrupted upload leaves nothing behind but a temp file.
+
+Removing a blob races with an upload of the same bytes to another study. Both sides are
+ordered so that no stored epoch set ever loses its blob: an upload links the blob before
+committing its row and links it again after (a no-op when it is there), and
+:meth:`BlobStore.discard` moves the blob aside, checks the database, and puts it back when
+a row names it. Putting back is always right because the store is content-addressed.
 """
 
 import hashlib
 import os
+import secrets
 import tempfile
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
 from typing import BinaryIO
@@ -36,7 +43,7 @@ class BlobStore:
         """Copy ``source`` to a temporary file while hashing it.
 
         The caller inspects ``staged.path`` (e.g. validates it) and calls ``commit()`` to keep
-        it; a staged file that is not committed is removed on exit.
+        it under its hash; the temporary name is removed on exit.
         """
         handle, name = tempfile.mkstemp(dir=self._tmp)
         staged = StagedBlob(self, Path(name))
@@ -54,8 +61,22 @@ class BlobStore:
         finally:
             staged.path.unlink(missing_ok=True)
 
-    def delete(self, sha256: str) -> None:
-        self.path(sha256).unlink(missing_ok=True)
+    def discard(self, sha256: str, still_referenced: Callable[[], bool]) -> bool:
+        """Remove the blob unless ``still_referenced()`` (asked after it is out of sight) is true.
+
+        Returns True when the blob was removed.
+        """
+        target = self.path(sha256)
+        aside = self._tmp / f"discard-{sha256}-{secrets.token_hex(4)}"
+        try:
+            os.replace(target, aside)
+        except FileNotFoundError:
+            return False
+        if still_referenced():
+            os.replace(aside, target)
+            return False
+        aside.unlink()
+        return True
 
 
 class StagedBlob:
@@ -68,11 +89,11 @@ class StagedBlob:
         self.size = 0
 
     def commit(self) -> Path:
-        """Move the staged file into the store under its hash (a no-op if already there)."""
+        """Link the staged file into the store under its hash (a no-op if already there); may be repeated."""
         target = self.store.path(self.sha256)
         target.parent.mkdir(parents=True, exist_ok=True)
-        if target.is_file():
-            self.path.unlink(missing_ok=True)
-        else:
-            os.replace(self.path, target)
+        try:
+            os.link(self.path, target)
+        except FileExistsError:
+            pass
         return target

@@ -64,6 +64,15 @@ class EpochSet(Base):
     conditions: Mapped[dict[str, int]] = mapped_column(JSON)
     has_positions: Mapped[bool] = mapped_column(default=False)
     created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utc_now)
+    # A "recording" is epoched by the worker: its file and events are the blobs named below, and
+    # ``sha256`` is then the hash of file, events, epoching and channels together (see service.api.recordings).
+    source: Mapped[str] = mapped_column(String(16), default="upload", server_default="upload")
+    file_format: Mapped[str] = mapped_column(String(8), default="npz", server_default="npz")
+    file_sha256: Mapped[str | None] = mapped_column(String(64), nullable=True)
+    events_sha256: Mapped[str | None] = mapped_column(String(64), nullable=True)
+    epoching: Mapped[dict[str, Any] | None] = mapped_column(JSON, nullable=True)
+    channels: Mapped[dict[str, Any] | None] = mapped_column(JSON, nullable=True)
+    events_found: Mapped[dict[str, Any] | None] = mapped_column(JSON, nullable=True)
 
     study: Mapped[Study] = relationship()
 
@@ -72,7 +81,11 @@ class Run(Base):
     """A scoring run: its spec, its state as clients see it, and (once done) its result."""
 
     __tablename__ = "runs"
-    __table_args__ = (Index("ix_runs_study_created", "study_id", "created_at", "id"),)
+    __table_args__ = (
+        Index("ix_runs_study_created", "study_id", "created_at", "id"),
+        Index("ix_runs_created", "created_at", "id"),
+        Index("ix_runs_finished", "finished_at"),
+    )
 
     id: Mapped[str] = mapped_column(String(40), primary_key=True)
     study_id: Mapped[str] = mapped_column(ForeignKey("studies.id", ondelete="CASCADE"))
@@ -95,6 +108,17 @@ class RunEpochSet(Base):
     run_id: Mapped[str] = mapped_column(ForeignKey("runs.id", ondelete="CASCADE"), primary_key=True)
     epoch_set_id: Mapped[str] = mapped_column(ForeignKey("epoch_sets.id", ondelete="RESTRICT"), primary_key=True)
     position: Mapped[int] = mapped_column(Integer)
+
+
+class RunPipeline(Base):
+    """The pipeline names of a run, so history can be searched by pipeline with plain SQL."""
+
+    __tablename__ = "run_pipelines"
+    __table_args__ = (Index("ix_run_pipelines_name", "name", "run_id"),)
+
+    run_id: Mapped[str] = mapped_column(ForeignKey("runs.id", ondelete="CASCADE"), primary_key=True)
+    position: Mapped[int] = mapped_column(Integer, primary_key=True)
+    name: Mapped[str] = mapped_column(String(200))
 
 
 class RunResult(Base):
@@ -124,6 +148,9 @@ class Job(Base):
     error: Mapped[str | None] = mapped_column(Text, nullable=True)
     created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utc_now)
     finished_at: Mapped[datetime | None] = mapped_column(UTCDateTime, nullable=True)
+    available_at: Mapped[datetime | None] = mapped_column(
+        UTCDateTime, nullable=True, doc="Not claimable before this time (the backoff after a failed attempt)."
+    )
 
 
 class WorkerBeat(Base):
@@ -133,3 +160,79 @@ class WorkerBeat(Base):
 
     worker_id: Mapped[str] = mapped_column(String(80), primary_key=True)
     seen_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utc_now)
+
+
+class ApiKey(Base):
+    """An API key: only the SHA-256 of its token is kept; ``study_id`` is None for admin keys."""
+
+    __tablename__ = "api_keys"
+
+    id: Mapped[str] = mapped_column(String(40), primary_key=True)
+    token_sha256: Mapped[str] = mapped_column(String(64), unique=True)
+    role: Mapped[str] = mapped_column(String(16))
+    study_id: Mapped[str | None] = mapped_column(ForeignKey("studies.id", ondelete="CASCADE"), nullable=True)
+    label: Mapped[str | None] = mapped_column(String(200), nullable=True)
+    created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utc_now)
+    revoked_at: Mapped[datetime | None] = mapped_column(UTCDateTime, nullable=True)
+
+    study: Mapped[Study | None] = relationship()
+
+
+class IdempotencyRecord(Base):
+    """The first successful answer to a POST sent with an ``Idempotency-Key``, replayed to retries."""
+
+    __tablename__ = "idempotency_records"
+    __table_args__ = (Index("ix_idempotency_records_created", "created_at"),)
+
+    caller_id: Mapped[str] = mapped_column(String(40), primary_key=True)
+    key: Mapped[str] = mapped_column(String(255), primary_key=True)
+    method: Mapped[str] = mapped_column(String(8))
+    path: Mapped[str] = mapped_column(String(500))
+    request_sha256: Mapped[str] = mapped_column(String(64))
+    status_code: Mapped[int] = mapped_column(Integer)
+    media_type: Mapped[str] = mapped_column(String(100))
+    body: Mapped[str] = mapped_column(Text)
+    location: Mapped[str | None] = mapped_column(String(500), nullable=True)
+    created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utc_now)
+
+
+class Webhook(Base):
+    """A URL that receives a signed JSON event when a run of the study succeeds or fails."""
+
+    __tablename__ = "webhooks"
+    __table_args__ = (Index("ix_webhooks_study", "study_id"),)
+
+    id: Mapped[str] = mapped_column(String(40), primary_key=True)
+    study_id: Mapped[str] = mapped_column(ForeignKey("studies.id", ondelete="CASCADE"))
+    url: Mapped[str] = mapped_column(String(2000))
+    # Kept as it is: signing needs the secret itself, a hash would not do.
+    secret: Mapped[str] = mapped_column(String(100))
+    events: Mapped[list[str]] = mapped_column(JSON)
+    description: Mapped[str | None] = mapped_column(String(200), nullable=True)
+    created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utc_now)
+
+
+class WebhookDelivery(Base):
+    """One event for one webhook: the outbox row, written with the run's outcome, and its delivery log."""
+
+    __tablename__ = "webhook_deliveries"
+    __table_args__ = (
+        Index("ix_webhook_deliveries_due", "status", "next_attempt_at"),
+        Index("ix_webhook_deliveries_webhook", "webhook_id", "created_at"),
+    )
+
+    id: Mapped[str] = mapped_column(String(40), primary_key=True)
+    webhook_id: Mapped[str] = mapped_column(ForeignKey("webhooks.id", ondelete="CASCADE"))
+    event_id: Mapped[str] = mapped_column(String(40))
+    event_type: Mapped[str] = mapped_column(String(40))
+    run_id: Mapped[str] = mapped_column(String(40))
+    payload: Mapped[str] = mapped_column(Text)
+    status: Mapped[str] = mapped_column(String(16), default="pending")
+    attempts: Mapped[int] = mapped_column(Integer, default=0)
+    next_attempt_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utc_now)
+    lease_expires_at: Mapped[datetime | None] = mapped_column(UTCDateTime, nullable=True)
+    last_status_code: Mapped[int | None] = mapped_column(Integer, nullable=True)
+    last_error: Mapped[str | None] = mapped_column(Text, nullable=True)
+    log: Mapped[list[dict[str, Any]]] = mapped_column(JSON, default=list)
+    created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utc_now)
+    delivered_at: Mapped[datetime | None] = mapped_column(UTCDateTime, nullable=True)

@@ -1,21 +1,26 @@
 """The job queue and its state machine.
 
     queued ──claim──▶ running ──complete──▶ succeeded
-       ▲                 │  └────fail────▶ failed
+       ▲                 │  └────fail────▶ failed            (an error retrying cannot mend)
+       │                 ├── retry ─────▶ queued, not before base·2^(n−1) s   (attempts left)
+       │                 │           └──▶ failed, with the last error          (none left)
+       ├── release ──────┤ (the worker shuts down; the attempt is not counted)
        └── lease expires ┘ (taken again while attempts < max_attempts, else failed)
 
 A claim is one atomic UPDATE, so two workers never hold the same job; on PostgreSQL the
 candidate row is locked with ``FOR UPDATE SKIP LOCKED``. A worker renews its lease with
 heartbeats; completion and failure only count while the worker still holds the lease,
-so a job taken over after a lost lease is finished exactly once.
+so a job taken over after a lost lease is finished exactly once. Finishing a run also
+queues its webhook events, in the same transaction (``service.storage.outbox``).
 """
 
 from dataclasses import dataclass
 from datetime import datetime, timedelta
 
-from sqlalchemy import and_, func, or_, select, update
+from sqlalchemy import and_, delete, func, or_, select, update
 from sqlalchemy.orm import Session
 
+from service.storage import outbox
 from service.storage.ids import new_id, utc_now
 from service.storage.models import Job, Run, WorkerBeat
 
@@ -39,7 +44,8 @@ def enqueue(session: Session, run_id: str, *, max_attempts: int) -> Job:
 def _claimable(now: datetime):  # type: ignore[no-untyped-def]
     return and_(
         Job.attempts < Job.max_attempts,
-        or_(Job.status == QUEUED, and_(Job.status == RUNNING, Job.lease_expires_at < now)),
+        or_(and_(Job.status == QUEUED, or_(Job.available_at.is_(None), Job.available_at <= now)),
+            and_(Job.status == RUNNING, Job.lease_expires_at < now)),
     )
 
 
@@ -71,12 +77,14 @@ def claim(session: Session, worker_id: str, lease_seconds: float) -> ClaimedJob 
 def _fail_exhausted(session: Session, now: datetime) -> None:
     """Fail the jobs whose lease ran out on their last allowed attempt."""
     exhausted = session.execute(
-        select(Job.id, Job.run_id, Job.attempts).where(
+        select(Job.id, Job.run_id, Job.attempts, Job.error).where(
             Job.status == RUNNING, Job.lease_expires_at < now, Job.attempts >= Job.max_attempts
         )
     ).all()
-    for job_id, run_id, attempts in exhausted:
-        reason = f"the worker running this job stopped answering {attempts} times; giving up"
+    for job_id, run_id, attempts, earlier_error in exhausted:
+        reason = f"gave up after {attempts} attempts; the worker running the last one stopped answering"
+        if earlier_error:
+            reason += f"; an earlier attempt failed with: {earlier_error}"
         _finish(session, job_id, run_id, FAILED, reason, now)
 
 
@@ -103,12 +111,38 @@ def fail(session: Session, job: ClaimedJob, worker_id: str, error: str) -> bool:
     return _finish_held(session, job, worker_id, FAILED, error)
 
 
+def retry_or_fail(session: Session, job: ClaimedJob, worker_id: str, error: str, backoff_seconds: float) -> str | None:
+    """After a failed attempt: queue the job again after a backoff, or fail it when no attempt is left.
+
+    Returns the job's new status (QUEUED or FAILED), or None if the lease was lost.
+    """
+    held = session.execute(
+        select(Job.max_attempts).where(Job.id == job.id, Job.worker_id == worker_id, Job.status == RUNNING)
+    ).first()
+    if held is None:
+        return None
+    now = utc_now()
+    if job.attempt >= held.max_attempts:
+        _finish(session, job.id, job.run_id, FAILED, f"failed {job.attempt} times; last error: {error}", now)
+        return FAILED
+    wait = backoff_seconds * 2 ** (job.attempt - 1)
+    session.execute(
+        update(Job).where(Job.id == job.id).values(
+            status=QUEUED, worker_id=None, lease_expires_at=None, error=error,
+            available_at=now + timedelta(seconds=wait),
+        )
+    )
+    note = f"attempt {job.attempt} of {held.max_attempts} failed ({error}); trying again in {wait:g} s"
+    session.execute(update(Run).where(Run.id == job.run_id).values(status=QUEUED, progress=0.0, error=note))
+    return QUEUED
+
+
 def release(session: Session, job: ClaimedJob, worker_id: str) -> bool:
     """Hand a job back to the queue (a worker shutting down); the attempt is not counted."""
     released = session.execute(
         update(Job)
         .where(Job.id == job.id, Job.worker_id == worker_id, Job.status == RUNNING)
-        .values(status=QUEUED, worker_id=None, lease_expires_at=None, attempts=Job.attempts - 1)
+        .values(status=QUEUED, worker_id=None, lease_expires_at=None, available_at=None, attempts=Job.attempts - 1)
     ).rowcount
     if released:
         session.execute(update(Run).where(Run.id == job.run_id).values(status=QUEUED, progress=0.0))
@@ -133,6 +167,7 @@ def _finish(session: Session, job_id: str, run_id: str, status: str, error: str 
     session.execute(
         update(Run).where(Run.id == run_id).values(status=status, error=error, finished_at=now, progress=progress)
     )
+    outbox.record_run_event(session, run_id, status, error, now)
 
 
 def record_worker_seen(session: Session, worker_id: str) -> None:
@@ -143,6 +178,15 @@ def record_worker_seen(session: Session, worker_id: str) -> None:
         session.add(WorkerBeat(worker_id=worker_id, seen_at=now))
     else:
         beat.seen_at = now
+
+
+def forget_worker(session: Session, worker_id: str) -> None:
+    """A worker that stops cleanly is no longer counted as alive."""
+    session.execute(delete(WorkerBeat).where(WorkerBeat.worker_id == worker_id))
+
+
+def workers_seen_since(session: Session, since: datetime) -> int:
+    return int(session.scalar(select(func.count()).select_from(WorkerBeat).where(WorkerBeat.seen_at >= since)) or 0)
 
 
 def queue_depth(session: Session) -> int:

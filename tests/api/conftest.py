@@ -18,7 +18,8 @@ def service(tmp_path_factory: pytest.TempPathFactory) -> LiveService:
 
 @pytest.fixture()
 def client(service: LiveService) -> httpx.Client:
-    with httpx.Client(base_url=service.base_url, timeout=30.0) as http:
+    """A client of the shared service sending its admin key."""
+    with service.client() as http:
         yield http
 
 
@@ -30,3 +31,11 @@ def study(client: httpx.Client, request: pytest.FixtureRequest) -> str:
     answer = client.post("/v1/studies", json={"code": code, "title": f"study of {request.node.name}"})
     assert answer.status_code == 201, answer.text
     return code
+
+
+@pytest.fixture(scope="session")
+def idle_service(tmp_path_factory: pytest.TempPathFactory) -> LiveService:
+    """An API with no worker, logging at INFO (for readiness, logs and schema tests)."""
+    live = start_service(tmp_path_factory.mktemp("idle"), n_workers=0, log_level="INFO")
+    yield live
+    live.stop()

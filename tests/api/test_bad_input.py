@@ -1,6 +1,5 @@
 """Bad input gets a clear 4xx problem+json that names the problem; nothing stored changes."""
 
-import httpx
 import numpy as np
 import pytest
 
@@ -130,7 +129,7 @@ def test_unknown_run_is_404_and_result_of_unfinished_run_is_409(client):
 def test_upload_over_the_size_limit_is_413(tmp_path):
     small_limit = start_service(tmp_path, n_workers=0, max_upload_bytes="20000")
     try:
-        with httpx.Client(base_url=small_limit.base_url, timeout=30) as http:
+        with small_limit.client() as http:
             assert http.post("/v1/studies", json={"code": "S", "title": "t"}).status_code == 201
             answer = upload(http, "S", npz_bytes(small_epochs(seed=14)))
             assert answer.status_code == 413, answer.text
@@ -138,3 +137,16 @@ def test_upload_over_the_size_limit_is_413(tmp_path):
             assert http.get("/v1/studies/S/epoch-sets").json() == []
     finally:
         small_limit.stop()
+
+
+def test_a_method_the_path_does_not_serve_is_405_naming_every_allowed_method(client):
+    answer = client.put("/v1/runs/run_doesnotexist")
+    assert answer.status_code == 405
+    assert {"GET", "DELETE"} <= {method.strip() for method in answer.headers["allow"].split(",")}
+    assert answer.headers["content-type"].startswith("application/problem+json")
+
+
+def test_a_json_body_that_is_not_json_is_400_saying_so(client):
+    answer = client.post("/v1/runs", content=b"\xff\xfe not json", headers={"Content-Type": "application/json"})
+    assert answer.status_code in (400, 422), answer.text
+    assert "JSON" in answer.json()["detail"] or "json" in answer.json()["detail"]

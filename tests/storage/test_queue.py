@@ -5,21 +5,12 @@ import time
 from concurrent.futures import ThreadPoolExecutor
 
 import pytest
+from sqlalchemy import select
 
 from service.storage import queue
 from service.storage.db import Database
-from service.storage.ids import new_id
-from service.storage.migrate import upgrade_to_head
-from service.storage.models import Job, Run, Study
-
-
-@pytest.fixture()
-def database(tmp_path) -> Database:
-    url = f"sqlite:///{tmp_path / 'queue.sqlite3'}"
-    upgrade_to_head(url)
-    db = Database(url)
-    yield db
-    db.dispose()
+from service.storage.ids import new_id, utc_now
+from service.storage.models import Job, Run, Study, Webhook, WebhookDelivery
 
 
 def _queue_runs(database: Database, n: int, max_attempts: int = 3) -> list[str]:
@@ -111,7 +102,7 @@ def test_a_job_whose_worker_keeps_dying_fails_after_max_attempts(database):
     assert _claim(database, "w3") is None
     with database.session() as session:
         run = session.get(Run, run_id)
-        assert run.status == "failed" and "2 times" in run.error
+        assert run.status == "failed" and "2 attempts" in run.error
 
 
 def test_release_hands_the_job_back_without_counting_the_attempt(database):
@@ -128,3 +119,96 @@ def test_queue_depth_counts_waiting_jobs(database):
     _claim(database, "w1")
     with database.session() as session:
         assert queue.queue_depth(session) == 2
+
+
+def test_a_failed_attempt_is_queued_again_but_not_claimable_before_its_backoff(database):
+    (run_id,) = _queue_runs(database, 1)
+    job = _claim(database, "w1")
+    with database.session() as session:
+        assert queue.retry_or_fail(session, job, "w1", "OSError: disk hiccup", backoff_seconds=60.0) == queue.QUEUED
+    assert _claim(database, "w2") is None
+    with database.session() as session:
+        run = session.get(Run, run_id)
+        assert run.status == "queued" and "disk hiccup" in run.error and "60 s" in run.error
+
+
+def test_a_failed_attempt_is_claimable_again_once_its_backoff_has_passed(database):
+    _queue_runs(database, 1)
+    job = _claim(database, "w1")
+    with database.session() as session:
+        queue.retry_or_fail(session, job, "w1", "OSError: disk hiccup", backoff_seconds=0.05)
+    time.sleep(0.1)
+    again = _claim(database, "w2")
+    assert again is not None and again.id == job.id and again.attempt == 2
+
+
+def test_the_backoff_doubles_with_each_attempt(database):
+    _queue_runs(database, 1, max_attempts=5)
+    waits = []
+    for worker in ("w1", "w2", "w3"):
+        job = _claim(database, worker)
+        with database.session() as session:
+            queue.retry_or_fail(session, job, worker, "OSError: again", backoff_seconds=0.01)
+            row = session.get(Job, job.id)
+            waits.append((row.available_at - utc_now()).total_seconds())
+        time.sleep(0.1)
+    assert waits[0] < waits[1] < waits[2] <= 0.04
+
+
+def test_a_job_failing_on_its_last_attempt_is_failed_with_the_last_reason(database):
+    (run_id,) = _queue_runs(database, 1, max_attempts=2)
+    for worker, reason in (("w1", "OSError: first"), ("w2", "OSError: second")):
+        job = _claim(database, worker)
+        with database.session() as session:
+            queue.retry_or_fail(session, job, worker, reason, backoff_seconds=0.0)
+    with database.session() as session:
+        run = session.get(Run, run_id)
+        assert (run.status, run.error) == ("failed", "failed 2 times; last error: OSError: second")
+
+
+def _webhook(database: Database, run_id: str, events: list[str]) -> str:
+    with database.session() as session:
+        hook = Webhook(id=new_id("wh"), study_id=session.get(Run, run_id).study_id, url="http://127.0.0.1:9/",
+                       secret="s", events=events)
+        session.add(hook)
+    return hook.id
+
+
+def _events(database: Database) -> list[tuple[str, str]]:
+    with database.session() as session:
+        return [(row.run_id, row.event_type) for row in session.scalars(select(WebhookDelivery))]
+
+
+def test_completing_a_run_queues_its_event_in_the_same_transaction(database):
+    (run_id,) = _queue_runs(database, 1)
+    _webhook(database, run_id, ["run.succeeded", "run.failed"])
+    job = _claim(database, "w1")
+    with pytest.raises(RuntimeError), database.session() as session:
+        queue.complete(session, job, "w1")
+        raise RuntimeError("the transaction is rolled back")
+    assert _events(database) == []
+    with database.session() as session:
+        queue.complete(session, job, "w1")
+    assert _events(database) == [(run_id, "run.succeeded")]
+
+
+def test_failing_a_run_queues_run_failed_only_for_webhooks_that_want_it(database):
+    (run_id,) = _queue_runs(database, 1)
+    _webhook(database, run_id, ["run.succeeded"])
+    _webhook(database, run_id, ["run.failed"])
+    job = _claim(database, "w1")
+    with database.session() as session:
+        queue.fail(session, job, "w1", "ValueError: broken")
+    assert _events(database) == [(run_id, "run.failed")]
+
+
+def test_handing_a_job_back_or_retrying_it_queues_no_event(database):
+    (run_id,) = _queue_runs(database, 1)
+    _webhook(database, run_id, ["run.succeeded", "run.failed"])
+    job = _claim(database, "w1")
+    with database.session() as session:
+        queue.release(session, job, "w1")
+    job = _claim(database, "w2")
+    with database.session() as session:
+        queue.retry_or_fail(session, job, "w2", "OSError: again", backoff_seconds=0.0)
+    assert _events(database) == []

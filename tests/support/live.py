@@ -1,4 +1,8 @@
-"""Real server and worker processes for tests, on loopback, stopped by the test that starts them."""
+"""Real server and worker processes for tests, on loopback, stopped by the test that starts them.
+
+Access control is on, as in production: :func:`start_service` makes an admin key with the real
+command line (``epoch-assay keys create --role admin``) and :meth:`LiveService.client` sends it.
+"""
 
 import os
 import socket
@@ -25,6 +29,12 @@ def _spawn(args: list[str], env: dict[str, str], log_path: Path) -> subprocess.P
                             stdout=log, stderr=subprocess.STDOUT)
 
 
+def run_cli(args: list[str], env: dict[str, str], timeout_s: float = 120.0) -> subprocess.CompletedProcess:
+    """``python -m epoch_assay ARGS``; the finished process, whatever its exit code."""
+    return subprocess.run([sys.executable, "-m", "epoch_assay", *args], cwd=REPO_ROOT, env=env, capture_output=True,
+                          text=True, timeout=timeout_s)
+
+
 def stop(process: subprocess.Popen, timeout_s: float = 30.0) -> None:
     if process.poll() is None:
         process.terminate()
@@ -44,10 +54,30 @@ class LiveService:
     port: int = field(default_factory=free_port)
     api: subprocess.Popen | None = None
     workers: list[subprocess.Popen] = field(default_factory=list)
+    admin_token: str | None = None
 
     @property
     def base_url(self) -> str:
         return f"http://127.0.0.1:{self.port}"
+
+    def client(self, token: str | None = "admin", **options: object) -> httpx.Client:
+        """An HTTP client for the API, sending ``token`` (default: the admin key; None: no key)."""
+        token = self.admin_token if token == "admin" else token
+        headers = {"Authorization": f"Bearer {token}"} if token else {}
+        return httpx.Client(base_url=self.base_url, headers=headers, **({"timeout": 30.0} | options))
+
+    def create_key(self, role: str, study: str | None = None) -> str:
+        """A new key made with ``epoch-assay keys create``; returns its token."""
+        args = ["keys", "create", "--role", role, *(["--study", study] if study else []), "--data-dir", str(self.data_dir)]
+        finished = run_cli(args, self.env)
+        if finished.returncode != 0:
+            raise RuntimeError(f"keys create failed: {finished.stderr[-2000:]}")
+        return finished.stdout.strip().splitlines()[-1]
+
+    def revoke_key(self, token_or_id: str) -> None:
+        finished = run_cli(["keys", "revoke", token_or_id, "--data-dir", str(self.data_dir)], self.env)
+        if finished.returncode != 0:
+            raise RuntimeError(f"keys revoke failed: {finished.stderr[-2000:]}")
 
     @property
     def log_path(self) -> Path:
@@ -64,16 +94,24 @@ class LiveService:
         return worker
 
     def _wait_healthy(self, timeout_s: float = 60.0) -> None:
+        self._wait_for("/healthz", timeout_s)
+
+    def wait_ready(self, timeout_s: float = 60.0) -> None:
+        """Wait until /readyz answers 200: the database answers and a worker has been heard from."""
+        self._wait_for("/readyz", timeout_s)
+
+    def _wait_for(self, path: str, timeout_s: float) -> None:
         deadline = time.monotonic() + timeout_s
         while time.monotonic() < deadline:
             if self.api.poll() is not None:
                 raise RuntimeError(f"the API exited early:\n{self.log_path.read_text()[-4000:]}")
             try:
-                if httpx.get(f"{self.base_url}/healthz", timeout=1.0).status_code == 200:
+                if httpx.get(f"{self.base_url}{path}", timeout=1.0).status_code == 200:
                     return
             except httpx.HTTPError:
-                time.sleep(0.2)
-        raise RuntimeError(f"the API did not become healthy:\n{self.log_path.read_text()[-4000:]}")
+                pass
+            time.sleep(0.1)
+        raise RuntimeError(f"{path} did not answer 200 in time:\n{self.log_path.read_text()[-4000:]}")
 
     def stop(self) -> None:
         for worker in self.workers:
@@ -82,16 +120,28 @@ class LiveService:
             stop(self.api)
 
 
+# Short waits so retries and redeliveries happen within a test.
+TEST_SETTINGS = {"LOG_LEVEL": "WARNING", "POLL_SECONDS": "0.1", "HEARTBEAT_SECONDS": "0.5",
+                 "RETRY_BACKOFF_SECONDS": "0.1", "WEBHOOK_BACKOFF_SECONDS": "0.2", "WEBHOOK_MAX_ATTEMPTS": "5",
+                 "WEBHOOK_TIMEOUT_SECONDS": "5"}
+
+
 def start_service(data_dir: Path, n_workers: int = 1, **settings: str) -> LiveService:
-    """Start an API and ``n_workers`` workers; settings become EPOCH_ASSAY_* variables."""
-    env = {**os.environ, "EPOCH_ASSAY_LOG_LEVEL": "WARNING", "EPOCH_ASSAY_POLL_SECONDS": "0.1",
-           "EPOCH_ASSAY_HEARTBEAT_SECONDS": "0.5"}
+    """Start an API and ``n_workers`` workers; settings become EPOCH_ASSAY_* variables.
+
+    Unless ``open="1"`` is among the settings, an admin key is made and kept as ``admin_token``.
+    """
+    env = {**os.environ, **{f"EPOCH_ASSAY_{key}": value for key, value in TEST_SETTINGS.items()}}
     env.update({f"EPOCH_ASSAY_{key.upper()}": value for key, value in settings.items()})
     service = LiveService(data_dir=data_dir, env=env)
     try:
         service.start_api()
+        if env.get("EPOCH_ASSAY_OPEN") != "1":
+            service.admin_token = service.create_key("admin")
         for _ in range(n_workers):
             service.start_worker()
+        if n_workers:
+            service.wait_ready()
     except BaseException:
         service.stop()
         raise
