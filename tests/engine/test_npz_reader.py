@@ -206,7 +206,7 @@ MALFORMED = [
     ("ch-names-empty", {"ch_names": np.array(["Fz", " ", "Pz", "Oz"])}, "ch_names", "empty entry"),
     ("ch-names-count", {"ch_names": np.array(["Fz", "Cz"])}, "ch_names", "has 2 entries but data has 4 channels"),
     ("ch-types-count", {"ch_types": np.array(["eeg"] * 3)}, "ch_types", "has 3 entries"),
-    ("ch-types-value", {"ch_types": np.array(["eeg", "ecg", "eeg", "stim"])}, "ch_types", "'ecg', 'stim'"),
+    ("ch-types-value", {"ch_types": np.array(["eeg", "ecg", "eeg", "stim"])}, "ch_types", "'ecg'"),
     ("ch-types-no-eeg", {"ch_types": np.array(["misc"] * 4)}, "ch_types", "no channel as 'eeg'"),
     ("unit-value", {"unit": np.array("mV")}, "unit", "is 'mV'; it must be one of 'V', 'uV'"),
     ("unit-array", {"unit": np.array(["V", "V"])}, "unit", "an array of shape (2,)"),

@@ -7,9 +7,13 @@ An NPZ file is a zip archive of ``.npy`` members, one per key:
 * ``tmin``: time of the first sample relative to the event, in s, a finite number
 * ``ch_names``: str, shape (n_channels,), unique and non-empty
 * ``labels``: str, shape (n_trials,), the non-empty condition label of each trial
-* ``ch_types`` (optional): str, shape (n_channels,), each ``eeg``, ``eog`` or ``misc``;
-  all ``eeg`` when absent
+* ``ch_types`` (optional): str, shape (n_channels,), each ``eeg``, ``eog``, ``misc`` or
+  ``stim``; all ``eeg`` when absent
 * ``unit`` (optional): a single str, ``"V"`` (the default) or ``"uV"``
+* ``positions`` (optional): float, shape (n_channels, 3), in m (head coordinates), NaN
+  where unknown
+* ``montage`` (optional): a single str, the name of a standard montage that gives the
+  positions of the channels it knows (explicit ``positions`` win where both know one)
 
 Uploads are untrusted: every member's header is read and checked (no object dtypes,
 declared sizes within the memory limit, members as long as their headers promise)
@@ -27,11 +31,12 @@ from numpy.lib import format as npy_format
 
 from worker.engine.epochs import EpochSet
 from worker.engine.errors import EpochSetFormatError, EpochSetTooLargeError
+from worker.engine.io.channels import checked_positions, merged_positions, positions_from_montage
 from worker.engine.units import VOLTS_PER_MICROVOLT
 
 REQUIRED_KEYS = ("data", "sfreq", "tmin", "ch_names", "labels")
-OPTIONAL_KEYS = ("ch_types", "unit")
-FILE_CHANNEL_TYPES = ("eeg", "eog", "misc")
+OPTIONAL_KEYS = ("ch_types", "unit", "positions", "montage")
+FILE_CHANNEL_TYPES = ("eeg", "eog", "misc", "stim")
 VOLTS_PER_UNIT = {"V": 1.0, "uV": VOLTS_PER_MICROVOLT}
 
 # common practice: EEG channels have standard deviations of roughly 1 to 100 uV; far
@@ -62,7 +67,7 @@ class _MemberHeader:
 
 
 def write_npz(epochs: EpochSet, path: Path) -> None:
-    """Write ``epochs`` as an NPZ epoch-set file (data in V, unit "V")."""
+    """Write ``epochs`` as an NPZ epoch-set file (data in V, unit "V", positions when known)."""
     with open(path, "wb") as handle:
         np.savez(
             handle,
@@ -73,6 +78,7 @@ def write_npz(epochs: EpochSet, path: Path) -> None:
             ch_types=np.array(epochs.ch_types, dtype=str),
             labels=np.asarray(epochs.labels, dtype=str),
             unit=np.array("V"),
+            **({} if epochs.positions is None else {"positions": epochs.positions}),
         )
 
 
@@ -99,7 +105,7 @@ def read_npz(path: Path, *, max_array_bytes: int) -> EpochSet:
         raise EpochSetFormatError(
             "file", f"the file is not a readable NPZ (zip) archive ({error})", _SAVE_AGAIN
         ) from None
-    return _epoch_set(arrays)
+    return epoch_set_from_arrays(arrays)
 
 
 _REQUIRED_FIXES = {
@@ -183,7 +189,8 @@ def _load_array(archive: zipfile.ZipFile, header: _MemberHeader) -> np.ndarray:
         ) from None
 
 
-def _epoch_set(arrays: dict[str, np.ndarray]) -> EpochSet:
+def epoch_set_from_arrays(arrays: dict[str, np.ndarray]) -> EpochSet:
+    """Check the arrays of an epoch set by the rules of an NPZ file (keys as in the module docstring)."""
     data = _data_array(arrays["data"])
     n_trials, n_channels, _ = data.shape
     sfreq = _finite_number(arrays["sfreq"], "sfreq", "the sampling frequency in Hz")
@@ -201,14 +208,26 @@ def _epoch_set(arrays: dict[str, np.ndarray]) -> EpochSet:
     data_v = data.astype(np.float64, copy=False)
     data_v *= VOLTS_PER_UNIT[unit]
     _check_amplitude_scale(data_v, ch_types, unit)
+    names = tuple(ch_names.tolist())
     return EpochSet(
         data=data_v,
         sfreq=sfreq,
         tmin=tmin,
-        ch_names=tuple(ch_names.tolist()),
+        ch_names=names,
         ch_types=ch_types,
         labels=labels,
+        positions=_positions(arrays.get("positions"), arrays.get("montage"), names),
     )
+
+
+def _positions(positions: np.ndarray | None, montage: np.ndarray | None, ch_names: tuple[str, ...]) -> np.ndarray | None:
+    explicit = None if positions is None else checked_positions(positions, len(ch_names))
+    if montage is None:
+        return explicit
+    if montage.dtype.kind != "U" or montage.ndim != 0:
+        raise EpochSetFormatError("montage", f"must be a single string, got shape {montage.shape} and dtype "
+                                             f"{montage.dtype}", "Store it as numpy.array('standard_1020')")
+    return merged_positions(explicit, checked_positions(positions_from_montage(ch_names, str(montage)), len(ch_names)))
 
 
 def _data_array(data: np.ndarray) -> np.ndarray:
