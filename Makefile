@@ -7,7 +7,7 @@ HOST ?= 127.0.0.1
 PORT ?= 8000
 DATA_DIR ?= var
 
-.PHONY: install demo run test bench clean
+.PHONY: install demo run test browser bench clean
 
 $(STAMP): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
@@ -23,7 +23,11 @@ demo: $(STAMP)
 run: $(STAMP)
 	$(BIN)/epoch-assay serve --host $(HOST) --port $(PORT) --data-dir $(DATA_DIR)
 
-test: $(STAMP)
+# The report test renders pages in Debian's headless Chromium; CI runs as root and installs it here.
+browser:
+	command -v chromium >/dev/null || (apt-get update && apt-get install -y chromium)
+
+test: $(STAMP) browser
 	$(BIN)/python -m pytest
 
 bench: $(STAMP)

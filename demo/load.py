@@ -5,7 +5,6 @@ as an NPZ epoch-set file, start one run over all of them with the demo pipelines
 wait for it, and print one line per pipeline.
 """
 
-import json
 import tempfile
 import time
 from collections.abc import Callable
@@ -25,6 +24,7 @@ from demo.scenario import (
     subject_id,
 )
 from demo.simulate import SimulationConfig, write_study_npz
+from epoch_assay.answers import problem_detail, summary_lines
 
 DEMO_PIPELINES: list[dict[str, Any]] = [
     {"name": "raw", "steps": []},
@@ -96,35 +96,6 @@ def load_demo(
             http.close()
 
 
-def summary_lines(results: list[dict[str, Any]]) -> list[str]:
-    """A small table, one row per pipeline in the order they first appear.
-
-    Columns: subjects scored, mean share of significant channels across subjects, and
-    the mean over subjects of the bootstrap median and CI bounds of that share.
-    """
-    by_pipeline: dict[str, list[dict[str, Any]]] = {}
-    for row in results:
-        by_pipeline.setdefault(row["pipeline"], []).append(row)
-    name_width = max([len("pipeline"), *(len(name) for name in by_pipeline)])
-    header = f"{'pipeline':<{name_width}}  subjects  mean signif.  boot. median  boot. CI (mean bounds)"
-    lines = [header, "-" * len(header)]
-    for name, rows in by_pipeline.items():
-        fraction = _mean([row["significant_fraction"] for row in rows])
-        boots = [row["bootstrap"] for row in rows if row.get("bootstrap")]
-        if boots:
-            median = _mean([b["median"] for b in boots])
-            ci = f"[{_mean([b['ci_low'] for b in boots]):.2f}, {_mean([b['ci_high'] for b in boots]):.2f}]"
-            bootstrap_text = f"{median:>12.2f}  {ci}"
-        else:
-            bootstrap_text = f"{'-':>12}  -"
-        lines.append(f"{name:<{name_width}}  {len(rows):>8}  {fraction:>12.2f}  {bootstrap_text}")
-    return lines
-
-
-def _mean(values: list[float]) -> float:
-    return sum(values) / len(values)
-
-
 def _create_study(http: httpx.Client, out: Callable[[str], None]) -> None:
     response = http.post("/v1/studies", json={"code": STUDY_CODE, "title": STUDY_TITLE})
     if response.status_code == 409:
@@ -180,16 +151,5 @@ def _expect(response: httpx.Response, *statuses: int) -> dict[str, Any]:
         return response.json()
     request = response.request
     raise DemoLoadError(
-        f"{request.method} {request.url.path} answered {response.status_code}: {_problem_detail(response)}"
+        f"{request.method} {request.url.path} answered {response.status_code}: {problem_detail(response)}"
     )
-
-
-def _problem_detail(response: httpx.Response) -> str:
-    try:
-        problem = response.json()
-    except ValueError:
-        return response.text or response.reason_phrase
-    if not isinstance(problem, dict):
-        return json.dumps(problem)
-    detail = problem.get("detail", problem.get("title", ""))
-    return detail if isinstance(detail, str) else json.dumps(detail)

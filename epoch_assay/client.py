@@ -1,0 +1,170 @@
+"""``epoch-assay client``: upload, run, status, result and report against a server, with an API key.
+
+The server and key come from ``--url`` / ``--token`` or ``EPOCH_ASSAY_URL`` / ``EPOCH_ASSAY_TOKEN``.
+Tables are for people; ``--json`` prints the server's JSON for scripts. While a run is going
+(``run --wait``, ``status --wait``) a progress bar is drawn on stderr, so stdout stays clean.
+"""
+
+import argparse
+import json
+import os
+import sys
+import time
+from pathlib import Path
+from typing import Any, TextIO
+
+import httpx
+
+from epoch_assay.answers import problem_detail, summary_lines
+
+DEFAULT_URL = "http://127.0.0.1:8000"
+BAR_WIDTH = 30
+FINISHED = ("succeeded", "failed")
+
+
+def add_client_parser(commands: argparse._SubParsersAction) -> None:
+    """Register ``client`` and its subcommands on the ``epoch-assay`` parser."""
+    client = commands.add_parser("client", help="talk to a running server: upload, run, status, result, report")
+    actions = client.add_subparsers(dest="client_command", required=True)
+
+    upload = actions.add_parser("upload", help="upload an NPZ epoch-set file to a study")
+    upload.add_argument("file", type=Path)
+    upload.add_argument("--study", required=True, help="study code")
+    upload.add_argument("--subject", required=True, help="subject id, e.g. sub-01")
+    upload.add_argument("--session", help="session label, e.g. ses-01")
+    upload.set_defaults(handler=cmd_upload)
+
+    run = actions.add_parser("run", help="start a run from a JSON spec file (the body of POST /v1/runs)")
+    run.add_argument("spec", type=Path)
+    run.add_argument("--wait", action="store_true", help="follow the run with a progress bar, then print the result")
+    run.set_defaults(handler=cmd_run)
+
+    status = actions.add_parser("status", help="the state of a run")
+    status.add_argument("run_id")
+    status.add_argument("--wait", action="store_true", help="follow the run with a progress bar until it ends")
+    status.set_defaults(handler=cmd_status)
+
+    result = actions.add_parser("result", help="the result of a succeeded run, as a table per pipeline")
+    result.add_argument("run_id")
+    result.set_defaults(handler=cmd_result)
+
+    report = actions.add_parser("report", help="save the run's HTML report")
+    report.add_argument("run_id")
+    report.add_argument("--output", "-o", type=Path, help="file to write (default <run id>.html)")
+    report.set_defaults(handler=cmd_report)
+
+    for action in (upload, run, status, result, report):
+        action.add_argument("--url", default=os.environ.get("EPOCH_ASSAY_URL", DEFAULT_URL),
+                            help=f"server URL (EPOCH_ASSAY_URL, default {DEFAULT_URL})")
+        action.add_argument("--token", default=os.environ.get("EPOCH_ASSAY_TOKEN"),
+                            help="API key (EPOCH_ASSAY_TOKEN)")
+        action.add_argument("--json", action="store_true", help="print the server's JSON instead of a table")
+        action.add_argument("--poll-seconds", type=float, default=1.0, help=argparse.SUPPRESS)
+
+
+def _http(args: argparse.Namespace) -> httpx.Client:
+    headers = {"Authorization": f"Bearer {args.token}"} if args.token else {}
+    return httpx.Client(base_url=args.url.rstrip("/"), headers=headers, timeout=120.0)
+
+
+def _call(args: argparse.Namespace, method: str, path: str, *statuses: int, **request: Any) -> httpx.Response:
+    """The answer to one request, or SystemExit with the server's problem detail."""
+    try:
+        with _http(args) as http:
+            answer = http.request(method, path, **request)
+    except httpx.HTTPError as error:
+        raise SystemExit(f"epoch-assay client: cannot reach {args.url}: {error}") from None
+    if answer.status_code not in statuses:
+        raise SystemExit(f"epoch-assay client: {method} {path} answered {answer.status_code}: "
+                         f"{problem_detail(answer)}")
+    return answer
+
+
+def _print_json(value: Any) -> None:
+    print(json.dumps(value, indent=2))
+
+
+def cmd_upload(args: argparse.Namespace) -> int:
+    data = {"subject": args.subject} | ({"session": args.session} if args.session else {})
+    with args.file.open("rb") as handle:
+        answer = _call(args, "POST", f"/v1/studies/{args.study}/epoch-sets", 200, 201, data=data,
+                       files={"file": (args.file.name, handle, "application/octet-stream")})
+    stored = answer.json()
+    if args.json:
+        _print_json(stored)
+    else:
+        state = "uploaded" if answer.status_code == 201 else "already stored"
+        counts = ", ".join(f"{label} {count}" for label, count in stored["conditions"].items())
+        print(f"{stored['id']}  {state}  subject {stored['subject']}  trials: {counts}  channels {stored['n_channels']}")
+    return 0
+
+
+def cmd_run(args: argparse.Namespace) -> int:
+    try:
+        body = json.loads(args.spec.read_text())
+    except (OSError, ValueError) as error:
+        raise SystemExit(f"epoch-assay client: cannot read the spec {args.spec}: {error}") from None
+    run_id = _call(args, "POST", "/v1/runs", 202, json=body).json()["id"]
+    if not args.wait:
+        _print_json({"id": run_id, "status": "queued"}) if args.json else print(run_id)
+        return 0
+    print(f"run {run_id} queued", file=sys.stderr)
+    state = follow(args, run_id)
+    if state["status"] != "succeeded":
+        raise SystemExit(f"epoch-assay client: run {run_id} failed: {state.get('error')}")
+    return _show_result(args, run_id)
+
+
+def cmd_status(args: argparse.Namespace) -> int:
+    state = follow(args, args.run_id) if args.wait else _call(args, "GET", f"/v1/runs/{args.run_id}", 200).json()
+    if args.json:
+        _print_json(state)
+    else:
+        print(f"{state['id']}  {state['status']}  {state['progress']:.0%}"
+              + (f"  error: {state['error']}" if state.get("error") else ""))
+    return 0 if state["status"] != "failed" else 1
+
+
+def cmd_result(args: argparse.Namespace) -> int:
+    return _show_result(args, args.run_id)
+
+
+def cmd_report(args: argparse.Namespace) -> int:
+    answer = _call(args, "GET", f"/v1/runs/{args.run_id}/report", 200)
+    output = args.output or Path(f"{args.run_id}.html")
+    output.write_text(answer.text, encoding="utf-8")
+    _print_json({"run": args.run_id, "report": str(output)}) if args.json else print(output)
+    return 0
+
+
+def _show_result(args: argparse.Namespace, run_id: str) -> int:
+    document = _call(args, "GET", f"/v1/runs/{run_id}/result", 200).json()
+    if args.json:
+        _print_json(document)
+        return 0
+    scored = [entry for entry in document["results"] if entry.get("error") is None]
+    for line in summary_lines(scored):
+        print(line)
+    for entry in document["results"]:
+        if entry.get("error"):
+            print(f"not scored: {entry['pipeline']} on {entry['subject']}: {entry['error']}")
+    return 0
+
+
+def follow(args: argparse.Namespace, run_id: str, stream: TextIO | None = None) -> dict[str, Any]:
+    """Poll the run until it has succeeded or failed, drawing a progress bar on stderr; its last state."""
+    stream = stream or sys.stderr
+    while True:
+        state = _call(args, "GET", f"/v1/runs/{run_id}", 200).json()
+        stream.write("\r" + progress_bar(state["progress"], state["status"]))
+        stream.flush()
+        if state["status"] in FINISHED:
+            stream.write("\n")
+            return state
+        time.sleep(args.poll_seconds)
+
+
+def progress_bar(progress: float, status: str) -> str:
+    """``[#########.....................]  30%  running`` for ``progress`` in [0, 1]."""
+    filled = int(round(max(0.0, min(1.0, progress)) * BAR_WIDTH))
+    return f"[{'#' * filled}{'.' * (BAR_WIDTH - filled)}] {progress:4.0%}  {status:<9}"

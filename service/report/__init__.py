@@ -1,0 +1,1 @@
+"""Figures and HTML pages made from result documents and study records."""

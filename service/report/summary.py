@@ -1,0 +1,246 @@
+"""What the report shows, read from a result document: small named records, no plotting.
+
+Every figure is drawn from these records, so a figure can be checked against numbers that
+were put into it. Optional fields (the top-level ``ranking``, and per entry ``channels_kept``,
+``median_sme_uv``, ``time_course``) are used when the document has them; a document without
+them still gives a ranking (from the per-entry scores), the scalp maps and the kept-trials figure.
+"""
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Any, NamedTuple
+
+import numpy as np
+from scipy import stats
+
+
+class RankingRow(NamedTuple):
+    """One pipeline on the ranking plot: an estimate of the significant fraction and its interval."""
+
+    name: str
+    estimate: float
+    ci_low: float
+    ci_high: float
+    is_reference: bool
+
+
+@dataclass(frozen=True)
+class Ranking:
+    """Pipelines best first, and a description of what their point and interval are."""
+
+    rows: list[RankingRow]
+    description: str
+
+
+@dataclass(frozen=True)
+class ChannelMap:
+    """Per-channel t of one pipeline, averaged over the epoch sets that scored it.
+
+    t : array, shape (n_channels,), dimensionless (Welch t, first minus second condition)
+    significant : array of bool, shape (n_channels,): significant in at least half of the epoch sets
+    """
+
+    pipeline: str
+    ch_names: tuple[str, ...]
+    t: np.ndarray
+    significant: np.ndarray
+    n_epoch_sets: int
+
+
+@dataclass(frozen=True)
+class KeptCounts:
+    """Mean trials kept per condition and mean EEG channels scored, over the epoch sets of a pipeline."""
+
+    pipeline: str
+    trials: dict[str, float]
+    channels: float
+
+
+@dataclass(frozen=True)
+class TimeCourse:
+    """The significant fraction over time of one pipeline, averaged over its epoch sets.
+
+    times_s : array, shape (n_times,), in s
+    fraction : array, shape (n_times,), share of channels in [0, 1]
+    """
+
+    pipeline: str
+    times_s: np.ndarray
+    fraction: np.ndarray
+
+
+@dataclass(frozen=True)
+class SmeSummary:
+    """Median over channels of the standardised measurement error, mean over epoch sets, in µV, per condition."""
+
+    pipeline: str
+    median_uv: dict[str, float]
+
+
+def pipeline_names(document: dict[str, Any]) -> list[str]:
+    """Pipeline names in the order of the run spec."""
+    return list(document["provenance"]["pipeline_hashes"])
+
+
+def reference_pipeline(document: dict[str, Any]) -> str:
+    """The pipeline others are compared with: ``scoring.reference_pipeline``, else the run's first pipeline."""
+    return document["scoring"].get("reference_pipeline") or pipeline_names(document)[0]
+
+
+def scored_entries(document: dict[str, Any], pipeline: str) -> list[dict[str, Any]]:
+    """The entries of ``pipeline`` that were scored (entries with an ``error`` are left out)."""
+    return [entry for entry in document["results"] if entry["pipeline"] == pipeline and entry.get("error") is None]
+
+
+def ranking(document: dict[str, Any]) -> Ranking:
+    """The document's own ``ranking`` when it has one; else pipelines ordered by their estimate, best first:
+    from the ``group`` summary when there is one, else from the entries themselves."""
+    if document.get("ranking"):
+        return _ranking_of_document(document["ranking"])
+    reference = reference_pipeline(document)
+    if document.get("group"):
+        return _ranking_of_group(document["group"], reference)
+    rows, labels = [], set()
+    for name in pipeline_names(document):
+        found = _row_from_entries(name, scored_entries(document, name), name == reference)
+        if found is not None:
+            rows.append(found[0])
+            labels.add(found[1])
+    rows.sort(key=lambda row: -row.estimate)
+    description = labels.pop() if len(labels) == 1 else "intervals of mixed kinds (see the result document)"
+    return Ranking(rows=rows, description=description)
+
+
+def _ranking_of_document(entries: list[dict[str, Any]]) -> Ranking:
+    """Rows from ranking entries (``worker.engine.ranking.RankedPipeline.to_json``), in their rank order."""
+    rows = []
+    for entry in sorted(entries, key=lambda item: item["rank"]):
+        if entry.get("mean") is None:
+            continue
+        mean = float(entry["mean"])
+        low = mean if entry.get("ci_low") is None else float(entry["ci_low"])
+        high = mean if entry.get("ci_high") is None else float(entry["ci_high"])
+        rows.append(RankingRow(entry["pipeline"], mean, low, high, entry.get("vs_reference") is None))
+    return Ranking(rows=rows, description="mean over subjects, 95 % t interval")
+
+
+def _ranking_of_group(groups: list[dict[str, Any]], reference: str) -> Ranking:
+    """Rows from the per-pipeline group summaries: mean over subjects with a t interval from its SE."""
+    rows = []
+    for group in groups:
+        fraction = group.get("significant_fraction")
+        if not fraction or fraction.get("mean") is None:
+            continue
+        mean, n = float(fraction["mean"]), int(group["n_subjects"])
+        half = 0.0 if fraction.get("se") is None or n < 2 else float(stats.t.ppf(0.975, n - 1) * fraction["se"])
+        rows.append(RankingRow(group["pipeline"], mean, mean - half, mean + half, group["pipeline"] == reference))
+    rows.sort(key=lambda row: -row.estimate)
+    return Ranking(rows=rows, description="mean over subjects, 95 % t interval")
+
+
+def _row_from_entries(name: str, entries: list[dict[str, Any]], is_reference: bool) -> tuple[RankingRow, str] | None:
+    """One epoch set: its bootstrap median and interval. Several: the mean and a t interval over epoch sets."""
+    fractions = np.array([entry["significant_fraction"] for entry in entries
+                          if entry.get("significant_fraction") is not None], dtype=float)
+    if fractions.size == 0:
+        return None
+    if fractions.size == 1:
+        boot = entries[0].get("bootstrap")
+        if boot and None not in (boot.get("median"), boot.get("ci_low"), boot.get("ci_high")):
+            return RankingRow(name, boot["median"], boot["ci_low"], boot["ci_high"], is_reference), \
+                "bootstrap median over trial resamples, 2.5–97.5 percentiles"
+        return RankingRow(name, float(fractions[0]), float(fractions[0]), float(fractions[0]), is_reference), \
+            "one epoch set, no bootstrap: no interval"
+    mean = float(fractions.mean())
+    half = float(stats.t.ppf(0.975, fractions.size - 1) * fractions.std(ddof=1) / math.sqrt(fractions.size))
+    return RankingRow(name, mean, mean - half, mean + half, is_reference), "mean over epoch sets, 95 % t interval"
+
+
+def channel_map(document: dict[str, Any], pipeline: str) -> ChannelMap | None:
+    """Mean t per channel over the epoch sets of ``pipeline``; None when none was scored.
+
+    A channel missing from some epoch sets (dropped by a step, say) is averaged over the others.
+    """
+    entries = [entry for entry in scored_entries(document, pipeline) if entry.get("channels")]
+    if not entries:
+        return None
+    names: list[str] = []
+    for entry in entries:
+        names.extend(channel["name"] for channel in entry["channels"] if channel["name"] not in names)
+    index = {name: i for i, name in enumerate(names)}
+    t_sum, t_count, significant_count = (np.zeros(len(names)) for _ in range(3))
+    for entry in entries:
+        for channel in entry["channels"]:
+            i = index[channel["name"]]
+            if channel["t"] is not None:
+                t_sum[i] += channel["t"]
+                t_count[i] += 1
+            significant_count[i] += bool(channel["significant"])
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean_t = np.where(t_count > 0, t_sum / np.maximum(t_count, 1), np.nan)
+    return ChannelMap(pipeline=pipeline, ch_names=tuple(names), t=mean_t,
+                      significant=significant_count >= len(entries) / 2, n_epoch_sets=len(entries))
+
+
+def kept_counts(document: dict[str, Any]) -> list[KeptCounts]:
+    """Per pipeline in spec order: mean trials per condition and mean channels scored."""
+    conditions = list(document["scoring"]["conditions"])
+    kept = []
+    for name in pipeline_names(document):
+        entries = [entry for entry in scored_entries(document, name) if entry.get("n_trials")]
+        if not entries:
+            continue
+        trials = {label: float(np.mean([entry["n_trials"].get(label, 0) for entry in entries])) for label in conditions}
+        channels = float(np.mean([_channels_kept(entry) for entry in entries]))
+        kept.append(KeptCounts(pipeline=name, trials=trials, channels=channels))
+    return kept
+
+
+def _channels_kept(entry: dict[str, Any]) -> int:
+    kept = entry.get("channels_kept")
+    return int(kept) if kept is not None else len(entry.get("channels") or [])
+
+
+def time_courses(document: dict[str, Any]) -> list[TimeCourse]:
+    """Per pipeline with a time course in its entries: the mean curve over epoch sets on a shared time axis."""
+    courses = []
+    for name in pipeline_names(document):
+        curves = [entry["time_course"] for entry in scored_entries(document, name) if entry.get("time_course")]
+        if not curves:
+            continue
+        times = np.asarray(curves[0]["times_s"], dtype=float)
+        same_axis = [curve for curve in curves if np.array_equal(np.asarray(curve["times_s"], dtype=float), times)]
+        fraction = np.mean([np.asarray(curve["significant_fraction"], dtype=float) for curve in same_axis], axis=0)
+        courses.append(TimeCourse(pipeline=name, times_s=times, fraction=fraction))
+    return courses
+
+
+def sme_summaries(document: dict[str, Any]) -> list[SmeSummary]:
+    """Per pipeline whose entries carry ``median_sme_uv`` ({condition: µV}): the mean over epoch sets."""
+    summaries = []
+    for name in pipeline_names(document):
+        medians = [entry["median_sme_uv"] for entry in scored_entries(document, name)
+                   if isinstance(entry.get("median_sme_uv"), dict)]
+        if not medians:
+            continue
+        labels = list(medians[0])
+        summaries.append(SmeSummary(pipeline=name, median_uv={
+            label: float(np.mean([m[label] for m in medians if m.get(label) is not None])) for label in labels}))
+    return summaries
+
+
+def best_pipelines(rows: Sequence[RankingRow], count: int) -> list[str]:
+    """The reference first, then the ``count`` best others."""
+    reference = [row.name for row in rows if row.is_reference]
+    others = [row.name for row in rows if not row.is_reference][:count]
+    return reference + others
+
+
+@dataclass(frozen=True)
+class Arrival:
+    """An epoch set of a study as it arrived: who, when, and what it held."""
+
+    label: str
+    trials: dict[str, int]
+    channels: int

@@ -1,0 +1,70 @@
+"""Scalp maps of per-channel t values, drawn with MNE's ``plot_topomap`` from 10-20 positions.
+
+Positions come from MNE's standard 10-20 montage by channel name (``worker.engine.montage``);
+channels the montage does not know are left off the map (and named in the caption), since a
+map needs a place for each.
+"""
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import matplotlib
+
+matplotlib.use("Agg")
+
+import mne  # noqa: E402 - the backend is chosen first
+import numpy as np  # noqa: E402
+from matplotlib.figure import Figure  # noqa: E402
+
+from service.report.palette import INK, T_COLOURMAP  # noqa: E402
+from service.report.summary import ChannelMap  # noqa: E402
+from worker.engine.montage import montage_positions  # noqa: E402
+
+MIN_PLACED_CHANNELS = 3
+MAP_SIZE_IN = 3.0
+
+
+@dataclass(frozen=True)
+class PlacedMap:
+    """The part of a channel map that can be drawn: channels with a known position and a finite t."""
+
+    map: ChannelMap
+    info: mne.Info
+    keep: np.ndarray
+    unplaced: tuple[str, ...]
+
+
+def place(channel_map: ChannelMap) -> PlacedMap | None:
+    """Positions for the channels of ``channel_map``; None when fewer than three can be placed."""
+    positions = montage_positions(channel_map.ch_names)
+    keep = np.isfinite(positions).all(axis=1) & np.isfinite(channel_map.t)
+    if keep.sum() < MIN_PLACED_CHANNELS:
+        return None
+    names = [name for name, kept in zip(channel_map.ch_names, keep) if kept]
+    info = mne.create_info(names, sfreq=100.0, ch_types="eeg")
+    info.set_montage(mne.channels.make_dig_montage(ch_pos=dict(zip(names, positions[keep])), coord_frame="head"),
+                     verbose=False)
+    unplaced = tuple(name for name, kept in zip(channel_map.ch_names, keep) if not kept)
+    return PlacedMap(map=channel_map, info=info, keep=keep, unplaced=unplaced)
+
+
+def shared_limit(maps: Sequence[PlacedMap]) -> float:
+    """The largest |t| over the maps, so maps of one run share a symmetric colour scale."""
+    return max((float(np.nanmax(np.abs(placed.map.t[placed.keep]))) for placed in maps), default=0.0) or 1.0
+
+
+def topomap_figure(placed: PlacedMap, reference: str, limit: float) -> Figure:
+    """The scalp map of one pipeline on the scale [-limit, limit]; significant channels as white dots."""
+    figure = Figure(figsize=(MAP_SIZE_IN + 0.9, MAP_SIZE_IN + 0.5), layout="constrained")
+    ax = figure.subplots()
+    image, _ = mne.viz.plot_topomap(
+        placed.map.t[placed.keep], placed.info, axes=ax, show=False, cmap=T_COLOURMAP, vlim=(-limit, limit),
+        mask=placed.map.significant[placed.keep], contours=4, sensors=True,
+        mask_params={"marker": "o", "markerfacecolor": "white", "markeredgecolor": INK, "markersize": 7,
+                     "linewidth": 0},
+    )
+    suffix = " (reference)" if placed.map.pipeline == reference else ""
+    ax.set_title(f"{placed.map.pipeline}{suffix}\nwhite dots: significant", fontsize=10)
+    colourbar = figure.colorbar(image, ax=ax, shrink=0.8, pad=0.02)
+    colourbar.set_label("Welch t (first − second condition)", fontsize=9)
+    return figure
