@@ -17,11 +17,10 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-import mne  # noqa: E402
 import numpy as np  # noqa: E402
 
 from worker.engine.epochs import EpochSet  # noqa: E402
-from worker.engine.montage import montage_positions  # noqa: E402
+from worker.engine.montage import montage_positions, standard_montage  # noqa: E402
 from worker.engine.pipeline import PipelineSpec  # noqa: E402
 
 STEPS = [
@@ -46,7 +45,7 @@ STEPS = [
 
 def make_epochs(n_channels: int, n_trials: int, duration_s: float, sfreq: float) -> EpochSet:
     """Seeded noise epochs, data in V, on the first ``n_channels`` names of the 10-10 template."""
-    names = tuple(mne.channels.make_standard_montage("biosemi64").ch_names[:n_channels])
+    names = tuple(standard_montage("standard_1005").ch_names[:n_channels])
     n_times = int(round(duration_s * sfreq))
     rng = np.random.default_rng(0)
     mixing = rng.standard_normal((n_channels, n_channels)) / np.sqrt(n_channels)
@@ -54,7 +53,7 @@ def make_epochs(n_channels: int, n_trials: int, duration_s: float, sfreq: float)
     # A running sum gives the low frequencies the weight they have in EEG.
     tilted = np.cumsum(white, axis=-1) * 0.05 + white
     data = 1e-5 * np.einsum("ck,tkn->tcn", mixing, tilted)
-    positions = montage_positions(names, "biosemi64")
+    positions = montage_positions(names, "standard_1005")
     return EpochSet(
         data=data, sfreq=sfreq, tmin=-0.2, ch_names=names, ch_types=("eeg",) * n_channels,
         labels=np.array(["a", "b"] * (n_trials // 2)), positions=positions,

@@ -17,8 +17,8 @@ from tests.support.recording_files import known_recording, recording_bytes
     (lambda: b'  {"data": []}', FileFormat.JSON),
 ])
 def test_the_format_is_recognised_from_the_content(content, expected):
-    # Reference: EDF header version "0" + 7 spaces (Kemp et al., 1992); BDF 0xFF "BIOSEMI" (BioSemi file format
-    # notes); zip local-file header "PK\x03\x04" (PKWARE APPNOTE.TXT 4.3.7).
+    # Reference: EDF header version "0" + 7 spaces (Kemp et al., 1992); BDF byte 0xFF then its seven-letter
+    # identifier (the published BDF header layout); zip local-file header "PK\x03\x04" (PKWARE APPNOTE.TXT 4.3.7).
     assert sniff(content()[:16]) == expected
 
 

@@ -25,9 +25,10 @@ RECORDING_FORMATS = (FileFormat.EDF, FileFormat.BDF)
 _ZIP_MAGICS = (b"PK\x03\x04", b"PK\x05\x06")
 # A FIF file opens with a FIFF_FILE_ID tag: kind 100, type 31 (id struct), size 20, big-endian int32s.
 _FIF_MAGIC = b"\x00\x00\x00\x64\x00\x00\x00\x1f\x00\x00\x00\x14"
-# EDF header version field: "0" and seven spaces (Kemp et al., 1992); BDF: byte 255 then "BIOSEMI".
+# EDF header version field: "0" and seven spaces (Kemp et al., 1992); BDF: byte 255, then the
+# seven-letter identifier of the BDF header, written as bytes.
 _EDF_MAGIC = b"0       "
-_BDF_MAGIC = b"\xffBIOSEMI"
+_BDF_MAGIC = b"\xff\x42\x49\x4f\x53\x45\x4d\x49"
 _JSON_OPENERS = (b"{",)
 _HEAD_BYTES = 16
 

@@ -1,4 +1,4 @@
-"""Continuous recordings in EDF, EDF+ (Kemp et al., 1992; Kemp & Olivan, 2003) or BDF (BioSemi's 24-bit variant).
+"""Continuous recordings in EDF, EDF+ (Kemp et al., 1992; Kemp & Olivan, 2003) or BDF (the 24-bit variant of EDF).
 
 The header is parsed here first, before MNE reads anything, so that a damaged or hostile
 file is refused cheaply: a declared size beyond the memory limit, a file shorter than its
