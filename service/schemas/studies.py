@@ -15,6 +15,9 @@ class StudyCreate(BaseModel):
 
 
 class StudyOut(BaseModel):
+    model_config = ConfigDict(json_schema_extra={"examples": [
+        {"code": "READ-01", "title": "Sentence endings", "created_at": "2026-12-01T10:00:00Z"}]})
+
     code: str
     title: str
     created_at: datetime
