@@ -31,6 +31,14 @@ def test_blink_component_removed_so_frontal_channels_match_clean_signal(blinking
     assert _frontal_correlations(cleaned.data, clean).min() > 0.9
 
 
+def test_fastica_also_removes_the_blink(blinking) -> None:
+    # FastICA (Hyvärinen, 1999) as implemented by scikit-learn, called through MNE's ICA.
+    epochs, clean = blinking
+    cleaned, record = Ica(method="fastica", n_components=20, seed=1).apply(epochs)
+    assert any(component.kind == "ocular" for component in record.components_removed)
+    assert _frontal_correlations(cleaned.data, clean).min() > 0.9
+
+
 def test_frontal_channels_stand_in_for_missing_eog(blinking) -> None:
     epochs, clean = blinking
     keep = [i for i, name in enumerate(epochs.ch_names) if name != EOG_CHANNEL]
