@@ -4,7 +4,17 @@ from fastapi import FastAPI
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from epoch_assay import __version__
-from service.api import epoch_set_json, epoch_sets, health, recordings, reports, runs, studies, webhooks
+from service.api import (
+    epoch_set_json,
+    epoch_sets,
+    health,
+    locked_pipelines,
+    recordings,
+    reports,
+    runs,
+    studies,
+    webhooks,
+)
 from service.api.responses import install_problem_openapi
 from service.errors import PayloadTooLarge, install_problem_handlers, problem
 from service.metrics import ServiceMetrics
@@ -81,7 +91,7 @@ def create_app(settings: Settings) -> FastAPI:
     app.state.metrics = ServiceMetrics(settings.worker_stale_seconds)
     install_problem_handlers(app)
     # epoch_set_json before epoch_sets: it takes the JSON bodies of the same path; multipart falls through.
-    for module in (health, studies, epoch_set_json, epoch_sets, recordings, runs, webhooks, reports):
+    for module in (health, studies, locked_pipelines, epoch_set_json, epoch_sets, recordings, runs, webhooks, reports):
         app.include_router(module.router)
     install_problem_openapi(app)
     app.add_middleware(BodySizeLimit, max_upload_bytes=settings.max_upload_bytes,

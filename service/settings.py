@@ -45,6 +45,19 @@ class Settings(BaseSettings):
     worker_stale_seconds: float = Field(
         60.0, gt=0.0, description="/readyz wants a worker heard from within this many seconds."
     )
+    max_pipelines: int = Field(
+        512, ge=1, le=100_000, description="Most pipelines a run may have, listed or expanded from a grid."
+    )
+    cache_dir: Path | None = Field(None, description="Folder of the step cache; default data_dir/step-cache.")
+    cache_max_bytes: int = Field(
+        8192 * MIB, ge=0, description="Largest total size of the step cache, in bytes; 0 turns the cache off."
+    )
+    cache_min_step_seconds: float = Field(
+        0.2, ge=0.0, description="Outputs of steps faster than this are recomputed rather than cached, in s."
+    )
+    parallel_workers: int | None = Field(
+        None, ge=1, le=256, description="Worker processes that share a run's units; default: all cores."
+    )
 
     @model_validator(mode="after")
     def _heartbeat_within_lease(self) -> "Settings":
@@ -64,3 +77,10 @@ class Settings(BaseSettings):
     @property
     def blob_dir(self) -> Path:
         return self.data_dir / "blobs"
+
+    @property
+    def step_cache_dir(self) -> Path | None:
+        """The step cache folder, None when the cache is off."""
+        if self.cache_max_bytes == 0:
+            return None
+        return self.cache_dir if self.cache_dir is not None else self.data_dir / "step-cache"

@@ -1,9 +1,14 @@
 """One run from spec to result document: load each epoch set, apply each pipeline, score.
 
+The pipelines (listed, or expanded from a grid) run as a prefix tree per epoch set, in worker
+processes and with a step cache when the runner asks for them (``worker.multiverse``); the
+document then also ranks the pipelines, gives a grid's factor effects and the selection.
+
 Nothing here knows of HTTP or the database: epoch sets come from a loader the runner hands in,
 and progress goes out through a callback.
 """
 
+import functools
 import hashlib
 import json
 import platform
@@ -12,15 +17,32 @@ from dataclasses import dataclass
 from importlib.metadata import version
 from typing import Any
 
+from pydantic import TypeAdapter
+
 from worker.engine import ENGINE_VERSION
 from worker.engine.epochs import EpochSet
 from worker.engine.errors import SpecError
+from worker.engine.grid import GridSpec, expand_grid
+from worker.engine.multiverse_report import (
+    DEFAULT_METRIC,
+    factor_effects_document,
+    ranking_document,
+    selection_document,
+)
 from worker.engine.pipeline import PipelineSpec, apply_pipeline
-from worker.engine.scoring import score_epochs
+from worker.engine.recording import ContinuousInput, apply_two_stage
+from worker.engine.group import group_summary
+from worker.engine.scoring import eeg_channel_names, score_epochs
 from worker.engine.scoring_spec import ScoringSpec
+from worker.engine.selection import SelectionSpec
+from worker.engine.provenance import StepRecord
+from worker.engine.tree import LeafOutput
+from worker.multiverse import ExecutionSettings, SourceHandlers, execute_multiverse
+from worker.parallel import Progress
 
 RESULT_SCHEMA_VERSION = 1
 REPORTED_PACKAGES = ("epoch-assay", "numpy", "scipy", "mne", "pydantic")
+_SELECTION = TypeAdapter(SelectionSpec)
 
 
 @dataclass(frozen=True)
@@ -44,21 +66,37 @@ def software_versions() -> dict[str, str]:
     return versions
 
 
-def score_unit(pipeline: PipelineSpec, epochs: EpochSet, scoring: ScoringSpec, ref: EpochSetRef) -> dict[str, Any]:
+def score_unit(pipeline: PipelineSpec, epochs: EpochSet | ContinuousInput, scoring: ScoringSpec,
+               ref: EpochSetRef) -> dict[str, Any]:
     """Apply one pipeline to one epoch set and score it; an entry of the result's ``results``.
+
+    A recording (``ContinuousInput``) is processed in two stages: continuous-stage steps before
+    epoching, the others after (see ``worker.engine.recording``).
 
     A spec that turns out impossible only now (a pipeline left too few trials, say) is
     reported in the entry's ``error`` rather than failing the whole run.
     """
+    processed, records = (apply_two_stage(pipeline, epochs) if isinstance(epochs, ContinuousInput)
+                          else apply_pipeline(pipeline, epochs))
+    uploaded = eeg_channel_names(epochs.recording if isinstance(epochs, ContinuousInput) else epochs)
+    return _scored_entry(pipeline, processed, records, uploaded, scoring, ref)
+
+
+def score_leaf(leaf: LeafOutput, source: EpochSet, scoring: ScoringSpec, ref: EpochSetRef) -> dict[str, Any]:
+    """The entry of a pipeline whose output was reached in a prefix tree built on ``source``."""
+    return _scored_entry(leaf.pipeline, leaf.epochs, list(leaf.records), eeg_channel_names(source), scoring, ref)
+
+
+def _scored_entry(pipeline: PipelineSpec, processed: EpochSet, records: list[StepRecord], uploaded: tuple[str, ...],
+                  scoring: ScoringSpec, ref: EpochSetRef) -> dict[str, Any]:
     entry: dict[str, Any] = {
         "pipeline": pipeline.name, "pipeline_hash": pipeline.spec_hash(), "epoch_set": ref.id,
         "subject": ref.subject, "session": ref.session,
     }
-    processed, records = apply_pipeline(pipeline, epochs)
     provenance = [record.to_json() for record in records]
     warnings = [warning for record in records for warning in record.warnings]
     try:
-        entry.update(score_epochs(processed, scoring).to_json())
+        entry.update(score_epochs(processed, scoring, uploaded_eeg_channels=uploaded).to_json())
     except SpecError as error:
         entry["error"] = f"{'.'.join(str(part) for part in error.loc)}: {error.message}"
     entry.update(provenance=provenance, warnings=warnings)
@@ -70,19 +108,40 @@ def execute_run(
     study_code: str,
     spec: dict[str, Any],
     epoch_sets: list[EpochSetRef],
-    load: Callable[[EpochSetRef], EpochSet],
+    load: Callable[[EpochSetRef], EpochSet | ContinuousInput],
     on_progress: Callable[[float], None],
+    *,
+    execution: ExecutionSettings | None = None,
+    on_detail: Callable[[Progress], None] | None = None,
 ) -> dict[str, Any]:
-    """Score every pipeline of ``spec`` on every epoch set; return the result document."""
-    pipelines = [PipelineSpec.model_validate(item) for item in spec["pipelines"]]
+    """Score every pipeline of ``spec`` on every epoch set; return the result document.
+
+    ``execution`` sets the worker processes and the step cache (default: this process, no
+    cache). After each unit (an epoch set × a branch of the tree) ``on_detail`` gets the units
+    done, their total and an ETA, then ``on_progress`` the share done; either may raise to stop.
+    """
+    grid = GridSpec.model_validate(spec["grid"]) if spec.get("grid") else None
+    points = expand_grid(grid, max_pipelines=grid.size()) if grid is not None else []
+    pipelines = [point.pipeline for point in points] or [PipelineSpec.model_validate(p) for p in spec["pipelines"]]
     scoring = ScoringSpec.model_validate(spec["scoring"])
-    total = len(epoch_sets) * len(pipelines)
-    results = []
-    for ref in epoch_sets:
-        epochs = load(ref)
-        for pipeline in pipelines:
-            results.append(score_unit(pipeline, epochs, scoring, ref))
-            on_progress(len(results) / total)
+    selection = _SELECTION.validate_python(spec["selection"]) if spec.get("selection") else None
+    handlers = SourceHandlers(
+        load=load,
+        source_sha256=lambda ref: ref.sha256,
+        score_leaf=lambda ref: functools.partial(score_leaf, scoring=scoring, ref=ref),
+        score_alone=lambda ref: functools.partial(score_unit, scoring=scoring, ref=ref),
+    )
+
+    def report(progress: Progress) -> None:
+        if on_detail is not None:
+            on_detail(progress)
+        on_progress(progress.fraction)
+
+    outcome = execute_multiverse(pipelines, epoch_sets, handlers, execution or ExecutionSettings(workers=1), report)
+    results = outcome.results
+    names = [pipeline.name for pipeline in pipelines]
+    reference = scoring.reference_pipeline or names[0]
+    group = group_summary(results, names, scoring)
     return {
         "schema_version": RESULT_SCHEMA_VERSION,
         "run": run_id,
@@ -96,4 +155,10 @@ def execute_run(
             "seeds": {"bootstrap": scoring.bootstrap.seed if scoring.bootstrap else None},
         },
         "results": results,
+        "group": group,
+        "cache": outcome.cache.to_json(),
+        "ranking": ranking_document(results, names, reference, selection.metric if selection else DEFAULT_METRIC,
+                                    group),
+        "factor_effects": factor_effects_document(results, grid, points) if grid is not None else None,
+        "selection": selection_document(results, names, reference, selection) if selection is not None else None,
     }

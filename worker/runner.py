@@ -1,8 +1,8 @@
 """The worker process: claim a job, run it with heartbeats, store the outcome. Nothing scientific.
 
-SIGTERM (or SIGINT) hands the current job back at the next unit boundary (one pipeline on one
-epoch set) and stops: the job goes back to the queue without counting the attempt, so a
-deploy does not wait for a long run and loses nothing but the unit in progress. A job whose
+SIGTERM (or SIGINT) hands the current job back at the next unit boundary (one epoch set × the
+pipelines sharing a first step) and stops: the job goes back to the queue without counting the
+attempt, so a deploy does not wait for a long run and loses nothing but the units in progress. A job whose
 attempt raises is retried with backoff up to ``max_attempts``, except when retrying cannot
 help (the stored file is gone or malformed, the spec cannot run). Each worker also sends the
 webhook events in a thread (``service.delivery``).
@@ -32,6 +32,8 @@ from worker.engine.epochs import EpochSet as EngineEpochSet
 from worker.engine.errors import EpochSetFormatError, EpochSetTooLargeError, SpecError
 from worker.engine.io import read_epoch_set_file
 from worker.engine.recording import ChannelSpec, ContinuousInput, EpochingSpec, load_recording
+from worker.multiverse import ExecutionSettings
+from worker.parallel import Progress
 from worker.run_job import EpochSetRef, execute_run
 
 log = logging.getLogger("epoch_assay.worker")
@@ -57,6 +59,7 @@ class Heartbeat:
         self._stop = threading.Event()
         self._thread = threading.Thread(target=self._beat, name=f"heartbeat-{job.id}", daemon=True)
         self.progress = 0.0
+        self.detail: dict[str, float | int | None] | None = None
         self.lost = False
 
     def __enter__(self) -> "Heartbeat":
@@ -75,12 +78,18 @@ class Heartbeat:
         if self._stopping.is_set() and progress < 1.0:
             raise HandBack(self._job.id)
 
+    def note_detail(self, progress: Progress) -> None:
+        """Record the units done, their total and the ETA, sent with the next heartbeat."""
+        self.detail = {"units_done": progress.done, "units_total": progress.total,
+                       "elapsed_s": round(progress.elapsed_s, 3),
+                       "eta_s": None if progress.eta_s is None else round(progress.eta_s, 3)}
+
     def _beat(self) -> None:
         while not self._stop.wait(self._settings.heartbeat_seconds):
             try:
                 with self._database.session() as session:
                     held = queue.heartbeat(session, self._job, self._worker_id, self._settings.lease_seconds,
-                                           self.progress)
+                                           self.progress, self.detail)
                     queue.record_worker_seen(session, self._worker_id)
             except Exception:  # noqa: BLE001 - a missed beat is retried; the lease outlasts a few of them
                 log.exception("heartbeat failed; trying again", extra={"job": self._job.id})
@@ -188,7 +197,12 @@ class Worker:
             ).scalars().all()
             refs = [EpochSetRef(id=r.id, subject=r.subject, session=r.session, sha256=r.sha256) for r in rows]
             spec = run.spec
-        return execute_run(job.run_id, study_code, spec, refs, self._load, beat.report)
+        execution = ExecutionSettings(
+            workers=self.settings.parallel_workers, cache_dir=self.settings.step_cache_dir,
+            cache_max_bytes=self.settings.cache_max_bytes, cache_min_step_seconds=self.settings.cache_min_step_seconds,
+        )  # fmt: skip
+        return execute_run(job.run_id, study_code, spec, refs, self._load, beat.report, execution=execution,
+                           on_detail=beat.note_detail)
 
     def _load(self, ref: EpochSetRef) -> EngineEpochSet | ContinuousInput:
         """The epoch set, or for a recording its file, events and epoching (epoched per pipeline by run_job)."""

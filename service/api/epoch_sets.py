@@ -10,6 +10,7 @@ from sqlalchemy.orm import Session
 from service.api.access import CallerDep
 from service.api.deps import BlobsDep, SessionDep, SettingsDep
 from service.api.idempotency import IdempotencyDep, canonical_fingerprint
+from service.api.locked_pipelines import score_on_arrival
 from service.api.lookups import study_by_code
 from service.api.responses import errors
 from service.errors import Conflict, NotFound, format_error_to_unprocessable, too_large_to_payload_error
@@ -96,6 +97,7 @@ def upload_epoch_set(
             session.rollback()
             existing = _stored_bytes(session, study, staged.sha256)
             return idempotency.remember(status.HTTP_200_OK, epoch_set_out(existing, study.code))
+        score_on_arrival(session, study, row, settings.max_attempts)
         answer = idempotency.remember(status.HTTP_201_CREATED, epoch_set_out(row, study.code),
                                       location=f"/v1/studies/{study.code}/epoch-sets/{row.id}")
         session.commit()

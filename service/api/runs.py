@@ -7,6 +7,7 @@ from typing import Annotated, Literal
 from fastapi import APIRouter, Header, Query, Response, status
 from sqlalchemy import and_, delete, or_, select
 from sqlalchemy.exc import IntegrityError
+from sqlalchemy.orm import Session
 
 from service.api.access import CallerDep
 from service.api.deps import SessionDep, SettingsDep
@@ -23,6 +24,7 @@ from service.storage.ids import new_id
 from service.storage.models import EpochSet, Run, RunEpochSet, RunPipeline, RunResult, Study
 from worker.engine.epochs import EpochSetMeta
 from worker.engine.errors import SpecError
+from worker.engine.pipeline import PipelineSpec
 
 router = APIRouter(prefix="/v1/runs", tags=["runs"])
 
@@ -31,8 +33,9 @@ def run_out(run: Run, study_code: str) -> RunOut:
     return RunOut(
         id=run.id, study=study_code, status=run.status, progress=run.progress, error=run.error,
         created_at=run.created_at, started_at=run.started_at, finished_at=run.finished_at,
-        pipelines=[pipeline["name"] for pipeline in run.spec.get("pipelines", [])],
+        pipelines=[pipeline["name"] for pipeline in run.spec.get("pipelines") or []],
         epoch_sets=list(run.spec.get("epoch_sets", [])),
+        progress_detail=run.progress_detail if run.status == queue.RUNNING else None,
     )
 
 
@@ -56,15 +59,20 @@ def _epoch_sets_of_run(session: SessionDep, study: Study, ids: list[str]) -> lis
     return [rows[epoch_set_id] for epoch_set_id in ids]
 
 
-def check_run_spec(body: RunCreate, epoch_sets: list[EpochSet]) -> None:
-    """Refuse, before anything is queued, a pipeline or scoring that cannot run on an epoch set."""
+def check_run_spec(body: RunCreate, pipelines: list[PipelineSpec], epoch_sets: list[EpochSet]) -> None:
+    """Refuse, before anything is queued, a pipeline or scoring that cannot run on an epoch set.
+
+    ``pipelines`` are the run's, listed or expanded from its grid; a grid pipeline's error is
+    located by its name under ``grid``.
+    """
     for row in epoch_sets:
         meta = epoch_set_meta(row)
-        for index, pipeline in enumerate(body.pipelines):
+        for index, pipeline in enumerate(pipelines):
             try:
                 processed = pipeline.check(meta)
             except SpecError as error:
-                raise _located(error, row, "pipelines", index) from None
+                where = ("pipelines", index) if body.grid is None else ("grid", pipeline.name)
+                raise _located(error, row, *where) from None
             try:
                 body.scoring.check(processed)
             except SpecError as error:
@@ -91,13 +99,14 @@ def create_run(body: RunCreate, session: SessionDep, settings: SettingsDep, call
     if (replayed := idempotency.replay(canonical_fingerprint(body.model_dump(mode="json")))) is not None:
         return replayed
     epoch_sets = _epoch_sets_of_run(session, study, body.epoch_sets)
-    check_run_spec(body, epoch_sets)
-    run = Run(id=new_id("run"), study_id=study.id, spec=body.model_dump(mode="json"), status=queue.QUEUED)
-    session.add(run)
-    session.flush()
-    session.add_all(RunEpochSet(run_id=run.id, epoch_set_id=row.id, position=i) for i, row in enumerate(epoch_sets))
-    session.add_all(RunPipeline(run_id=run.id, position=i, name=p.name) for i, p in enumerate(body.pipelines))
-    queue.enqueue(session, run.id, max_attempts=settings.max_attempts)
+    try:
+        pipelines = body.resolved_pipelines(settings.max_pipelines)
+    except SpecError as error:
+        raise spec_error_to_unprocessable(error) from None
+    check_run_spec(body, pipelines, epoch_sets)
+    # A grid run also stores its expanded pipelines, so that readers of the spec see every name.
+    spec = body.model_dump(mode="json") | {"pipelines": [pipeline.model_dump(mode="json") for pipeline in pipelines]}
+    run = queue_run(session, study, spec, pipelines, epoch_sets, settings.max_attempts)
     try:
         session.flush()
     except IntegrityError:
@@ -107,6 +116,18 @@ def create_run(body: RunCreate, session: SessionDep, settings: SettingsDep, call
                             f"list the remaining ones with GET /v1/studies/{body.study}/epoch-sets") from None
     return idempotency.remember(status.HTTP_202_ACCEPTED, RunAccepted(id=run.id, status=queue.QUEUED),
                                 location=f"/v1/runs/{run.id}")
+
+
+def queue_run(session: Session, study: Study, spec: dict, pipelines: list[PipelineSpec], epoch_sets: list[EpochSet],
+              max_attempts: int) -> Run:
+    """Store a checked run with its epoch sets and pipeline names, and queue its job."""
+    run = Run(id=new_id("run"), study_id=study.id, spec=spec, status=queue.QUEUED)
+    session.add(run)
+    session.flush()
+    session.add_all(RunEpochSet(run_id=run.id, epoch_set_id=row.id, position=i) for i, row in enumerate(epoch_sets))
+    session.add_all(RunPipeline(run_id=run.id, position=i, name=p.name) for i, p in enumerate(pipelines))
+    queue.enqueue(session, run.id, max_attempts=max_attempts)
+    return run
 
 
 @router.get("", response_model=RunPage, responses=errors(401, 404, 422))

@@ -5,8 +5,11 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
+from worker.engine.errors import SpecError
+from worker.engine.grid import GridSpec, expand_grid
 from worker.engine.pipeline import PipelineSpec
 from worker.engine.scoring_spec import ScoringSpec
+from worker.engine.selection import SelectionSpec
 
 RunStatus = Literal["queued", "running", "succeeded", "failed"]
 
@@ -32,22 +35,49 @@ class RunCreate(BaseModel):
 
     study: str = Field(description="Code of the study the epoch sets belong to.")
     epoch_sets: list[str] = Field(min_length=1, max_length=2000, description="Ids of the epoch sets to score.")
-    pipelines: list[PipelineSpec] = Field(min_length=1, max_length=512)
+    pipelines: list[PipelineSpec] | None = Field(None, min_length=1, max_length=512,
+                                                 description="The pipelines to score; or give a grid instead.")
+    grid: GridSpec | None = Field(None, description="Factors whose levels combine into the pipelines (see README).")
     scoring: ScoringSpec
+    selection: SelectionSpec | None = Field(None, description="How to choose a winner without circularity.")
 
     @model_validator(mode="after")
     def _unique_names_and_ids(self) -> "RunCreate":
+        if (self.pipelines is None) == (self.grid is None):
+            raise ValueError("give exactly one of pipelines (a list) or grid (factors and their levels)")
+        if len(set(self.epoch_sets)) != len(self.epoch_sets):
+            raise ValueError("epoch_sets lists the same id more than once")
+        if self.pipelines is None:
+            return self  # a grid's names are unique by construction; its reference is checked on expansion
         names = [pipeline.name for pipeline in self.pipelines]
         repeated = sorted({name for name in names if names.count(name) > 1})
         if repeated:
             raise ValueError(f"pipeline names must be unique within a run; repeated: {', '.join(repeated)}")
-        if len(set(self.epoch_sets)) != len(self.epoch_sets):
-            raise ValueError("epoch_sets lists the same id more than once")
         reference = self.scoring.reference_pipeline
         if reference is not None and reference not in names:
             raise ValueError(f"scoring.reference_pipeline {reference!r} is not a pipeline of this run; "
                              f"name one of: {', '.join(names)}")
         return self
+
+    def resolved_pipelines(self, max_pipelines: int) -> list[PipelineSpec]:
+        """The run's pipelines, listed or expanded from the grid.
+
+        Raises ``SpecError`` when there are more than ``max_pipelines`` or the grid has no
+        pipeline named like ``scoring.reference_pipeline``.
+        """
+        if self.grid is None:
+            pipelines = list(self.pipelines or [])
+            if len(pipelines) > max_pipelines:
+                raise SpecError(("pipelines",), f"the run lists {len(pipelines)} pipelines, more than the limit "
+                                                f"of {max_pipelines}; split it over several runs")
+            return pipelines
+        pipelines = [point.pipeline for point in expand_grid(self.grid, max_pipelines)]
+        reference = self.scoring.reference_pipeline
+        if reference is not None and reference not in {pipeline.name for pipeline in pipelines}:
+            raise SpecError(("scoring", "reference_pipeline"),
+                            f"{reference!r} is not a pipeline of this grid; grid pipelines are named "
+                            f"like {pipelines[0].name!r}")
+        return pipelines
 
 
 class RunAccepted(BaseModel):
@@ -55,6 +85,13 @@ class RunAccepted(BaseModel):
 
     id: str
     status: RunStatus
+
+
+class ProgressDetail(BaseModel):
+    units_done: int = Field(description="Units (an epoch set × the pipelines sharing a first step) done.")
+    units_total: int
+    elapsed_s: float = Field(description="Time since the first unit started, in s.")
+    eta_s: float | None = Field(description="Time left if the rest goes at the pace so far, in s.")
 
 
 RUN_OUT_EXAMPLE = {
@@ -70,7 +107,8 @@ class RunOut(BaseModel):
     id: str
     study: str
     status: RunStatus
-    progress: float = Field(ge=0.0, le=1.0, description="Share of (epoch set × pipeline) units done.")
+    progress: float = Field(ge=0.0, le=1.0, description="Share of units (epoch set × tree branch) done.")
+    progress_detail: ProgressDetail | None = Field(None, description="While running: units done, total and ETA.")
     error: str | None
     created_at: datetime
     started_at: datetime | None
@@ -142,3 +180,7 @@ class RunResultDocument(BaseModel):
     scoring: dict
     provenance: dict
     results: list[PipelineResult]
+    cache: dict | None = Field(None, description="Step-cache lookups of the run: hits and misses.")
+    ranking: list[dict] | None = Field(None, description="Every pipeline, best first, against the reference.")
+    factor_effects: dict | None = Field(None, description="Grid runs: mixed-model effects of each factor.")
+    selection: dict | None = Field(None, description="The winner by the run's selection rule.")

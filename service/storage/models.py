@@ -77,6 +77,19 @@ class EpochSet(Base):
     study: Mapped[Study] = relationship()
 
 
+class LockedPipeline(Base):
+    """The pipeline a study has settled on: every epoch set posted afterwards is scored with it."""
+
+    __tablename__ = "locked_pipelines"
+
+    study_id: Mapped[str] = mapped_column(ForeignKey("studies.id", ondelete="CASCADE"), primary_key=True)
+    pipeline: Mapped[dict[str, Any]] = mapped_column(JSON)
+    scoring: Mapped[dict[str, Any]] = mapped_column(JSON)
+    pipeline_hash: Mapped[str] = mapped_column(String(64))
+    source_run: Mapped[str | None] = mapped_column(String(40), nullable=True)
+    locked_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utc_now)
+
+
 class Run(Base):
     """A scoring run: its spec, its state as clients see it, and (once done) its result."""
 
@@ -92,6 +105,8 @@ class Run(Base):
     spec: Mapped[dict[str, Any]] = mapped_column(JSON)
     status: Mapped[str] = mapped_column(String(16), default="queued")
     progress: Mapped[float] = mapped_column(Float, default=0.0)
+    # units_done, units_total, elapsed_s, eta_s of the latest heartbeat (worker.parallel.Progress)
+    progress_detail: Mapped[dict[str, Any] | None] = mapped_column(JSON, nullable=True)
     error: Mapped[str | None] = mapped_column(Text, nullable=True)
     created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utc_now)
     started_at: Mapped[datetime | None] = mapped_column(UTCDateTime, nullable=True)

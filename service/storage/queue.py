@@ -16,6 +16,7 @@ queues its webhook events, in the same transaction (``service.storage.outbox``).
 
 from dataclasses import dataclass
 from datetime import datetime, timedelta
+from typing import Any
 
 from sqlalchemy import and_, delete, func, or_, select, update
 from sqlalchemy.orm import Session
@@ -88,8 +89,9 @@ def _fail_exhausted(session: Session, now: datetime) -> None:
         _finish(session, job_id, run_id, FAILED, reason, now)
 
 
-def heartbeat(session: Session, job: ClaimedJob, worker_id: str, lease_seconds: float, progress: float | None = None) -> bool:
-    """Renew the lease (and record progress). False when the job is no longer this worker's."""
+def heartbeat(session: Session, job: ClaimedJob, worker_id: str, lease_seconds: float, progress: float | None = None,
+              progress_detail: dict[str, Any] | None = None) -> bool:
+    """Renew the lease (and record progress and its detail). False when the job is no longer this worker's."""
     now = utc_now()
     renewed = session.execute(
         update(Job)
@@ -97,7 +99,8 @@ def heartbeat(session: Session, job: ClaimedJob, worker_id: str, lease_seconds: 
         .values(lease_expires_at=now + timedelta(seconds=lease_seconds), heartbeat_at=now)
     ).rowcount
     if renewed and progress is not None:
-        session.execute(update(Run).where(Run.id == job.run_id).values(progress=progress))
+        detail = {} if progress_detail is None else {"progress_detail": progress_detail}
+        session.execute(update(Run).where(Run.id == job.run_id).values(progress=progress, **detail))
     return bool(renewed)
 
 

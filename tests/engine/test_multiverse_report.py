@@ -1,0 +1,57 @@
+"""The ranking, factor-effects and selection parts of a result document."""
+
+import numpy as np
+
+from worker.engine.grid import GridSpec, expand_grid
+from worker.engine.multiverse_report import factor_effects_document, ranking_document, selection_document
+from worker.engine.selection import ContrastBlindSpec, SplitSpec, TuningHoldoutSpec
+
+GRID = GridSpec(factors={"hp": {"none": [], "1": [{"step": "highpass", "cutoff_hz": 1.0}]},
+                         "bl": {"none": [], "pre": [{"step": "baseline", "window_s": [-0.1, 0.0]}]}})
+POINTS = expand_grid(GRID)
+NAMES = [point.pipeline.name for point in POINTS]
+RNG = np.random.default_rng(1)
+RESULTS = [
+    {"pipeline": name, "subject": f"s{s}", "significant_fraction": float(np.clip(0.2 + 0.2 * (i >= 2)
+                                                                                 + RNG.normal(0, 0.05), 0, 1)),
+     "n_trials": {"a": 40 - i, "b": 40}}
+    for s in range(6) for i, name in enumerate(NAMES)
+]
+
+
+def test_ranking_lists_every_pipeline_best_first_with_its_group_entry():
+    group = [{"pipeline": name, "n_subjects": 6} for name in NAMES]
+    ranking = ranking_document(RESULTS, NAMES, NAMES[0], "significant_fraction", group)
+    assert sorted(e["pipeline"] for e in ranking) == sorted(NAMES)
+    assert ranking[0]["pipeline"].startswith("hp=1") and ranking[0]["group"] == {"pipeline": ranking[0]["pipeline"],
+                                                                                "n_subjects": 6}
+    means = [e["mean"] for e in ranking]
+    assert means == sorted(means, reverse=True)
+
+
+def test_factor_effects_name_every_factor_and_level():
+    document = factor_effects_document(RESULTS, GRID, POINTS)
+    assert set(document["factors"]) == {"hp", "bl"}
+    assert set(document["factors"]["hp"]["levels"]) == {"none", "1"}
+    assert document["factors"]["hp"]["levels"]["1"]["estimate"] > 0
+
+
+def test_factor_effects_that_cannot_be_fitted_say_why():
+    document = factor_effects_document([e for e in RESULTS if e["subject"] == "s0"], GRID, POINTS)
+    assert "at least two subjects" in document["error"]
+
+
+def test_selection_by_split_reports_both_sides():
+    document = selection_document(RESULTS, NAMES, NAMES[0], TuningHoldoutSpec(split=SplitSpec(fraction=0.5, seed=3)))
+    assert len(document["tuning_subjects"]) == 3 and len(document["holdout_subjects"]) == 3
+    assert document["winner"] in NAMES and document["reference_holdout_score"] is not None
+
+
+def test_contrast_blind_selection_on_trials_kept_picks_the_pipeline_keeping_most():
+    document = selection_document(RESULTS, NAMES, NAMES[0], ContrastBlindSpec(metric="trials_kept"))
+    assert document["winner"] == NAMES[0]
+
+
+def test_selection_that_cannot_run_reports_an_error():
+    document = selection_document(RESULTS, NAMES, NAMES[0], TuningHoldoutSpec(tuning_subjects=["nobody"]))
+    assert document["rule"] == "tuning_holdout" and "nobody" in document["error"]

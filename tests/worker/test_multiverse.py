@@ -1,0 +1,76 @@
+"""Multiverse execution: same entries as each pipeline alone, in run order, with the cache reused across runs."""
+
+import functools
+
+import numpy as np
+import pytest
+
+from tests.engine.conftest import random_epoch_set
+from worker.engine.grid import GridSpec, expand_grid
+from worker.engine.pipeline import PipelineSpec, apply_pipeline
+from worker.engine.tree import LeafOutput, build_tree
+from worker.multiverse import ExecutionSettings, SourceHandlers, execute_multiverse
+
+GRID = GridSpec(factors={
+    "highpass": {"none": [], "2": [{"step": "highpass", "cutoff_hz": 2.0}]},
+    "reference": {"average": [{"step": "reference", "kind": "average"}],
+                  "E0": [{"step": "reference", "kind": "channels", "channels": ["E0"]}]},
+    "baseline": {"none": [], "pre": [{"step": "baseline", "window_s": [-0.1, 0.0]}]},
+})
+PIPELINES = [point.pipeline for point in expand_grid(GRID)]
+SOURCES = ["s0", "s1", "s2"]
+
+
+def load(source: str):
+    return random_epoch_set(n_trials=6, n_channels=4, n_times=60, sfreq=100.0, tmin=-0.1, seed=SOURCES.index(source))
+
+
+def leaf_entry(leaf: LeafOutput, epochs, source: str, window: int) -> dict:
+    return {"pipeline": leaf.pipeline.name, "subject": source, "value": float(leaf.epochs.data[:, :, window].sum())}
+
+
+def alone_entry(pipeline: PipelineSpec, loaded, source: str) -> dict:
+    return {"pipeline": pipeline.name, "subject": source, "alone": True}
+
+
+def handlers(window: int = 10) -> SourceHandlers:
+    return SourceHandlers(
+        load=load, source_sha256=lambda source: source.encode().hex().ljust(64, "0"),
+        score_leaf=lambda source: functools.partial(leaf_entry, source=source, window=window),
+        score_alone=lambda source: functools.partial(alone_entry, source=source),
+    )
+
+
+def expected(window: int = 10) -> list[dict]:
+    return [{"pipeline": p.name, "subject": s, "value": float(apply_pipeline(p, load(s))[0].data[:, :, window].sum())}
+            for s in SOURCES for p in PIPELINES]
+
+
+@pytest.mark.parametrize("workers", [1, 2])
+def test_entries_equal_each_pipeline_alone_in_run_order(workers):
+    outcome = execute_multiverse(PIPELINES, SOURCES, handlers(), ExecutionSettings(workers=workers), lambda _: None)
+    assert outcome.results == expected()
+
+
+def test_progress_counts_one_unit_per_epoch_set_and_branch():
+    seen = []
+    execute_multiverse(PIPELINES, SOURCES, handlers(), ExecutionSettings(workers=1), seen.append)
+    assert seen[-1].done == seen[-1].total == len(SOURCES) * len(build_tree(PIPELINES).branches())
+
+
+def test_second_run_with_another_scoring_recomputes_no_step(tmp_path):
+    settings = ExecutionSettings(workers=1, cache_dir=tmp_path, cache_max_bytes=10**9)
+    first = execute_multiverse(PIPELINES, SOURCES, handlers(), settings, lambda _: None)
+    steps = build_tree(PIPELINES).count_steps() * len(SOURCES)
+    assert (first.cache.hits, first.cache.misses) == (0, steps)
+    second = execute_multiverse(PIPELINES, SOURCES, handlers(window=20), settings, lambda _: None)
+    assert (second.cache.hits, second.cache.misses) == (steps, 0)
+    assert second.results == expected(window=20)
+
+
+def test_inputs_that_are_not_epoch_sets_are_scored_pipeline_by_pipeline():
+    other = SourceHandlers(load=lambda source: {"recording": source}, source_sha256=handlers().source_sha256,
+                           score_leaf=handlers().score_leaf, score_alone=handlers().score_alone)
+    outcome = execute_multiverse(PIPELINES, SOURCES, other, ExecutionSettings(workers=1), lambda _: None)
+    assert [(e["pipeline"], e["subject"]) for e in outcome.results] == [(p.name, s) for s in SOURCES for p in PIPELINES]
+    assert all(e["alone"] for e in outcome.results)
