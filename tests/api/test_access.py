@@ -45,6 +45,9 @@ class World:
 WEBHOOK = {"url": "http://127.0.0.1:9/hook"}
 
 
+LOCK = {"pipeline": {"name": "raw", "steps": []}, "scoring": SCORING}
+
+
 def run_body(study: str, epoch_set: str) -> dict:
     return {"study": study, "epoch_sets": [epoch_set], "pipelines": [{"name": "raw", "steps": []}], "scoring": SCORING}
 
@@ -124,6 +127,13 @@ ROUTES = [
     Route("GET", "/v1/runs/{run_id}/figures/{name}.{fmt}", "read",
           _get(lambda w: f"/v1/runs/{w.run}/figures/kept.svg")),
     Route("GET", "/v1/studies/{code}/report", "read", _get(lambda w: f"/v1/studies/{w.study}/report")),
+    # Last: once the study has a locked pipeline, every upload queues a run, and an epoch set a run refers to
+    # cannot be deleted, so the routes above must not see the lock.
+    Route("POST", "/v1/studies/{code}/locked-pipeline", "write",
+          lambda w: (f"/v1/studies/{w.study}/locked-pipeline", {"json": LOCK})),
+    Route("GET", "/v1/studies/{code}/locked-pipeline", "read", lambda w: (
+        w.admin.post(f"/v1/studies/{w.study}/locked-pipeline", json=LOCK).raise_for_status()
+        and f"/v1/studies/{w.study}/locked-pipeline", {})),
 ]
 CALLERS = ("none", "revoked", "other study", "read", "write", "admin")
 
