@@ -67,7 +67,7 @@ def post_json_epoch_set(code: str, body: Annotated[bytes, Depends(_body)], sessi
         row = new_epoch_set_row(study, parsed.subject, parsed.session, staged.sha256, staged.size, parsed.epochs)
         row.file_format = FileFormat.JSON.value
         return save_epoch_set(session, study, row, [staged], idempotency, lambda r: epoch_set_out(r, study.code),
-                              f"/v1/studies/{study.code}/epoch-sets")
+                              f"/v1/studies/{study.code}/epoch-sets", settings.max_attempts)
 
 
 def _check_label(key: str, value: str | None, *, required: bool) -> None:

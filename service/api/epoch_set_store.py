@@ -12,6 +12,7 @@ from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
 from service.api.idempotency import Idempotency
+from service.api.locked_pipelines import score_on_arrival
 from service.storage.blobs import StagedBlob
 from service.storage.models import EpochSet, Study
 
@@ -22,8 +23,13 @@ def stored_epoch_set(session: Session, study: Study, sha256: str) -> EpochSet | 
 
 
 def save_epoch_set(session: Session, study: Study, row: EpochSet, blobs: Sequence[StagedBlob],
-                   idempotency: Idempotency, render: Callable[[EpochSet], BaseModel], location: str) -> Response:
-    """Keep ``blobs`` and commit ``row``; 201, or 200 with the stored one when the same content won a race."""
+                   idempotency: Idempotency, render: Callable[[EpochSet], BaseModel], location: str,
+                   max_attempts: int) -> Response:
+    """Keep ``blobs`` and commit ``row``; 201, or 200 with the stored one when the same content won a race.
+
+    When the study has a locked pipeline, a run scoring the new epoch set with it is queued in the
+    same transaction.
+    """
     for blob in blobs:
         blob.commit()
     session.add(row)
@@ -33,6 +39,7 @@ def save_epoch_set(session: Session, study: Study, row: EpochSet, blobs: Sequenc
         session.rollback()
         existing = stored_epoch_set(session, study, row.sha256)
         return idempotency.remember(status.HTTP_200_OK, render(existing))
+    score_on_arrival(session, study, row, max_attempts)
     answer = idempotency.remember(status.HTTP_201_CREATED, render(row), location=f"{location}/{row.id}")
     session.commit()
     # Linked again after the commit: a delete of the same bytes in another study may have removed them meanwhile.

@@ -10,7 +10,7 @@ from sqlalchemy.orm import Session
 from service.api.access import CallerDep
 from service.api.deps import BlobsDep, SessionDep, SettingsDep
 from service.api.idempotency import IdempotencyDep, canonical_fingerprint
-from service.api.locked_pipelines import score_on_arrival
+from service.api.epoch_set_store import save_epoch_set, stored_epoch_set
 from service.api.lookups import study_by_code
 from service.api.responses import errors
 from service.errors import Conflict, NotFound, format_error_to_unprocessable, too_large_to_payload_error
@@ -76,7 +76,7 @@ def upload_epoch_set(
         fingerprint = canonical_fingerprint({"sha256": staged.sha256, "subject": subject, "session": session_label})
         if (replayed := idempotency.replay(fingerprint)) is not None:
             return replayed
-        existing = _stored_bytes(session, study, staged.sha256)
+        existing = stored_epoch_set(session, study, staged.sha256)
         if existing is not None:
             return idempotency.remember(status.HTTP_200_OK, epoch_set_out(existing, study.code))
         try:
@@ -88,26 +88,8 @@ def upload_epoch_set(
             raise too_large_to_payload_error(error) from None
         row = new_epoch_set_row(study, subject, session_label, staged.sha256, staged.size, epochs)
         row.file_format = file_format.value
-        staged.commit()
-        session.add(row)
-        try:
-            session.flush()
-        except IntegrityError:
-            # The same bytes arrived in a concurrent request that committed first.
-            session.rollback()
-            existing = _stored_bytes(session, study, staged.sha256)
-            return idempotency.remember(status.HTTP_200_OK, epoch_set_out(existing, study.code))
-        score_on_arrival(session, study, row, settings.max_attempts)
-        answer = idempotency.remember(status.HTTP_201_CREATED, epoch_set_out(row, study.code),
-                                      location=f"/v1/studies/{study.code}/epoch-sets/{row.id}")
-        session.commit()
-        # Linked again after the commit: a delete of the same bytes in another study may have removed it meanwhile.
-        staged.commit()
-    return answer
-
-
-def _stored_bytes(session: Session, study: Study, sha256: str) -> EpochSet | None:
-    return session.scalar(select(EpochSet).where(EpochSet.study_id == study.id, EpochSet.sha256 == sha256))
+        return save_epoch_set(session, study, row, [staged], idempotency, lambda r: epoch_set_out(r, study.code),
+                              f"/v1/studies/{study.code}/epoch-sets", settings.max_attempts)
 
 
 @router.get("", response_model=list[EpochSetOut], responses=errors(401, 404))

@@ -132,5 +132,5 @@ def upload_recording(
         row.events_found = {"found": plan.events_found, "dropped_at_edges": plan.dropped_at_edges}
         staged = [staged_file] + ([staged_events] if staged_events else [])
         return save_epoch_set(session, study, row, staged, idempotency, lambda r: recording_out(r, study.code),
-                              f"/v1/studies/{study.code}/epoch-sets")
+                              f"/v1/studies/{study.code}/epoch-sets", settings.max_attempts)
 

@@ -49,3 +49,15 @@ def test_a_run_without_selection_has_no_winner_to_lock(client, study):
     run_id = runs_of(client, study)[0]["id"]
     answer = client.post(f"/v1/studies/{study}/locked-pipeline", json={"run": run_id})
     assert answer.status_code == 422 and "no winner" in answer.json()["detail"]
+
+
+def test_a_json_epoch_set_posted_to_a_locked_study_is_scored_on_arrival(client, study):
+    client.post(f"/v1/studies/{study}/locked-pipeline", json={"pipeline": PIPELINE, "scoring": SCORING})
+    epochs = small_epochs(seed=41)
+    body = {"data": epochs.data.tolist(), "sfreq": epochs.sfreq, "tmin": epochs.tmin,
+            "ch_names": list(epochs.ch_names), "labels": epochs.labels.tolist(), "subject": "sub-03"}
+    epoch_set = client.post(f"/v1/studies/{study}/epoch-sets", json=body)
+    assert epoch_set.status_code == 201, epoch_set.text
+    (run,) = runs_of(client, study)
+    assert run["epoch_sets"] == [epoch_set.json()["id"]]
+    assert wait_for_run(client, run["id"])["status"] == "succeeded"
