@@ -24,7 +24,7 @@ FINISHED = ("succeeded", "failed")
 
 def add_client_parser(commands: argparse._SubParsersAction) -> None:
     """Register ``client`` and its subcommands on the ``epoch-assay`` parser."""
-    client = commands.add_parser("client", help="talk to a running server: upload, run, status, result, report")
+    client = commands.add_parser("client", help="use a running server: upload, run, status, result, report")
     actions = client.add_subparsers(dest="client_command", required=True)
 
     upload = actions.add_parser("upload", help="upload an NPZ epoch-set file to a study")
