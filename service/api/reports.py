@@ -10,15 +10,18 @@ from sqlalchemy.orm import Session
 
 from service.api.access import CallerDep
 from service.api.deps import SessionDep
+from service.api.locked_pipelines import ORIGIN as ARRIVAL_ORIGIN
 from service.api.lookups import run_by_id, study_by_code
 from service.api.responses import errors
 from service.errors import Conflict, NotFound
 from service.report import catalogue
 from service.report.figures import arrival_figure, figure_bytes
-from service.report.html import EpochSetFacts, RunFacts, RunSummaryRow, run_report_html, study_report_html
+from service.report.html import (
+    ArrivalQuality, EpochSetFacts, LockedFacts, RunFacts, RunSummaryRow, run_report_html, study_report_html,
+)
 from service.report.summary import Arrival
 from service.storage import queue
-from service.storage.models import EpochSet, Run, RunEpochSet, RunResult, Study
+from service.storage.models import EpochSet, LockedPipeline, Run, RunEpochSet, RunResult, Study
 
 router = APIRouter(tags=["reports"])
 STUDY_REPORT_RUNS = 200
@@ -98,4 +101,27 @@ def get_study_report(code: str, session: SessionDep, caller: CallerDep) -> HTMLR
     arrivals = [Arrival(label=f"{item.subject}/{item.session}" if item.session else item.subject,
                         trials=item.conditions, channels=item.n_channels) for item in epoch_sets]
     arrival_png = figure_bytes(arrival_figure(arrivals), "png") if arrivals else None
-    return HTMLResponse(study_report_html(study.code, study.title, rows, epoch_sets, arrival_png))
+    locked = session.get(LockedPipeline, study.id)
+    locked_facts = None if locked is None else LockedFacts(
+        name=locked.pipeline["name"], steps=locked.pipeline.get("steps", []), pipeline_hash=locked.pipeline_hash,
+        locked_at=locked.locked_at, source_run=locked.source_run)
+    return HTMLResponse(study_report_html(study.code, study.title, rows, epoch_sets, arrival_png, locked_facts,
+                                          _quality_on_arrival(session, study)))
+
+
+def _quality_on_arrival(session: Session, study: Study) -> list[ArrivalQuality]:
+    """What the locked pipeline found in each epoch set scored on arrival, oldest first."""
+    scored = session.execute(
+        select(Run, RunResult.document).join(RunResult, RunResult.run_id == Run.id)
+        .where(Run.study_id == study.id, Run.status == queue.SUCCEEDED).order_by(Run.created_at, Run.id)).all()
+    quality = []
+    for run, document in scored:
+        if run.spec.get("origin") != ARRIVAL_ORIGIN:
+            continue
+        for entry in json.loads(document)["results"]:
+            quality.append(ArrivalQuality(
+                epoch_set=entry["epoch_set"], subject=entry["subject"], session=entry.get("session"),
+                scored_at=run.created_at, pipeline=entry["pipeline"], n_trials=entry.get("n_trials") or {},
+                median_sme_uv=entry.get("median_sme_uv") or {}, channels_kept=entry.get("channels_kept"),
+                channels_uploaded=entry.get("channels_uploaded"), error=entry.get("error")))
+    return quality

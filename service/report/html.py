@@ -41,6 +41,33 @@ figcaption { font-size: 0.9em; color: #4a4866; margin-top: 6px; }
 
 
 @dataclass(frozen=True)
+class LockedFacts:
+    """The study's locked pipeline as the study page shows it."""
+
+    name: str
+    steps: list[dict[str, Any]]
+    pipeline_hash: str
+    locked_at: datetime
+    source_run: str | None
+
+
+@dataclass(frozen=True)
+class ArrivalQuality:
+    """Data quality of one epoch set as the locked pipeline found it on arrival (SME in µV)."""
+
+    epoch_set: str
+    subject: str
+    session: str | None
+    scored_at: datetime
+    pipeline: str
+    n_trials: dict[str, int]
+    median_sme_uv: dict[str, float | None]
+    channels_kept: int | None
+    channels_uploaded: int | None
+    error: str | None
+
+
+@dataclass(frozen=True)
 class EpochSetFacts:
     """An epoch set as the report lists it."""
 
@@ -205,9 +232,37 @@ def _provenance_html(provenance: dict[str, Any]) -> str:
     return _table(["what", "value"], rows)
 
 
+def _locked_html(study_code: str, locked: LockedFacts | None) -> str:
+    if locked is None:
+        return (f"<p>No pipeline is locked; lock one with POST /v1/studies/{escape(study_code)}/locked-pipeline to "
+                "score every new epoch set on arrival.</p>")
+    steps = " → ".join(_step_text(step) for step in locked.steps) or "no steps"
+    source = escape(locked.source_run) if locked.source_run else "given directly"
+    return _table(["pipeline", "steps", "spec hash", "locked", "from run"],
+                  [[escape(locked.name), escape(steps), _code(locked.pipeline_hash[:16] + "…"), _when(locked.locked_at),
+                    source]])
+
+
+def _quality_html(quality: Sequence[ArrivalQuality]) -> str:
+    if not quality:
+        return "<p>No epoch set has been scored on arrival yet.</p>"
+    rows = []
+    for item in quality:
+        sme = ", ".join(f"{label}: {value:.2f}" if value is not None else f"{label}: —"
+                        for label, value in item.median_sme_uv.items())
+        trials = ", ".join(f"{label}: {count}" for label, count in item.n_trials.items())
+        kept = "—" if item.channels_kept is None else f"{item.channels_kept} of {item.channels_uploaded}"
+        rows.append([_code(item.epoch_set), escape(item.subject), escape(item.session or "—"), _when(item.scored_at),
+                     escape(trials or "—"), escape(kept), escape(sme or "—"),
+                     f'<span class="bad">{escape(item.error)}</span>' if item.error else ""])
+    return _table(["epoch set", "subject", "session", "scored", "trials kept", "channels kept",
+                   "median SME (µV)", "problem"], rows)
+
+
 def study_report_html(study_code: str, study_title: str, runs: Sequence[RunSummaryRow],
-                      epoch_sets: Sequence[EpochSetFacts], arrival_png: bytes | None) -> str:
-    """The study page: runs so far, and the epoch sets as they arrived."""
+                      epoch_sets: Sequence[EpochSetFacts], arrival_png: bytes | None,
+                      locked: LockedFacts | None, quality: Sequence[ArrivalQuality]) -> str:
+    """The study page: runs so far, the locked pipeline, data quality on arrival, the epoch sets."""
     run_rows = [[f'<a href="../../runs/{quote(run.id, safe="")}/report">{escape(run.id)}</a>',
                  escape(run.status) + (f' <span class="bad">({escape(run.error)})</span>' if run.error else ""),
                  _when(run.created_at), escape(", ".join(run.pipelines)), str(run.n_epoch_sets)] for run in runs]
@@ -223,6 +278,8 @@ def study_report_html(study_code: str, study_title: str, runs: Sequence[RunSumma
         f"<h2>Runs ({len(runs)})</h2>",
         _table(["run", "status", "created", "pipelines", "epoch sets"], run_rows, numeric=(4,)) if runs
         else "<p>No runs yet.</p>",
+        "<h2>Locked pipeline</h2>", _locked_html(study_code, locked),
+        f"<h2>Quality on arrival ({len(quality)})</h2>", _quality_html(quality),
         f"<h2>Epoch sets ({len(epoch_sets)})</h2>", arrival,
         _epoch_sets_html(epoch_sets) if epoch_sets else "<p>No epoch sets yet.</p>",
     ]

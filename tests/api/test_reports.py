@@ -126,3 +126,18 @@ def test_study_report_lists_runs_and_shows_epoch_sets_on_arrival(client, scored)
     assert "sub-01" in page and "sub-02" in page
     assert "Reports &lt;&amp; titles&gt;" in page
     assert page.count('<img src="data:image/png;base64,') == 1
+
+
+def test_study_report_shows_the_locked_pipeline_and_quality_on_arrival(client, study):
+    # The median SME shown must be the one in the arrival run's result (Luck et al., 2021, computed by the engine).
+    pipeline = {"name": "locked-raw", "steps": []}
+    assert "No pipeline is locked" in client.get(f"/v1/studies/{study}/report").text
+    client.post(f"/v1/studies/{study}/locked-pipeline", json={"pipeline": pipeline, "scoring": BOOTSTRAP_SCORING})
+    epoch_set = upload(client, study, npz_bytes(small_epochs(seed=61))).json()
+    (run,) = client.get("/v1/runs", params={"study": study}).json()["runs"]
+    assert wait_for_run(client, run["id"])["status"] == "succeeded"
+    (entry,) = client.get(f"/v1/runs/{run['id']}/result").json()["results"]
+    page = client.get(f"/v1/studies/{study}/report").text
+    assert "locked-raw" in page and epoch_set["id"] in page
+    assert f"a: {entry['median_sme_uv']['a']:.2f}" in page
+    assert f"{entry['channels_kept']} of {entry['channels_uploaded']}" in page
