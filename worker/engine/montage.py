@@ -6,6 +6,7 @@ import mne
 import numpy as np
 
 from worker.engine.epochs import SCORED_CHANNEL_TYPES, EpochSet, EpochSetMeta
+from worker.engine.errors import SpecError
 
 DEFAULT_MONTAGE = "standard_1020"
 
@@ -72,3 +73,18 @@ def eeg_channels_without_position(meta: EpochSetMeta, montage: str = DEFAULT_MON
     eeg = [name for name, kind in zip(meta.ch_names, meta.ch_types) if kind in SCORED_CHANNEL_TYPES]
     positions = montage_positions(eeg, montage)
     return [name for name, known in zip(eeg, np.isfinite(positions).all(axis=1)) if not known]
+
+
+def missing_positions_error(loc: tuple[str | int, ...], needed_by: str, unplaced: list[str],
+                            alternative: str) -> SpecError:
+    """The refusal of a step that needs electrode positions some channels lack.
+
+    ``needed_by`` names what needs them (e.g. "interpolation"); ``alternative`` is the
+    choice that works without positions (e.g. "kind 'average'").
+    """
+    return SpecError(
+        loc,
+        f"{needed_by} needs electrode positions, and channel(s) {', '.join(unplaced)} have none in the file nor "
+        "under their name in the standard 10-20 montage; upload positions with the epoch set, rename the "
+        f"channels to 10-20 names, or choose {alternative}",
+    )

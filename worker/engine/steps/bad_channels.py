@@ -42,7 +42,7 @@ from pydantic import BaseModel, ConfigDict, Field, model_validator
 
 from worker.engine.epochs import SCORED_CHANNEL_TYPES, EpochSet, EpochSetMeta
 from worker.engine.errors import SpecError
-from worker.engine.montage import eeg_channels_without_position, epoch_set_positions
+from worker.engine.montage import eeg_channels_without_position, epoch_set_positions, missing_positions_error
 from worker.engine.provenance import StepRecord
 from worker.engine.steps.base import Step
 from worker.engine.steps.line_noise import LINE_FREQUENCIES_HZ
@@ -261,12 +261,7 @@ class BadChannels(Step):
         if self.action == "interpolate":
             unplaced = eeg_channels_without_position(meta)
             if unplaced:
-                raise SpecError(
-                    ("action",),
-                    f"interpolation needs electrode positions, and channel(s) {', '.join(unplaced)} have none in "
-                    "the file nor under their name in the standard 10-20 montage; upload positions, rename the "
-                    "channels to 10-20 names, or choose action 'flag' or 'drop'",
-                )
+                raise missing_positions_error(("action",), "interpolation", unplaced, "action 'flag' or 'drop'")
         return meta
 
     def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepRecord]:

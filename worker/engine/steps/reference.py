@@ -7,7 +7,7 @@ from pydantic import Field, model_validator
 
 from worker.engine.epochs import EpochSet, EpochSetMeta
 from worker.engine.errors import SpecError
-from worker.engine.montage import eeg_channels_without_position, epoch_set_positions
+from worker.engine.montage import eeg_channels_without_position, epoch_set_positions, missing_positions_error
 from worker.engine.provenance import StepRecord
 from worker.engine.steps.base import Step
 from worker.engine.steps.rest import rest_reference_weights
@@ -75,12 +75,7 @@ class Reference(Step):
         if self.kind == "rest":
             unplaced = eeg_channels_without_position(meta)
             if unplaced:
-                raise SpecError(
-                    ("kind",),
-                    f"the REST reference needs electrode positions, and channel(s) {', '.join(unplaced)} have none "
-                    "in the file nor under their name in the standard 10-20 montage; upload positions with the "
-                    "epoch set, rename the channels to 10-20 names, or choose kind 'average'",
-                )
+                raise missing_positions_error(("kind",), "the REST reference", unplaced, "kind 'average'")
         return meta
 
     def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepRecord]:
@@ -127,9 +122,5 @@ class Reference(Step):
         positions = epoch_set_positions(epochs)[sources]
         unplaced = [epochs.ch_names[i] for i, known in zip(sources, np.isfinite(positions).all(axis=1)) if not known]
         if unplaced:
-            raise SpecError(
-                ("kind",),
-                f"the REST reference needs electrode positions, and channel(s) {', '.join(unplaced)} have none "
-                "in the file nor in the standard 10-20 montage; upload positions or choose kind 'average'",
-            )
+            raise missing_positions_error(("kind",), "the REST reference", unplaced, "kind 'average'")
         return rest_reference_weights(positions)
