@@ -20,7 +20,7 @@ from service.errors import PayloadTooLarge, install_problem_handlers, problem
 from service.metrics import ServiceMetrics
 from service.middleware import RequestContext
 from service.settings import Settings
-from service.storage.blobs import BlobStore
+from service.storage.blobs import open_blob_store
 from service.storage.db import Database
 
 DESCRIPTION = (
@@ -87,7 +87,7 @@ def create_app(settings: Settings) -> FastAPI:
     app = FastAPI(title="epoch-assay", version=__version__, description=DESCRIPTION)
     app.state.settings = settings
     app.state.database = Database(settings.resolved_database_url)
-    app.state.blobs = BlobStore(settings.blob_dir)
+    app.state.blobs = open_blob_store(settings)
     app.state.metrics = ServiceMetrics(settings.worker_stale_seconds)
     install_problem_handlers(app)
     # epoch_set_json before epoch_sets: it takes the JSON bodies of the same path; multipart falls through.

@@ -10,6 +10,7 @@ from starlette.exceptions import HTTPException as StarletteHTTPException
 from starlette.routing import compile_path
 
 from service.logs import request_id_var
+from service.storage.blobs import BlobStoreUnavailable
 from worker.engine.errors import EpochSetFormatError, EpochSetTooLargeError, SpecError
 
 PROBLEM_JSON = "application/problem+json"
@@ -121,6 +122,10 @@ def install_problem_handlers(app: FastAPI) -> None:
     @app.exception_handler(ApiError)
     async def _api_error(_request: Request, error: ApiError) -> JSONResponse:
         return problem(error.status, error.slug, error.title, error.detail, error.headers, errors=error.errors)
+
+    @app.exception_handler(BlobStoreUnavailable)
+    async def _blob_store_down(_request: Request, error: BlobStoreUnavailable) -> JSONResponse:
+        return problem(503, "blob-store-unavailable", "Blob store unavailable", str(error), {"Retry-After": "30"})
 
     @app.exception_handler(RequestValidationError)
     async def _validation_error(_request: Request, error: RequestValidationError) -> JSONResponse:

@@ -2,11 +2,13 @@
 
 from functools import cached_property
 from pathlib import Path
+from urllib.parse import urlsplit
 
-from pydantic import Field, model_validator
+from pydantic import Field, field_validator, model_validator
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
 MIB = 1024 * 1024
+DASK_SCHEMES = ("tcp", "tls", "ws", "wss")
 
 
 class Settings(BaseSettings):
@@ -55,9 +57,47 @@ class Settings(BaseSettings):
     cache_min_step_seconds: float = Field(
         0.2, ge=0.0, description="Outputs of steps faster than this are recomputed rather than cached, in s."
     )
+    blob_url: str | None = Field(
+        None,
+        description="fsspec URL of the blob store shared by several hosts (file:///mnt/shared/blobs, s3://bucket/prefix); "
+        "default: the local folder data_dir/blobs.",
+    )
+    blob_cache_max_bytes: int = Field(
+        8192 * MIB, ge=0, description="Largest total size of the local copies of blobs read from blob_url, in bytes."
+    )
+    dask_scheduler: str | None = Field(
+        None,
+        description="Address of a Dask distributed scheduler (tcp://host:8786) that runs a run's units; "
+        "default: a local process pool of parallel_workers.",
+    )
     parallel_workers: int | None = Field(
         None, ge=1, le=256, description="Worker processes that share a run's units; default: all cores."
     )
+
+    @field_validator("blob_url")
+    @classmethod
+    def _blob_url_usable(cls, url: str | None) -> str | None:
+        """An fsspec URL with an installed driver; an empty value means the local folder."""
+        from service.storage.blob_fsspec import check_blob_url  # fsspec is loaded only when a URL is set
+
+        return check_blob_url(url) if url else None
+
+    @field_validator("dask_scheduler")
+    @classmethod
+    def _dask_scheduler_address(cls, address: str | None) -> str | None:
+        """``scheme://host:port``; an empty value means no scheduler."""
+        if not address:
+            return None
+        parts = urlsplit(address)
+        try:
+            port = parts.port
+        except ValueError:
+            port = None
+        bare = address == f"{parts.scheme}://{parts.netloc}"
+        if parts.scheme not in DASK_SCHEMES or not parts.hostname or port is None or not bare:
+            raise ValueError(f"{address!r} is not a Dask scheduler address: give scheme://host:port with scheme "
+                             f"{', '.join(DASK_SCHEMES)}, such as tcp://scheduler.lab:8786")
+        return address
 
     @model_validator(mode="after")
     def _heartbeat_within_lease(self) -> "Settings":
@@ -77,6 +117,11 @@ class Settings(BaseSettings):
     @property
     def blob_dir(self) -> Path:
         return self.data_dir / "blobs"
+
+    @property
+    def blob_cache_dir(self) -> Path:
+        """Where a host keeps verified local copies of the blobs it read from blob_url."""
+        return self.data_dir / "blob-cache"
 
     @property
     def step_cache_dir(self) -> Path | None:

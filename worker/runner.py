@@ -15,6 +15,7 @@ import signal
 import socket
 import threading
 import time
+from contextlib import nullcontext
 from types import FrameType
 
 from pydantic import ValidationError
@@ -24,7 +25,7 @@ from sqlalchemy.orm import Session
 from service.delivery import Deliverer
 from service.settings import Settings
 from service.storage import queue
-from service.storage.blobs import BlobStore
+from service.storage.blobs import BlobCorruptError, open_blob_store
 from service.storage.db import Database
 from service.storage.migrate import is_at_head
 from service.storage.models import EpochSet, Run, RunEpochSet, RunResult, Study
@@ -37,8 +38,9 @@ from worker.parallel import Progress
 from worker.run_job import EpochSetRef, execute_run
 
 log = logging.getLogger("epoch_assay.worker")
-# Errors that will happen again on every attempt: the stored file is gone or malformed, the spec cannot run.
-PERMANENT_ERRORS = (FileNotFoundError, EpochSetFormatError, EpochSetTooLargeError, SpecError, ValidationError)
+# Errors that will happen again on every attempt: the stored file is gone, damaged or malformed, the spec cannot run.
+PERMANENT_ERRORS = (FileNotFoundError, BlobCorruptError, EpochSetFormatError, EpochSetTooLargeError, SpecError,
+                    ValidationError)
 
 
 class LeaseLost(Exception):
@@ -103,7 +105,7 @@ class Worker:
     def __init__(self, settings: Settings) -> None:
         self.settings = settings
         self.database = Database(settings.resolved_database_url)
-        self.blobs = BlobStore(settings.blob_dir)
+        self.blobs = open_blob_store(settings)
         self.worker_id = f"{socket.gethostname()}:{os.getpid()}"
         self._stopping = threading.Event()
         self._last_seen_recorded = 0.0
@@ -213,8 +215,10 @@ class Worker:
             source, file_sha256, events_sha256 = row.source, row.file_sha256, row.events_sha256
             epoching, channels = row.epoching, row.channels
         if source == "recording":
-            events_path = self.blobs.path(events_sha256) if events_sha256 else None
-            return load_recording(self.blobs.path(file_sha256), events_path, EpochingSpec.model_validate(epoching),
-                                  ChannelSpec.model_validate(channels or {}),
-                                  max_array_bytes=self.settings.max_array_bytes)
-        return read_epoch_set_file(self.blobs.path(ref.sha256), max_array_bytes=self.settings.max_array_bytes)[0]
+            events_copy = self.blobs.local_copy(events_sha256) if events_sha256 else nullcontext(None)
+            with self.blobs.local_copy(file_sha256) as path, events_copy as events_path:
+                return load_recording(path, events_path, EpochingSpec.model_validate(epoching),
+                                      ChannelSpec.model_validate(channels or {}),
+                                      max_array_bytes=self.settings.max_array_bytes)
+        with self.blobs.local_copy(ref.sha256) as path:
+            return read_epoch_set_file(path, max_array_bytes=self.settings.max_array_bytes)[0]

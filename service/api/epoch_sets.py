@@ -12,7 +12,7 @@ from service.api.deps import BlobsDep, SessionDep, SettingsDep
 from service.api.idempotency import IdempotencyDep, canonical_fingerprint
 from service.api.epoch_set_store import save_epoch_set, stored_epoch_set
 from service.api.lookups import study_by_code
-from service.api.responses import errors
+from service.api.responses import BLOB_STORE_DOWN, errors
 from service.errors import Conflict, NotFound, format_error_to_unprocessable, too_large_to_payload_error
 from service.schemas.epoch_sets import SUBJECT_PATTERN, EpochSetOut
 from service.schemas.json_epoch_sets import JSON_EPOCH_SET_OPENAPI
@@ -51,7 +51,8 @@ def new_epoch_set_row(study: Study, subject: str, session: str | None, sha256: s
     openapi_extra=JSON_EPOCH_SET_OPENAPI,
     responses={
         200: {"model": EpochSetOut, "description": "The same bytes were stored before; the existing epoch set."},
-        **errors(400, 401, 403, 404, 409, 413, 422,
+        **errors(400, 401, 403, 404, 409, 413, 422, 503,
+                 unavailable=BLOB_STORE_DOWN,
                  unprocessable="The file is malformed (the detail names the field and the fix), or a form field "
                                "breaks its pattern."),
     },
@@ -160,7 +161,8 @@ def _blob_in_use(session: Session, sha256: str) -> bool:
 
 
 def _refuse_if_scored(session: Session, row: EpochSet) -> None:
-    run_ids = session.scalars(select(RunEpochSet.run_id).where(RunEpochSet.epoch_set_id == row.id).limit(5)).all()
+    run_ids = session.scalars(select(RunEpochSet.run_id).where(RunEpochSet.epoch_set_id == row.id)
+                              .order_by(RunEpochSet.run_id).limit(5)).all()
     if run_ids:
         raise _scored_conflict(row.id, run_ids)
 

@@ -20,7 +20,7 @@ from service.api.epoch_set_store import save_epoch_set, stored_epoch_set
 from service.api.epoch_sets import epoch_set_out, new_epoch_set_row
 from service.api.idempotency import IdempotencyDep, canonical_fingerprint
 from service.api.lookups import study_by_code
-from service.api.responses import errors
+from service.api.responses import BLOB_STORE_DOWN, errors
 from service.errors import Unprocessable, format_error_to_unprocessable, too_large_to_payload_error
 from service.schemas.epoch_sets import SUBJECT_PATTERN, EpochSetOut
 from service.storage.blobs import BlobStore, StagedBlob
@@ -81,7 +81,8 @@ def _identity(file_sha256: str, events_sha256: str | None, epoching: EpochingSpe
     response_model=RecordingOut,
     responses={
         200: {"model": RecordingOut, "description": "The same upload was stored before; the existing epoch set."},
-        **errors(400, 401, 403, 404, 409, 413, 422,
+        **errors(400, 401, 403, 404, 409, 413, 422, 503,
+                 unavailable=BLOB_STORE_DOWN,
                  unprocessable="The recording, its events or the epoching spec cannot be used (the detail says what "
                                "is wrong and how to fix it)."),
     },

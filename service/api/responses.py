@@ -20,6 +20,7 @@ DESCRIPTIONS = {
     422: "The request does not match the schema or cannot be carried out; the detail names the field.",
     503: "The service is not ready.",
 }
+BLOB_STORE_DOWN = "The blob store could not keep the file (unreachable or full); nothing was stored; retry later."
 
 
 def errors(*codes: int, **descriptions: str) -> dict[int | str, dict[str, Any]]:
