@@ -7,7 +7,7 @@ HOST ?= 127.0.0.1
 PORT ?= 8000
 DATA_DIR ?= var
 
-.PHONY: install demo run test browser bench clean
+.PHONY: install demo run test browser postgres bench clean
 
 $(STAMP): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
@@ -27,8 +27,15 @@ run: $(STAMP)
 browser:
 	command -v chromium >/dev/null || (apt-get update && apt-get install -y chromium)
 
-test: $(STAMP) browser
+# The API and storage tests also run on a real PostgreSQL server that tests/support/postgres.py starts
+# from Debian's programs (/usr/lib/postgresql/*/bin); CI runs as root and installs them here.
+postgres:
+	ls /usr/lib/postgresql/*/bin/initdb >/dev/null 2>&1 || (apt-get update && DEBIAN_FRONTEND=noninteractive apt-get install -y postgresql)
+
+# Everything on SQLite, then the API and storage tests again on PostgreSQL.
+test: $(STAMP) browser postgres
 	$(BIN)/python -m pytest
+	EPOCH_ASSAY_TEST_DATABASE=postgresql $(BIN)/python -m pytest tests/api tests/storage
 
 bench: $(STAMP)
 	for script in tests/benchmarks/bench_*.py; do $(BIN)/python $$script || exit 1; done

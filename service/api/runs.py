@@ -5,7 +5,7 @@ from datetime import datetime
 from typing import Annotated, Literal
 
 from fastapi import APIRouter, Header, Query, Response, status
-from sqlalchemy import and_, delete, or_, select
+from sqlalchemy import and_, or_, select
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
@@ -190,7 +190,7 @@ def delete_run(run_id: str, session: SessionDep, caller: CallerDep) -> Response:
     Its epoch sets stay; delete them afterwards if they are no longer wanted.
     """
     run = run_by_id(session, run_id, caller, "write")
-    session.execute(delete(Run).where(Run.id == run.id))
+    queue.delete_run(session, run.id)
     return Response(status_code=status.HTTP_204_NO_CONTENT)
 
 

@@ -21,6 +21,8 @@ from service.storage.models import ApiKey, Study
 Role = Literal["admin", "write", "read"]
 ROLES: tuple[Role, ...] = ("admin", "write", "read")
 TOKEN_PREFIX = "ea_"
+# The column is VARCHAR(200): PostgreSQL refuses a longer value (SQLite would have kept it).
+LABEL_MAX_CHARACTERS = ApiKey.__table__.c.label.type.length
 
 
 class KeyProblem(ValueError):
@@ -60,6 +62,8 @@ def create_key(session: Session, role: Role, study_code: str | None = None, labe
         raise KeyProblem("an admin key covers every study; leave out --study, or choose --role read or write")
     if role != "admin" and study_code is None:
         raise KeyProblem(f"a {role} key belongs to one study; give it with --study CODE")
+    if label is not None and len(label) > LABEL_MAX_CHARACTERS:
+        raise KeyProblem(f"the label has {len(label)} characters; give at most {LABEL_MAX_CHARACTERS}")
     study_id = None
     if study_code is not None:
         study_id = session.scalar(select(Study.id).where(Study.code == study_code))

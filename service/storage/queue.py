@@ -18,7 +18,7 @@ from dataclasses import dataclass
 from datetime import datetime, timedelta
 from typing import Any
 
-from sqlalchemy import and_, delete, func, or_, select, update
+from sqlalchemy import ColumnElement, and_, delete, func, or_, select, update
 from sqlalchemy.orm import Session
 
 from service.storage import outbox
@@ -86,7 +86,7 @@ def _fail_exhausted(session: Session, now: datetime) -> None:
         reason = f"gave up after {attempts} attempts; the worker running the last one stopped answering"
         if earlier_error:
             reason += f"; an earlier attempt failed with: {earlier_error}"
-        _finish(session, job_id, run_id, FAILED, reason, now)
+        _finish(session, job_id, run_id, FAILED, reason, now, Job.lease_expires_at < now)
 
 
 def heartbeat(session: Session, job: ClaimedJob, worker_id: str, lease_seconds: float, progress: float | None = None,
@@ -126,15 +126,17 @@ def retry_or_fail(session: Session, job: ClaimedJob, worker_id: str, error: str,
         return None
     now = utc_now()
     if job.attempt >= held.max_attempts:
-        _finish(session, job.id, job.run_id, FAILED, f"failed {job.attempt} times; last error: {error}", now)
-        return FAILED
+        reason = f"failed {job.attempt} times; last error: {error}"
+        return FAILED if _finish(session, job.id, job.run_id, FAILED, reason, now, Job.worker_id == worker_id) else None
     wait = backoff_seconds * 2 ** (job.attempt - 1)
-    session.execute(
-        update(Job).where(Job.id == job.id).values(
+    requeued = session.execute(
+        update(Job).where(Job.id == job.id, Job.worker_id == worker_id, Job.status == RUNNING).values(
             status=QUEUED, worker_id=None, lease_expires_at=None, error=error,
             available_at=now + timedelta(seconds=wait),
         )
-    )
+    ).rowcount
+    if not requeued:
+        return None
     note = f"attempt {job.attempt} of {held.max_attempts} failed ({error}); trying again in {wait:g} s"
     session.execute(update(Run).where(Run.id == job.run_id).values(status=QUEUED, progress=0.0, error=note))
     return QUEUED
@@ -153,24 +155,40 @@ def release(session: Session, job: ClaimedJob, worker_id: str) -> bool:
 
 
 def _finish_held(session: Session, job: ClaimedJob, worker_id: str, status: str, error: str | None) -> bool:
-    held = session.execute(
-        select(Job.id).where(Job.id == job.id, Job.worker_id == worker_id, Job.status == RUNNING)
-    ).first()
-    if held is None:
+    return _finish(session, job.id, job.run_id, status, error, utc_now(), Job.worker_id == worker_id)
+
+
+def _finish(session: Session, job_id: str, run_id: str, status: str, error: str | None, now: datetime,
+            still: ColumnElement[bool]) -> bool:
+    """Finish the job and its run while the job is running and ``still`` holds of it; False (nothing changed) if not.
+
+    The check is part of the UPDATE, so of two transactions finishing one job at once (two workers failing an
+    exhausted job, a worker completing while its job is taken over) only the first changes it: on PostgreSQL
+    the second waits for the row and finds it no longer running, on SQLite writers take turns.
+    """
+    finished = session.execute(
+        update(Job).where(Job.id == job_id, Job.status == RUNNING, still)
+        .values(status=status, error=error, finished_at=now, lease_expires_at=None)
+    ).rowcount
+    if not finished:
         return False
-    _finish(session, job.id, job.run_id, status, error, utc_now())
-    return True
-
-
-def _finish(session: Session, job_id: str, run_id: str, status: str, error: str | None, now: datetime) -> None:
-    session.execute(
-        update(Job).where(Job.id == job_id).values(status=status, error=error, finished_at=now, lease_expires_at=None)
-    )
     progress = 1.0 if status == SUCCEEDED else Run.progress
     session.execute(
         update(Run).where(Run.id == run_id).values(status=status, error=error, finished_at=now, progress=progress)
     )
     outbox.record_run_event(session, run_id, status, error, now)
+    return True
+
+
+def delete_run(session: Session, run_id: str) -> None:
+    """Delete a run, its job and (by cascade) its result, epoch set links and pipeline names.
+
+    The job row goes first: workers lock a job and then its run (claim, heartbeat, finish), so
+    deleting the run first (its job by cascade) would lock them the other way round, and on
+    PostgreSQL a delete racing a worker's heartbeat would end in a deadlock instead of waiting.
+    """
+    session.execute(delete(Job).where(Job.run_id == run_id))
+    session.execute(delete(Run).where(Run.id == run_id))
 
 
 def record_worker_seen(session: Session, worker_id: str) -> None:

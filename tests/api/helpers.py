@@ -23,3 +23,17 @@ def run_and_wait(client: httpx.Client, body: dict) -> dict:
     result = client.get(f"/v1/runs/{state['id']}/result")
     assert result.status_code == 200, result.text
     return result.json()
+
+
+# What differs between two runs of one spec: the run id, timings, and the step-cache hits and misses
+# (which depend on what other runs, on any worker, left in the shared cache before).
+EXECUTION_FACTS = ("run", "seconds", "cache")
+
+
+def without_timing(value):
+    """A result document minus its EXECUTION_FACTS, at any depth: what one spec always gives."""
+    if isinstance(value, dict):
+        return {key: without_timing(item) for key, item in value.items() if key not in EXECUTION_FACTS}
+    if isinstance(value, list):
+        return [without_timing(item) for item in value]
+    return value

@@ -2,7 +2,6 @@
 
 import itertools
 import os
-import sqlite3
 from collections.abc import Callable
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
@@ -225,8 +224,7 @@ def test_a_key_revoked_by_its_id_is_refused_at_once(world):
 
 def test_keys_are_stored_only_as_hashes(world):
     token = world.service.create_key("read", world.study)
-    with sqlite3.connect(world.service.data_dir / "epoch-assay.sqlite3") as db:
-        stored = [value for row in db.execute("SELECT * FROM api_keys") for value in row]
+    stored = [value for row in world.service.query("SELECT * FROM api_keys") for value in row]
     assert token not in stored
     assert any(isinstance(value, str) and len(value) == 64 for value in stored)
 

@@ -1,6 +1,5 @@
 """Many clients at once over loopback: every upload stored once, every run finished once, no 5xx."""
 
-import sqlite3
 import threading
 from collections import Counter
 from concurrent.futures import ThreadPoolExecutor
@@ -78,7 +77,6 @@ def test_twenty_concurrent_runs_all_finish_each_claimed_once(busy, uploads):
     with busy.client() as admin:
         states = [wait_for_run(admin, answer.json()["id"]) for answer in created]
     assert Counter(state["status"] for state in states) == {"succeeded": N_RUNS}
-    with sqlite3.connect(busy.data_dir / "epoch-assay.sqlite3") as db:
-        attempts = [row[0] for row in db.execute("SELECT attempts FROM jobs")]
-        results = db.execute("SELECT count(*) FROM run_results").fetchone()[0]
+    attempts = [row.attempts for row in busy.query("SELECT attempts FROM jobs")]
+    [(results,)] = busy.query("SELECT count(*) FROM run_results")
     assert attempts == [1] * N_RUNS and results == N_RUNS

@@ -3,12 +3,11 @@
 import json
 import os
 import signal
-import sqlite3
 import time
 
 import pytest
 
-from tests.api.helpers import upload
+from tests.api.helpers import upload, without_timing
 from tests.support.epoch_files import npz_bytes, small_epochs
 from tests.support.live import LiveService, start_service, stop, wait_for_run
 from tests.support.receiver import Receiver
@@ -65,18 +64,8 @@ def _wait_until_midway(http, run_id: str, timeout_s: float = 120.0) -> dict:
 
 
 def _job_attempts(service: LiveService, run_id: str) -> int:
-    with sqlite3.connect(service.data_dir / "epoch-assay.sqlite3") as db:
-        (attempts,) = db.execute("SELECT attempts FROM jobs WHERE run_id = ?", (run_id,)).fetchone()
+    [(attempts,)] = service.query("SELECT attempts FROM jobs WHERE run_id = :run_id", {"run_id": run_id})
     return attempts
-
-
-def _without_timing(value):
-    """A result document minus what differs between two runs of one spec: timings and the run id."""
-    if isinstance(value, dict):
-        return {key: _without_timing(item) for key, item in value.items() if key not in ("seconds", "run")}
-    if isinstance(value, list):
-        return [_without_timing(item) for item in value]
-    return value
 
 
 def test_a_job_whose_worker_is_killed_is_finished_once_by_another_with_the_same_result(faults, http):
@@ -98,7 +87,7 @@ def test_a_job_whose_worker_is_killed_is_finished_once_by_another_with_the_same_
     assert sorted(event["data"]["run"]["id"] for event in events) == sorted([victim, undisturbed]) and late == []
     assert _job_attempts(faults, victim) == 2
     results = [http.get(f"/v1/runs/{run}/result").json() for run in (victim, undisturbed)]
-    assert _without_timing(results[0]) == _without_timing(results[1])
+    assert without_timing(results[0]) == without_timing(results[1])
 
 
 def test_sigterm_hands_the_job_back_and_another_worker_finishes_it(faults, http):

@@ -1,33 +1,21 @@
-import os
-
 import pytest
-from sqlalchemy import text
 
-from service.storage.db import Database, make_engine
+from service.storage.db import Database
 from service.storage.migrate import upgrade_to_head
-
-# The storage tests run on SQLite, and also on PostgreSQL when this names an empty database
-# (e.g. postgresql+psycopg://user@/db?host=/tmp/pg); its public schema is recreated for each test.
-POSTGRES_URL = os.environ.get("EPOCH_ASSAY_TEST_POSTGRES_URL")
+from tests.support.postgres import fresh_database_url
 
 
-def _fresh_postgres(url: str) -> None:
-    engine = make_engine(url)
-    with engine.begin() as connection:
-        connection.execute(text("DROP SCHEMA public CASCADE"))
-        connection.execute(text("CREATE SCHEMA public"))
-    engine.dispose()
+@pytest.fixture()
+def empty_database_url(tmp_path) -> str:
+    """The URL of an empty database: a SQLite file in a temporary folder, or (EPOCH_ASSAY_TEST_DATABASE=postgresql)
+    a fresh database of the session's PostgreSQL server."""
+    return fresh_database_url("storage") or f"sqlite:///{tmp_path / 'storage.sqlite3'}"
 
 
-@pytest.fixture(params=["sqlite", "postgresql"] if POSTGRES_URL else ["sqlite"])
-def database(request, tmp_path) -> Database:
-    """A migrated database: a SQLite file in a temporary folder, or the PostgreSQL one named above."""
-    if request.param == "sqlite":
-        url = f"sqlite:///{tmp_path / 'storage.sqlite3'}"
-    else:
-        url = POSTGRES_URL
-        _fresh_postgres(url)
-    upgrade_to_head(url)
-    db = Database(url)
+@pytest.fixture()
+def database(empty_database_url) -> Database:
+    """A migrated database (see ``empty_database_url``)."""
+    upgrade_to_head(empty_database_url)
+    db = Database(empty_database_url)
     yield db
     db.dispose()

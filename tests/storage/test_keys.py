@@ -59,3 +59,8 @@ def test_a_key_that_cannot_exist_is_refused_with_the_reason(database, study_code
 def test_revoking_an_unknown_key_is_refused(database):
     with database.session() as session, pytest.raises(keys.KeyProblem):
         keys.revoke_key(session, "key_0000000000000000")
+
+
+def test_a_label_too_long_for_its_column_is_refused_with_the_limit(database):
+    with database.session() as session, pytest.raises(keys.KeyProblem, match="at most 200"):
+        keys.create_key(session, "admin", label="x" * 201)

@@ -6,8 +6,8 @@ from alembic import command
 from service.storage.migrate import alembic_config
 
 
-def test_upgrading_to_0002_lists_the_pipelines_of_existing_runs(tmp_path):
-    url = f"sqlite:///{tmp_path / 'old.sqlite3'}"
+def test_upgrading_to_0002_lists_the_pipelines_of_existing_runs(empty_database_url):
+    url = empty_database_url
     config = alembic_config(url)
     command.upgrade(config, "0001")
     engine = sa.create_engine(url)

@@ -5,7 +5,7 @@ import time
 from concurrent.futures import ThreadPoolExecutor
 
 import pytest
-from sqlalchemy import select
+from sqlalchemy import select, update
 
 from service.storage import queue
 from service.storage.db import Database
@@ -212,3 +212,37 @@ def test_handing_a_job_back_or_retrying_it_queues_no_event(database):
     with database.session() as session:
         queue.retry_or_fail(session, job, "w2", "OSError: again", backoff_seconds=0.0)
     assert _events(database) == []
+
+
+def test_two_workers_failing_the_same_exhausted_job_at_once_fail_it_and_queue_its_event_once(database):
+    (run_id,) = _queue_runs(database, 1, max_attempts=1)
+    _webhook(database, run_id, ["run.failed"])
+    assert _claim(database, "w1", lease_seconds=0.05) is not None
+    time.sleep(0.1)
+    with database.session() as first, ThreadPoolExecutor(max_workers=1) as pool:
+        assert queue.claim(first, "w2", 60.0) is None  # fails the exhausted job; not committed yet
+        second = pool.submit(_claim, database, "w3")  # finds the job still running, waits for the row
+        time.sleep(0.5)
+        first.commit()
+        assert second.result(timeout=60) is None
+    assert _events(database) == [(run_id, "run.failed")]
+
+
+def test_deleting_a_run_while_its_worker_renews_the_lease_waits_for_the_worker_instead_of_deadlocking(database):
+    (run_id,) = _queue_runs(database, 1)
+    job = _claim(database, "w1")
+    with database.session() as worker, ThreadPoolExecutor(max_workers=1) as pool:
+        # The order of queue.heartbeat: the job row, then its run.
+        worker.execute(update(Job).where(Job.id == job.id).values(heartbeat_at=utc_now()))
+        deleting = pool.submit(_delete_run, database, run_id)  # waits for the job row
+        time.sleep(0.5)
+        worker.execute(update(Run).where(Run.id == run_id).values(progress=0.5))
+        worker.commit()
+        deleting.result(timeout=60)
+    with database.session() as session:
+        assert session.get(Run, run_id) is None and session.get(Job, job.id) is None
+
+
+def _delete_run(database: Database, run_id: str) -> None:
+    with database.session() as session:
+        queue.delete_run(session, run_id)

@@ -2,25 +2,27 @@
 
 Access control is on, as in production: :func:`start_service` makes an admin key with the real
 command line (``epoch-assay keys create --role admin``) and :meth:`LiveService.client` sends it.
+With EPOCH_ASSAY_TEST_DATABASE=postgresql each service gets a fresh database of the session's
+PostgreSQL server (``tests.support.postgres``), named by EPOCH_ASSAY_DATABASE_URL in the env of
+its API, worker and command-line processes alike.
 """
 
 import os
-import socket
 import subprocess
 import sys
 import time
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import httpx
+from sqlalchemy import Row, create_engine, text
+
+from tests.support.ports import free_port
+from tests.support.postgres import fresh_database_url
 
 REPO_ROOT = Path(__file__).resolve().parents[2]
-
-
-def free_port() -> int:
-    with socket.socket() as sock:
-        sock.bind(("127.0.0.1", 0))
-        return sock.getsockname()[1]
 
 
 def _spawn(args: list[str], env: dict[str, str], log_path: Path) -> subprocess.Popen:
@@ -80,6 +82,20 @@ class LiveService:
             raise RuntimeError(f"keys revoke failed: {finished.stderr[-2000:]}")
 
     @property
+    def database_url(self) -> str:
+        """The SQLAlchemy URL of the service's database (its SQLite file, or its PostgreSQL database)."""
+        return self.env.get("EPOCH_ASSAY_DATABASE_URL") or f"sqlite:///{(self.data_dir / 'epoch-assay.sqlite3').resolve()}"
+
+    def query(self, statement: str, parameters: Mapping[str, Any] | None = None) -> list[Row]:
+        """The rows of one SQL statement run on the service's database (for checks of what is stored)."""
+        engine = create_engine(self.database_url)
+        try:
+            with engine.connect() as connection:
+                return list(connection.execute(text(statement), dict(parameters or {})))
+        finally:
+            engine.dispose()
+
+    @property
     def log_path(self) -> Path:
         return self.data_dir / "processes.log"
 
@@ -88,8 +104,9 @@ class LiveService:
                           self.env, self.log_path)
         self._wait_healthy()
 
-    def start_worker(self) -> subprocess.Popen:
-        worker = _spawn(["worker", "--data-dir", str(self.data_dir)], self.env, self.log_path)
+    def start_worker(self, data_dir: Path | None = None) -> subprocess.Popen:
+        """A worker on the service's data folder, or on ``data_dir`` (another host's; share the database URL)."""
+        worker = _spawn(["worker", "--data-dir", str(data_dir or self.data_dir)], self.env, self.log_path)
         self.workers.append(worker)
         return worker
 
@@ -133,6 +150,8 @@ def start_service(data_dir: Path, n_workers: int = 1, **settings: str) -> LiveSe
     """
     env = {**os.environ, **{f"EPOCH_ASSAY_{key}": value for key, value in TEST_SETTINGS.items()}}
     env.update({f"EPOCH_ASSAY_{key.upper()}": value for key, value in settings.items()})
+    if "EPOCH_ASSAY_DATABASE_URL" not in env:
+        env.update({"EPOCH_ASSAY_DATABASE_URL": url} if (url := fresh_database_url()) else {})
     service = LiveService(data_dir=data_dir, env=env)
     try:
         service.start_api()
