@@ -6,18 +6,20 @@ Epoch sets are loaded in the calling process, one at a time as their units are s
 handed to the units; each unit opens the cache folder itself, so processes share entries
 through the files. An input that is not an epoch set (a recording, epoched per pipeline)
 is scored pipeline by pipeline with ``score_alone``, still one unit per branch.
+
+Units run in a local process pool (``worker.parallel``) or, when a scheduler address is set,
+on a Dask distributed cluster (``worker.dask_units``); the results are the same either way.
 """
 
-import functools
 from collections.abc import Callable, Iterator, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any, Generic, TypeVar
 
 from worker.engine.epochs import EpochSet
 from worker.engine.pipeline import PipelineSpec
 from worker.engine.tree import LeafOutput, PipelineTree, build_tree, execute_tree
-from worker.parallel import Progress, run_units
+from worker.parallel import Progress, SharedInputUnit, Unit, run_units
 from worker.step_cache import CacheStats, DiskStepCache
 
 Source = TypeVar("Source")
@@ -27,14 +29,20 @@ GIB = 1024**3
 
 @dataclass(frozen=True)
 class ExecutionSettings:
-    """How units run: ``workers`` processes (None: all cores; 1: in the calling process) and the
-    step cache in ``cache_dir`` bounded by ``cache_max_bytes``, keeping the outputs of steps that
-    took at least ``cache_min_step_seconds`` (no cache when ``cache_dir`` is None)."""
+    """How units run: ``workers`` local processes (None: all cores; 1: in the calling process), or
+    on the Dask cluster of the scheduler at ``dask_scheduler`` (``tcp://host:8786``) when it is
+    set, and the step cache in ``cache_dir`` bounded by ``cache_max_bytes``, keeping the outputs of
+    steps that took at least ``cache_min_step_seconds`` (no cache when ``cache_dir`` is None).
+
+    On a cluster each unit opens ``cache_dir`` (made absolute on the calling host) on the host it
+    runs on: a folder shared by the hosts, or a local folder on each (entries are named by
+    content, so either is correct)."""
 
     workers: int | None = None
     cache_dir: Path | None = None
     cache_max_bytes: int = 8 * GIB
     cache_min_step_seconds: float = 0.0
+    dask_scheduler: str | None = None
 
 
 @dataclass(frozen=True)
@@ -72,8 +80,8 @@ class SourceHandlers(Generic[Source]):
 
 
 def run_branch(
-    branch: PipelineTree,
     source: Any,
+    branch: PipelineTree,
     source_sha256: str,
     score_leaf: Callable[[LeafOutput, EpochSet], Entry],
     score_alone: Callable[[PipelineSpec, Any], Entry],
@@ -99,18 +107,20 @@ def execute_multiverse(
 ) -> MultiverseOutcome:
     """Score every pipeline on every source, sharing prefixes, caching steps, in parallel."""
     branches = build_tree(pipelines).branches()
+    if settings.dask_scheduler is not None and settings.cache_dir is not None:
+        # A relative folder would be taken from each Dask worker's own working directory.
+        settings = replace(settings, cache_dir=settings.cache_dir.absolute())
 
-    def units() -> Iterator[Callable[[], UnitOutcome]]:
+    def units() -> Iterator[SharedInputUnit[UnitOutcome]]:
         for source in sources:
             loaded = handlers.load(source)
             for branch in branches:
-                yield functools.partial(
-                    run_branch, branch, loaded, handlers.source_sha256(source), handlers.score_leaf(source),
-                    handlers.score_alone(source), settings,
-                )  # fmt: skip
+                yield SharedInputUnit(run_branch, loaded, (
+                    branch, handlers.source_sha256(source), handlers.score_leaf(source), handlers.score_alone(source),
+                    settings,
+                ))  # fmt: skip
 
-    outcomes = run_units(units(), len(sources) * len(branches), on_progress, workers=settings.workers,
-                         preload=[__name__])
+    outcomes = _run(units(), len(sources) * len(branches), on_progress, settings)
     results = []
     for index in range(len(sources)):
         entries: dict[str, Entry] = {}
@@ -118,3 +128,12 @@ def execute_multiverse(
             entries.update(outcome.entries)
         results.extend(entries[pipeline.name] for pipeline in pipelines)
     return MultiverseOutcome(results=results, cache=sum((o.cache for o in outcomes), CacheStats(0, 0)))
+
+
+def _run(units: Iterator[Unit[UnitOutcome]], total: int, on_progress: Callable[[Progress], None],
+         settings: ExecutionSettings) -> list[UnitOutcome]:
+    if settings.dask_scheduler is None:
+        return run_units(units, total, on_progress, workers=settings.workers, preload=[__name__])
+    from worker.dask_units import run_units_on_dask  # distributed takes a second to import: only when used
+
+    return run_units_on_dask(units, total, on_progress, settings.dask_scheduler)

@@ -1,4 +1,4 @@
-"""Run a run's units (epoch set × tree branch) in worker processes, reporting progress and an ETA.
+"""Run a run's units (epoch set × tree branch) in local worker processes, reporting progress and an ETA.
 
 Units are taken from an iterable as room frees up, so the caller can load an epoch set only
 when its units are about to be submitted: at most ``2 × workers`` units are pending at once.
@@ -9,19 +9,23 @@ from there, so workers do not pay for importing the scientific stack themselves.
 worker the units run in the calling process, without pickling.
 If ``on_progress`` raises (the job is handed back, or its lease was lost), units not yet
 started are cancelled, the ones running finish, and the exception propagates.
+
+The submission loop (:func:`run_bounded`) is shared with the Dask cluster path
+(``worker.dask_units``), which gives it another :class:`UnitBackend`.
 """
 
 import multiprocessing
 import os
 import time
-from collections.abc import Callable, Iterable, Sequence
+from collections.abc import Callable, Collection, Iterable, Sequence
 from concurrent.futures import FIRST_COMPLETED, Future, ProcessPoolExecutor, wait
 from dataclasses import dataclass
-from typing import TypeVar
+from typing import Any, Generic, Protocol, TypeVar
 
 Result = TypeVar("Result")
+Handle = TypeVar("Handle")
 Unit = Callable[[], Result]
-_PENDING_PER_WORKER = 2
+PENDING_PER_WORKER = 2
 
 
 @dataclass(frozen=True)
@@ -41,6 +45,41 @@ class Progress:
         return self.done / self.total if self.total else 1.0
 
 
+@dataclass(frozen=True)
+class SharedInputUnit(Generic[Result]):
+    """A unit that computes ``function(shared, *args)``, where ``shared`` is a large input that
+    consecutive units have in common (one epoch set, for its tree branches).
+
+    Called with no argument it is an ordinary unit; a Dask cluster gets ``shared`` once for all
+    the units that carry the same object, not once per unit.
+    """
+
+    function: Callable[..., Result]
+    shared: Any
+    args: tuple[Any, ...] = ()
+
+    def __call__(self) -> Result:
+        return self.function(self.shared, *self.args)
+
+
+class UnitBackend(Protocol[Handle, Result]):
+    """Where :func:`run_bounded` sends units: ``capacity`` units may be pending at once."""
+
+    capacity: int
+
+    def submit(self, unit: Unit[Result], index: int) -> Handle:
+        """Start unit number ``index``; a handle to wait on."""
+
+    def wait_first(self, pending: Collection[Handle]) -> Iterable[Handle]:
+        """Block until at least one pending unit is finished; the finished ones."""
+
+    def collect(self, handle: Handle) -> Result:
+        """The result of a finished unit (raising what the unit raised)."""
+
+    def cancel(self, pending: Collection[Handle]) -> None:
+        """Drop units still pending when the run stops early."""
+
+
 def default_workers() -> int:
     """All cores this process may use."""
     return len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count() or 1
@@ -56,25 +95,34 @@ def run_units(
     """Run every unit and return their results in the order the units came.
 
     ``units`` are argument-free callables; with more than one worker they must pickle (a
-    module-level function wrapped in ``functools.partial``). ``total`` is the number of units,
-    for progress. ``workers`` defaults to :func:`default_workers`; a single unit runs in this
-    process, since starting a pool would only add to its time. ``preload`` names the modules
-    the units need (taken into account when the first pool of the process starts).
+    module-level function wrapped in ``functools.partial`` or a :class:`SharedInputUnit`).
+    ``total`` is the number of units, for progress. ``workers`` defaults to
+    :func:`default_workers`; a single unit runs in this process, since starting a pool would only
+    add to its time. ``preload`` names the modules the units need (taken into account when the
+    first pool of the process starts).
     """
     workers = default_workers() if workers is None else workers
     if workers < 1:
         raise ValueError("workers must be at least 1")
-    clock = _ProgressClock(total, on_progress)
+    clock = ProgressClock(total, on_progress)
     if min(workers, total) <= 1:
         results = []
         for unit in units:
             results.append(unit())
             clock.unit_done()
         return results
-    return _run_in_pool(units, workers, clock, preload)
+    context = multiprocessing.get_context("forkserver")
+    context.set_forkserver_preload(list(preload))
+    executor = ProcessPoolExecutor(max_workers=workers, mp_context=context)
+    try:
+        return run_bounded(units, _PoolBackend(executor, PENDING_PER_WORKER * workers), clock)
+    finally:
+        executor.shutdown(wait=True, cancel_futures=True)
 
 
-class _ProgressClock:
+class ProgressClock:
+    """Calls ``on_progress`` with a :class:`Progress` each time a unit is done."""
+
     def __init__(self, total: int, on_progress: Callable[[Progress], None]) -> None:
         self._total, self._on_progress = total, on_progress
         self._started = time.monotonic()
@@ -87,31 +135,48 @@ class _ProgressClock:
         self._on_progress(Progress(done=self._done, total=self._total, elapsed_s=elapsed, eta_s=eta))
 
 
-def _run_in_pool(
-    units: Iterable[Unit[Result]], workers: int, clock: _ProgressClock, preload: Sequence[str]
-) -> list[Result]:
+def run_bounded(units: Iterable[Unit[Result]], backend: UnitBackend[Handle, Result],
+                clock: ProgressClock) -> list[Result]:
+    """Submit units while fewer than ``backend.capacity`` are pending, collect each as it finishes
+    and return the results in unit order; on any exception the pending units are cancelled."""
     results: dict[int, Result] = {}
-    pending: dict[Future, int] = {}
+    pending: dict[Handle, int] = {}
     iterator = enumerate(units)
-    context = multiprocessing.get_context("forkserver")
-    context.set_forkserver_preload(list(preload))
-    executor = ProcessPoolExecutor(max_workers=workers, mp_context=context)
     try:
         exhausted = False
         while True:
-            while not exhausted and len(pending) < _PENDING_PER_WORKER * workers:
+            while not exhausted and len(pending) < backend.capacity:
                 item = next(iterator, None)
                 if item is None:
                     exhausted = True
                     break
                 index, unit = item
-                pending[executor.submit(unit)] = index
+                pending[backend.submit(unit, index)] = index
             if not pending:
                 break
-            finished, _ = wait(pending, return_when=FIRST_COMPLETED)
-            for future in finished:
-                results[pending.pop(future)] = future.result()
+            for handle in backend.wait_first(list(pending)):
+                results[pending.pop(handle)] = backend.collect(handle)
                 clock.unit_done()
     finally:
-        executor.shutdown(wait=True, cancel_futures=True)
+        if pending:
+            backend.cancel(list(pending))
     return [results[index] for index in range(len(results))]
+
+
+@dataclass
+class _PoolBackend:
+    executor: ProcessPoolExecutor
+    capacity: int
+
+    def submit(self, unit: Unit[Result], index: int) -> Future:
+        return self.executor.submit(unit)
+
+    def wait_first(self, pending: Collection[Future]) -> Iterable[Future]:
+        return wait(pending, return_when=FIRST_COMPLETED).done
+
+    def collect(self, handle: Future) -> Result:
+        return handle.result()
+
+    def cancel(self, pending: Collection[Future]) -> None:
+        for future in pending:
+            future.cancel()

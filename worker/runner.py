@@ -202,6 +202,7 @@ class Worker:
         execution = ExecutionSettings(
             workers=self.settings.parallel_workers, cache_dir=self.settings.step_cache_dir,
             cache_max_bytes=self.settings.cache_max_bytes, cache_min_step_seconds=self.settings.cache_min_step_seconds,
+            dask_scheduler=self.settings.dask_scheduler,
         )  # fmt: skip
         return execute_run(job.run_id, study_code, spec, refs, self._load, beat.report, execution=execution,
                            on_detail=beat.note_detail)

@@ -78,6 +78,26 @@ def simulated_subject(size: Size, subject: int) -> EpochSet:
                     ch_types=("eeg",) * size.channels, labels=labels)
 
 
+def simulated_study(size: Size) -> tuple[dict[str, EpochSet], list[EpochSetRef]]:
+    """The simulated epoch sets by id, and the run's references to them (in subject order)."""
+    sets = {f"es_{s:02d}": simulated_subject(size, s) for s in range(size.subjects)}
+    refs = [EpochSetRef(id=key, subject=f"sub-{i:02d}", session=None, sha256=f"{i:064x}") for i, key in enumerate(sets)]
+    return sets, refs
+
+
+def grid_spec(size: Size, window_s: tuple[float, float]) -> dict:
+    """The grid run's spec, with its expanded pipelines listed as the service stores them."""
+    pipelines = [point.pipeline.model_dump(mode="json") for point in expand_grid(grid(size))]
+    return {"grid": grid(size).model_dump(mode="json"), "pipelines": pipelines, "scoring": scoring(window_s)}
+
+
+def worker_execution(cache_dir: Path, **options: object) -> ExecutionSettings:
+    """The worker's default step cache settings, with the cache in ``cache_dir``, and ``options``."""
+    defaults = Settings()
+    return ExecutionSettings(cache_dir=cache_dir, cache_max_bytes=defaults.cache_max_bytes,
+                             cache_min_step_seconds=defaults.cache_min_step_seconds, **options)
+
+
 def scoring(window_s: tuple[float, float]) -> dict:
     return {"conditions": list(CONDITIONS), "window_s": list(window_s), "alpha": 0.05, "correction": "fdr_bh",
             "time_course": None}
@@ -102,8 +122,7 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="tiny smoke run")
     size = QUICK if parser.parse_args().quick else FULL
-    sets = {f"es_{s:02d}": simulated_subject(size, s) for s in range(size.subjects)}
-    refs = [EpochSetRef(id=key, subject=f"sub-{i:02d}", session=None, sha256=f"{i:064x}") for i, key in enumerate(sets)]
+    sets, refs = simulated_study(size)
     points = expand_grid(grid(size))
     pipelines = [point.pipeline.model_dump(mode="json") for point in points]
 
@@ -111,10 +130,7 @@ def main() -> None:
         return sets[ref.id]
 
     def grid_run(cache_dir: Path, window_s: tuple[float, float]) -> Callable[[], dict]:
-        spec = {"grid": grid(size).model_dump(mode="json"), "pipelines": pipelines, "scoring": scoring(window_s)}
-        defaults = Settings()
-        execution = ExecutionSettings(workers=1, cache_dir=cache_dir, cache_max_bytes=defaults.cache_max_bytes,
-                                      cache_min_step_seconds=defaults.cache_min_step_seconds)
+        spec, execution = grid_spec(size, window_s), worker_execution(cache_dir, workers=1)
         return lambda: execute_run("run_grid", "BENCH", spec, refs, load, lambda _: None, execution=execution)
 
     def independent_runs() -> list[dict]:
