@@ -72,6 +72,20 @@ def _prepare(settings: Settings) -> None:
     upgrade_to_head(settings.resolved_database_url)
 
 
+def _check_blob_store(settings: Settings) -> None:
+    """Stop with one line when the blob store cannot be written (unreachable, wrong keys, no bucket, read-only)."""
+    from service.storage.blobs import open_blob_store
+
+    try:
+        open_blob_store(settings).probe()
+    except Exception as error:  # whatever the store's driver raises, said in one line
+        where = f"EPOCH_ASSAY_BLOB_URL={settings.blob_url}" if settings.blob_url else f"the folder {settings.blob_dir}"
+        raise SystemExit(
+            f"epoch-assay: cannot write to the blob store ({where}): {type(error).__name__}: {error}. Check that it "
+            "is reachable and writable, and for s3:// the bucket, AWS_ENDPOINT_URL and the keys"
+        ) from None
+
+
 def _storage_argv(settings: Settings) -> list[str]:
     return ["--data-dir", str(settings.data_dir), "--database-url", settings.resolved_database_url]
 
@@ -89,6 +103,7 @@ def cmd_api(args: argparse.Namespace) -> int:
     settings = _settings(args)
     _refuse_open_off_loopback(settings, args.host)
     _prepare(settings)
+    _check_blob_store(settings)
     _serve_api(settings, args.host, args.port)
     return 0
 
@@ -97,6 +112,7 @@ def cmd_serve(args: argparse.Namespace) -> int:
     settings = _settings(args)
     _refuse_open_off_loopback(settings, args.host)
     _prepare(settings)
+    _check_blob_store(settings)
     # uvicorn re-raises the signal that stopped it once it is done; exiting through SystemExit (rather
     # than dying of the signal) lets the finally below stop the worker instead of leaving it orphaned.
     for stop_signal in (signal.SIGTERM, signal.SIGINT):
@@ -126,7 +142,9 @@ def _stop_child(process: subprocess.Popen, timeout_s: float = 60.0) -> None:
 def cmd_worker(args: argparse.Namespace) -> int:
     from worker.runner import Worker
 
-    Worker(_settings(args)).run_forever()
+    settings = _settings(args)
+    _check_blob_store(settings)
+    Worker(settings).run_forever()
     return 0
 
 

@@ -77,6 +77,11 @@ class FsspecBlobStore(BlobStore):
     def exists(self, sha256: str) -> bool:
         return self.fs.isfile(self.key(sha256))
 
+    def probe(self) -> None:
+        probe = self._aside("probe", "start")
+        self.fs.pipe_file(probe, b"probe")
+        self.fs.rm_file(probe)
+
     def commit(self, staged: StagedBlob) -> None:
         target = self.key(staged.sha256)
         if self.fs.isfile(target):

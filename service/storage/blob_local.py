@@ -30,6 +30,11 @@ class LocalBlobStore(BlobStore):
     def exists(self, sha256: str) -> bool:
         return self.path(sha256).is_file()
 
+    def probe(self) -> None:
+        probe = self.staging_dir / f"probe-{secrets.token_hex(8)}"
+        probe.write_bytes(b"probe")
+        probe.unlink()
+
     def commit(self, staged: StagedBlob) -> None:
         target = self.path(staged.sha256)
         target.parent.mkdir(parents=True, exist_ok=True)

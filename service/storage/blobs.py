@@ -133,6 +133,12 @@ class BlobStore(ABC):
         """
 
     @abstractmethod
+    def probe(self) -> None:
+        """Write a few bytes in the store's ``tmp`` area and remove them, so a store that is unreachable, refuses
+        the credentials or cannot be written is found when a process starts rather than at the first upload;
+        raises what the store's driver raised."""
+
+    @abstractmethod
     def discard(self, sha256: str, still_referenced: Callable[[], bool]) -> bool:
         """Remove the blob unless ``still_referenced()`` (asked after it is out of sight) is true.
 

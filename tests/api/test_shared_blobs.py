@@ -163,3 +163,20 @@ def test_a_store_that_cannot_keep_a_file_answers_503_and_stores_nothing(tmp_path
             assert upload(http, "FULL-01", content).status_code == 201
     finally:
         service.stop()
+
+
+@pytest.mark.parametrize("command", ["api", "worker"])
+def test_a_store_that_cannot_be_written_stops_the_process_at_start_with_one_line(tmp_path, command):
+    server = S3Server(tmp_path / "moto.log")
+    server.start()
+    try:
+        env = {key: value for key, value in os.environ.items() if not key.startswith("EPOCH_ASSAY_")}
+        env |= server.env | {"EPOCH_ASSAY_BLOB_URL": "s3://no-such-bucket/blobs", "EPOCH_ASSAY_LOG_LEVEL": "WARNING"}
+        port = ["--port", str(free_port())] if command == "api" else []
+        finished = run_cli([command, "--data-dir", str(tmp_path), *port], env, timeout_s=120)
+    finally:
+        server.stop()
+    assert finished.returncode != 0
+    [line] = finished.stderr.strip().splitlines()
+    assert line.startswith("epoch-assay: cannot write to the blob store (EPOCH_ASSAY_BLOB_URL=s3://no-such-bucket/blobs)")
+    assert "bucket" in line and "Traceback" not in finished.stderr

@@ -107,6 +107,11 @@ def test_a_committed_blob_reads_back_under_its_sha256(under_test):
     assert _read(under_test.store, sha256) == b"epochs"
 
 
+def test_the_start_up_probe_writes_and_leaves_nothing(under_test):
+    under_test.store.probe()
+    assert under_test.everything() == []
+
+
 def test_the_same_bytes_are_stored_once(under_test):
     first = _stored(under_test.store, b"same bytes")
     second = _stored(under_test.store, b"same bytes")
