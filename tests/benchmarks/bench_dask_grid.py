@@ -5,8 +5,9 @@ Each configuration runs the grid through ``worker.run_job.execute_run`` (the fun
 runs) with a fresh, empty step cache and the worker's cache settings; with ``--repeat N`` the
 configurations take turns N times and the best time of each counts, which evens out other load on a
 shared machine. The clusters are ``distributed.LocalCluster``s of one-thread worker processes on
-127.0.0.1, started before the clock starts, so the figures are the runs, not the start-up; the local
-pool starts within its time, as the worker starts one for each run. The script prints each wall time,
+127.0.0.1, each started before its clock starts and closed after its run, so the figures are the
+runs, not the start-up, and no idle cluster shares the machine with another run; the local pool
+starts within its time, as the worker starts one for each run. The script prints each wall time,
 its speed-up over one Dask worker, and checks that every configuration gives the same significant
 fractions.
 A machine with N cores cannot speed up past N workers; the script says how many cores this one has.
@@ -17,11 +18,13 @@ A machine with N cores cannot speed up past N workers; the script says how many 
 """
 
 import argparse
+import functools
 import os
 import sys
 import tempfile
 import time
-from contextlib import ExitStack
+from collections.abc import Callable, Iterator
+from contextlib import AbstractContextManager, contextmanager, nullcontext
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
@@ -63,19 +66,17 @@ def main() -> None:
     print(f"{len(spec['pipelines'])} pipelines × {size.subjects} subjects of {size.channels} channels, "
           f"{size.trials} trials, 1 s at {size.sfreq:g} Hz; {cores} cores on this machine; "
           f"best of {args.repeat} run(s) each; load average before {os.getloadavg()[0]:.1f}", flush=True)
-    with ExitStack() as stack:
-        configurations: dict[str, dict[str, object]] = {}
-        for n in DASK_WORKERS:
-            cluster = stack.enter_context(LocalCluster(n_workers=n, processes=True, threads_per_worker=1,
-                                                       host="127.0.0.1", dashboard_address="127.0.0.1:0"))
-            configurations[f"Dask, {n} worker{'s' if n > 1 else ''}"] = {"dask_scheduler": cluster.scheduler_address}
-        configurations[f"local pool, {cores} processes"] = {"workers": cores}
-        seconds = {label: float("inf") for label in configurations}
-        documents: dict[str, dict] = {}
-        for _ in range(args.repeat):
-            for label, options in configurations.items():
+    configurations: dict[str, Callable[[], AbstractContextManager[dict[str, object]]]] = {
+        f"Dask, {n} worker{'s' if n > 1 else ''}": functools.partial(_on_cluster, n) for n in DASK_WORKERS
+    }
+    configurations[f"local pool, {cores} processes"] = functools.partial(nullcontext, {"workers": cores})
+    seconds = {label: float("inf") for label in configurations}
+    documents: dict[str, dict] = {}
+    for _ in range(args.repeat):
+        for label, started_configuration in configurations.items():
+            with started_configuration() as options:
                 documents[label], run_s = timed_run(**options)
-                seconds[label] = min(seconds[label], run_s)
+            seconds[label] = min(seconds[label], run_s)
     one_worker = seconds["Dask, 1 worker"]
     for label, run_s in seconds.items():
         print(f"{label:<24} {run_s:8.1f} s   speed-up over 1 Dask worker {one_worker / run_s:5.2f} x")
@@ -86,6 +87,15 @@ def main() -> None:
     if max(DASK_WORKERS) > cores:
         print(f"note: {max(DASK_WORKERS)} Dask workers share {cores} cores here, so they cannot beat {cores}; "
               "more workers pay off only on more cores or more hosts")
+
+
+@contextmanager
+def _on_cluster(n_workers: int) -> Iterator[dict[str, object]]:
+    """A LocalCluster of ``n_workers`` one-thread processes for one timed run, closed after it, so no idle
+    cluster shares the machine with another configuration's run."""
+    with LocalCluster(n_workers=n_workers, processes=True, threads_per_worker=1, host="127.0.0.1",
+                      dashboard_address="127.0.0.1:0") as cluster:
+        yield {"dask_scheduler": cluster.scheduler_address}
 
 
 if __name__ == "__main__":
