@@ -16,6 +16,8 @@ The submission loop (:func:`run_bounded`) is shared with the Dask cluster path
 
 import multiprocessing
 import os
+import select
+import threading
 import time
 from collections.abc import Callable, Collection, Iterable, Sequence
 from concurrent.futures import FIRST_COMPLETED, Future, ProcessPoolExecutor, wait
@@ -113,11 +115,43 @@ def run_units(
         return results
     context = multiprocessing.get_context("forkserver")
     context.set_forkserver_preload(list(preload))
-    executor = ProcessPoolExecutor(max_workers=workers, mp_context=context)
+    executor = ProcessPoolExecutor(max_workers=workers, mp_context=context, initializer=exit_with,
+                                   initargs=(os.getpid(),))
     try:
         return run_bounded(units, _PoolBackend(executor, PENDING_PER_WORKER * workers), clock)
     finally:
         executor.shutdown(wait=True, cancel_futures=True)
+
+
+def exit_with(owner_pid: int) -> None:
+    """Make this pool process exit as soon as the process ``owner_pid`` (the one that started the pool) ends.
+
+    A pool process waits on a queue it holds both ends of, so it would outlive an owner killed outright
+    (SIGKILL, the OOM killer), and keep the fork server alive with it. A daemon thread waits on a pidfd
+    of the owner (exact, even if its pid is reused), or polls it each second where pidfds are missing.
+    """
+    threading.Thread(target=_wait_for_exit, args=(owner_pid,), name="exit-with-owner", daemon=True).start()
+
+
+def _wait_for_exit(owner_pid: int) -> None:
+    try:
+        handle = os.pidfd_open(owner_pid)
+    except (AttributeError, OSError):
+        while _is_running(owner_pid):
+            time.sleep(1.0)
+    else:
+        select.select([handle], [], [])
+    os._exit(0)
+
+
+def _is_running(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
 
 
 class ProgressClock:
