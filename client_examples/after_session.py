@@ -53,9 +53,14 @@ def upload(http: httpx.Client, study: str, subject: str, session: str, path: Pat
     content = path.read_bytes()
     key = "upload-" + hashlib.sha256(f"{study}/{subject}/{session}/".encode() + content).hexdigest()[:40]
     # The file is re-sent as bytes on each attempt (an open file would be read to its end by the first one).
-    answer = request_with_retries(http, "POST", f"/v1/studies/{study}/epoch-sets", key=key,
-                                  data={"subject": subject, "session": session},
-                                  files={"file": (path.name, content, "application/octet-stream")})
+    answer = request_with_retries(
+        http,
+        "POST",
+        f"/v1/studies/{study}/epoch-sets",
+        key=key,
+        data={"subject": subject, "session": session},
+        files={"file": (path.name, content, "application/octet-stream")},
+    )
     stored = expect(answer, 200, 201)
     print(f"{subject}: {'uploaded' if answer.status_code == 201 else 'already there'} as {stored['id']}")
     return stored["id"]
@@ -81,8 +86,11 @@ def print_summary(document: dict) -> None:
     """Per pipeline: epoch sets scored and the mean share of significant channels."""
     print(f"{'pipeline':<24} {'scored':>6} {'mean significant':>17}")
     for pipeline in document["provenance"]["pipeline_hashes"]:
-        fractions = [entry["significant_fraction"] for entry in document["results"]
-                     if entry["pipeline"] == pipeline and entry.get("significant_fraction") is not None]
+        fractions = [
+            entry["significant_fraction"]
+            for entry in document["results"]
+            if entry["pipeline"] == pipeline and entry.get("significant_fraction") is not None
+        ]
         mean = f"{sum(fractions) / len(fractions):.2f}" if fractions else "-"
         print(f"{pipeline:<24} {len(fractions):>6} {mean:>17}")
 

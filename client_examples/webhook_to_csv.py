@@ -25,8 +25,18 @@ from pathlib import Path
 from threading import Lock
 
 TOLERANCE_S = 300
-COLUMNS = ["event_id", "event", "run", "study", "status", "finished_at", "pipeline", "epoch_sets_scored",
-           "mean_significant_fraction", "error"]
+COLUMNS = [
+    "event_id",
+    "event",
+    "run",
+    "study",
+    "status",
+    "finished_at",
+    "pipeline",
+    "epoch_sets_scored",
+    "mean_significant_fraction",
+    "error",
+]
 
 
 def signature_is_valid(secret: str, header: str, body: bytes, now: float) -> bool:
@@ -41,8 +51,9 @@ def signature_is_valid(secret: str, header: str, body: bytes, now: float) -> boo
 
 
 def fetch_result(base_url: str, token: str | None, run_id: str) -> dict:
-    request = urllib.request.Request(f"{base_url.rstrip('/')}/v1/runs/{run_id}/result",
-                                     headers={"Authorization": f"Bearer {token}"} if token else {})
+    request = urllib.request.Request(
+        f"{base_url.rstrip('/')}/v1/runs/{run_id}/result", headers={"Authorization": f"Bearer {token}"} if token else {}
+    )
     with urllib.request.urlopen(request, timeout=60) as answer:
         return json.load(answer)
 
@@ -50,17 +61,28 @@ def fetch_result(base_url: str, token: str | None, run_id: str) -> dict:
 def summary_rows(event: dict, document: dict | None) -> list[dict]:
     """One row per pipeline for a succeeded run; one row without a pipeline for a failed one."""
     run = event["data"]["run"]
-    base = {"event_id": event["id"], "event": event["type"], "run": run["id"], "study": run["study"],
-            "status": run["status"], "finished_at": run["finished_at"], "error": run.get("error") or ""}
+    base = {
+        "event_id": event["id"],
+        "event": event["type"],
+        "run": run["id"],
+        "study": run["study"],
+        "status": run["status"],
+        "finished_at": run["finished_at"],
+        "error": run.get("error") or "",
+    }
     if document is None:
         return [base | {"pipeline": "", "epoch_sets_scored": 0, "mean_significant_fraction": ""}]
     rows = []
     for pipeline in run["pipelines"]:
-        fractions = [entry["significant_fraction"] for entry in document["results"]
-                     if entry["pipeline"] == pipeline and entry.get("significant_fraction") is not None]
+        fractions = [
+            entry["significant_fraction"]
+            for entry in document["results"]
+            if entry["pipeline"] == pipeline and entry.get("significant_fraction") is not None
+        ]
         mean = f"{sum(fractions) / len(fractions):.4f}" if fractions else ""
-        rows.append(base | {"pipeline": pipeline, "epoch_sets_scored": len(fractions),
-                            "mean_significant_fraction": mean})
+        rows.append(
+            base | {"pipeline": pipeline, "epoch_sets_scored": len(fractions), "mean_significant_fraction": mean}
+        )
     return rows
 
 
@@ -89,7 +111,7 @@ class CsvLog:
 
 def make_handler(secret: str, base_url: str, token: str | None, log: CsvLog) -> type[BaseHTTPRequestHandler]:
     class Handler(BaseHTTPRequestHandler):
-        def do_POST(self) -> None:  # noqa: N802 - the name http.server calls
+        def do_POST(self) -> None:
             body = self.rfile.read(int(self.headers.get("Content-Length", 0)))
             if not signature_is_valid(secret, self.headers.get("Epoch-Assay-Signature", ""), body, time.time()):
                 self._answer(401, "bad or stale signature")
@@ -109,7 +131,7 @@ def make_handler(secret: str, base_url: str, token: str | None, log: CsvLog) -> 
             self.end_headers()
             self.wfile.write(payload)
 
-        def log_message(self, format: str, *args: object) -> None:  # noqa: A002 - http.server's name
+        def log_message(self, format: str, *args: object) -> None:
             print(f"{self.address_string()} {format % args}", file=sys.stderr)
 
     return Handler
@@ -124,8 +146,12 @@ def main() -> int:
     secret = os.environ.get("EPOCH_ASSAY_WEBHOOK_SECRET")
     if not secret:
         sys.exit("set EPOCH_ASSAY_WEBHOOK_SECRET to the secret shown when the webhook was registered")
-    handler = make_handler(secret, os.environ.get("EPOCH_ASSAY_URL", "http://127.0.0.1:8000"),
-                           os.environ.get("EPOCH_ASSAY_TOKEN"), CsvLog(args.csv))
+    handler = make_handler(
+        secret,
+        os.environ.get("EPOCH_ASSAY_URL", "http://127.0.0.1:8000"),
+        os.environ.get("EPOCH_ASSAY_TOKEN"),
+        CsvLog(args.csv),
+    )
     server = ThreadingHTTPServer((args.host, args.port), handler)
     print(f"listening on http://{args.host}:{server.server_address[1]}/", flush=True)
     try:

@@ -54,10 +54,12 @@ def add_client_parser(commands: argparse._SubParsersAction) -> None:
     report.set_defaults(handler=cmd_report)
 
     for action in (upload, run, status, result, report):
-        action.add_argument("--url", default=os.environ.get("EPOCH_ASSAY_URL", DEFAULT_URL),
-                            help=f"server URL (EPOCH_ASSAY_URL, default {DEFAULT_URL})")
-        action.add_argument("--token", default=os.environ.get("EPOCH_ASSAY_TOKEN"),
-                            help="API key (EPOCH_ASSAY_TOKEN)")
+        action.add_argument(
+            "--url",
+            default=os.environ.get("EPOCH_ASSAY_URL", DEFAULT_URL),
+            help=f"server URL (EPOCH_ASSAY_URL, default {DEFAULT_URL})",
+        )
+        action.add_argument("--token", default=os.environ.get("EPOCH_ASSAY_TOKEN"), help="API key (EPOCH_ASSAY_TOKEN)")
         action.add_argument("--json", action="store_true", help="print the server's JSON instead of a table")
         action.add_argument("--poll-seconds", type=float, default=1.0, help=argparse.SUPPRESS)
 
@@ -75,8 +77,7 @@ def _call(args: argparse.Namespace, method: str, path: str, *statuses: int, **re
     except httpx.HTTPError as error:
         raise SystemExit(f"epoch-assay client: cannot reach {args.url}: {error}") from None
     if answer.status_code not in statuses:
-        raise SystemExit(f"epoch-assay client: {method} {path} answered {answer.status_code}: "
-                         f"{problem_detail(answer)}")
+        raise SystemExit(f"epoch-assay client: {method} {path} answered {answer.status_code}: {problem_detail(answer)}")
     return answer
 
 
@@ -87,15 +88,24 @@ def _print_json(value: Any) -> None:
 def cmd_upload(args: argparse.Namespace) -> int:
     data = {"subject": args.subject} | ({"session": args.session} if args.session else {})
     with args.file.open("rb") as handle:
-        answer = _call(args, "POST", f"/v1/studies/{args.study}/epoch-sets", 200, 201, data=data,
-                       files={"file": (args.file.name, handle, "application/octet-stream")})
+        answer = _call(
+            args,
+            "POST",
+            f"/v1/studies/{args.study}/epoch-sets",
+            200,
+            201,
+            data=data,
+            files={"file": (args.file.name, handle, "application/octet-stream")},
+        )
     stored = answer.json()
     if args.json:
         _print_json(stored)
     else:
         state = "uploaded" if answer.status_code == 201 else "already stored"
         counts = ", ".join(f"{label} {count}" for label, count in stored["conditions"].items())
-        print(f"{stored['id']}  {state}  subject {stored['subject']}  trials: {counts}  channels {stored['n_channels']}")
+        print(
+            f"{stored['id']}  {state}  subject {stored['subject']}  trials: {counts}  channels {stored['n_channels']}"
+        )
     return 0
 
 
@@ -120,8 +130,10 @@ def cmd_status(args: argparse.Namespace) -> int:
     if args.json:
         _print_json(state)
     else:
-        print(f"{state['id']}  {state['status']}  {state['progress']:.0%}"
-              + (f"  error: {state['error']}" if state.get("error") else ""))
+        print(
+            f"{state['id']}  {state['status']}  {state['progress']:.0%}"
+            + (f"  error: {state['error']}" if state.get("error") else "")
+        )
     return 0 if state["status"] != "failed" else 1
 
 
@@ -166,5 +178,5 @@ def follow(args: argparse.Namespace, run_id: str, stream: TextIO | None = None) 
 
 def progress_bar(progress: float, status: str) -> str:
     """``[#########.....................]  30%  running`` for ``progress`` in [0, 1]."""
-    filled = int(round(max(0.0, min(1.0, progress)) * BAR_WIDTH))
+    filled = round(max(0.0, min(1.0, progress)) * BAR_WIDTH)
     return f"[{'#' * filled}{'.' * (BAR_WIDTH - filled)}] {progress:4.0%}  {status:<9}"

@@ -78,8 +78,10 @@ class BodySizeLimit:
 
 
 def _too_large_detail(limit: int) -> str:
-    return (f"the request body is larger than the limit of {limit} bytes; split the upload or ask the "
-            "operator to raise EPOCH_ASSAY_MAX_UPLOAD_BYTES / EPOCH_ASSAY_MAX_JSON_BODY_BYTES")
+    return (
+        f"the request body is larger than the limit of {limit} bytes; split the upload or ask the "
+        "operator to raise EPOCH_ASSAY_MAX_UPLOAD_BYTES / EPOCH_ASSAY_MAX_JSON_BODY_BYTES"
+    )
 
 
 def create_app(settings: Settings) -> FastAPI:
@@ -94,8 +96,9 @@ def create_app(settings: Settings) -> FastAPI:
     for module in (health, studies, locked_pipelines, epoch_set_json, epoch_sets, recordings, runs, webhooks, reports):
         app.include_router(module.router)
     install_problem_openapi(app)
-    app.add_middleware(BodySizeLimit, max_upload_bytes=settings.max_upload_bytes,
-                       max_json_bytes=settings.max_json_body_bytes)
+    app.add_middleware(
+        BodySizeLimit, max_upload_bytes=settings.max_upload_bytes, max_json_bytes=settings.max_json_body_bytes
+    )
     # Added last, so it is outermost: it sees (and times) the 413 answers of the size limit too.
     app.add_middleware(RequestContext, metrics=app.state.metrics)
     return app

@@ -9,9 +9,9 @@ from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException as StarletteHTTPException
 from starlette.routing import compile_path
 
+from epoch_assay.engine.errors import EpochSetFormatError, EpochSetTooLargeError, SpecError
 from service.logs import request_id_var
 from service.storage.blobs import BlobStoreUnavailable
-from worker.engine.errors import EpochSetFormatError, EpochSetTooLargeError, SpecError
 
 PROBLEM_JSON = "application/problem+json"
 _FASTAPI_BODY_PARSE_ERROR = "There was an error parsing the body"
@@ -25,8 +25,9 @@ class ApiError(Exception):
     slug = "bad-request"
     title = "Bad request"
 
-    def __init__(self, detail: str, *, errors: list[dict[str, Any]] | None = None,
-                 headers: dict[str, str] | None = None) -> None:
+    def __init__(
+        self, detail: str, *, errors: list[dict[str, Any]] | None = None, headers: dict[str, str] | None = None
+    ) -> None:
         super().__init__(detail)
         self.detail = detail
         self.errors = errors
@@ -72,8 +73,9 @@ class ServiceUnavailable(ApiError):
     status, slug, title = 503, "not-ready", "Service not ready"
 
 
-def problem(status: int, slug: str, title: str, detail: str, headers: dict[str, str] | None = None,
-            **extra: Any) -> JSONResponse:
+def problem(
+    status: int, slug: str, title: str, detail: str, headers: dict[str, str] | None = None, **extra: Any
+) -> JSONResponse:
     """A problem+json response (RFC 9457)."""
     body = {"type": f"urn:epoch-assay:problem:{slug}", "title": title, "status": status, "detail": detail}
     body.update({key: value for key, value in extra.items() if value is not None})
@@ -92,8 +94,10 @@ def format_error_to_unprocessable(error: EpochSetFormatError) -> Unprocessable:
 
 
 def too_large_to_payload_error(error: EpochSetTooLargeError) -> PayloadTooLarge:
-    return PayloadTooLarge(f"{error}; split the epoch set (for example per session) or ask the operator to raise "
-                           "EPOCH_ASSAY_MAX_ARRAY_BYTES")
+    return PayloadTooLarge(
+        f"{error}; split the epoch set (for example per session) or ask the operator to raise "
+        "EPOCH_ASSAY_MAX_ARRAY_BYTES"
+    )
 
 
 def _describe_validation_errors(errors: list[dict[str, Any]]) -> str:
@@ -133,15 +137,20 @@ def install_problem_handlers(app: FastAPI) -> None:
             {"loc": list(item.get("loc", ())), "msg": item.get("msg", ""), "type": item.get("type", "")}
             for item in error.errors()
         ]
-        return problem(422, "validation", "Request does not match the schema", _describe_validation_errors(errors),
-                       errors=errors)
+        return problem(
+            422, "validation", "Request does not match the schema", _describe_validation_errors(errors), errors=errors
+        )
 
     @app.exception_handler(StarletteHTTPException)
     async def _http_error(request: Request, error: StarletteHTTPException) -> JSONResponse:
         if error.status_code == 400 and error.detail == _FASTAPI_BODY_PARSE_ERROR:
-            return problem(400, "malformed-body", "Malformed body",
-                           "the request body could not be parsed: send JSON (UTF-8) with Content-Type: "
-                           "application/json, or a multipart form for uploads")
+            return problem(
+                400,
+                "malformed-body",
+                "Malformed body",
+                "the request body could not be parsed: send JSON (UTF-8) with Content-Type: "
+                "application/json, or a multipart form for uploads",
+            )
         headers = error.headers
         if error.status_code == 405:
             headers = {**(headers or {}), "Allow": ", ".join(_allowed_methods(request))}
@@ -151,6 +160,10 @@ def install_problem_handlers(app: FastAPI) -> None:
     @app.exception_handler(Exception)
     async def _bug(request: Request, error: Exception) -> JSONResponse:
         log.exception("unhandled error on %s %s", request.method, request.url.path)
-        return problem(500, "internal", "Internal server error",
-                       "the server hit a bug; the request was not applied. Please report it with the request id",
-                       request_id=request_id_var.get())
+        return problem(
+            500,
+            "internal",
+            "Internal server error",
+            "the server hit a bug; the request was not applied. Please report it with the request id",
+            request_id=request_id_var.get(),
+        )

@@ -31,22 +31,39 @@ class ServiceMetrics:
     def __init__(self, worker_stale_seconds: float) -> None:
         self.registry = CollectorRegistry()
         self._stale = timedelta(seconds=worker_stale_seconds)
-        self.http_requests = Counter("epoch_assay_http_requests", "HTTP requests answered.",
-                                     ["method", "route", "status"], registry=self.registry)
-        self.http_latency = Histogram("epoch_assay_http_request_duration_seconds", "Time to answer a request.",
-                                      ["method", "route"], registry=self.registry)
+        self.http_requests = Counter(
+            "epoch_assay_http_requests",
+            "HTTP requests answered.",
+            ["method", "route", "status"],
+            registry=self.registry,
+        )
+        self.http_latency = Histogram(
+            "epoch_assay_http_request_duration_seconds",
+            "Time to answer a request.",
+            ["method", "route"],
+            registry=self.registry,
+        )
         self.queue_depth = Gauge("epoch_assay_queue_depth", "Jobs waiting to be claimed.", registry=self.registry)
-        self.oldest_queued = Gauge("epoch_assay_queue_oldest_age_seconds",
-                                   "Age of the oldest waiting job (0 when none waits).", registry=self.registry)
+        self.oldest_queued = Gauge(
+            "epoch_assay_queue_oldest_age_seconds",
+            "Age of the oldest waiting job (0 when none waits).",
+            registry=self.registry,
+        )
         self.runs = Gauge("epoch_assay_runs", "Runs by state.", ["status"], registry=self.registry)
         self.workers = Gauge("epoch_assay_workers_alive", "Workers heard from recently.", registry=self.registry)
-        self.deliveries = Gauge("epoch_assay_webhook_deliveries", "Webhook deliveries by state.", ["status"],
-                                registry=self.registry)
-        self.runs_finished = Counter("epoch_assay_runs_finished", "Runs that finished, by outcome.", ["status"],
-                                     registry=self.registry)
-        self.run_duration = Histogram("epoch_assay_run_duration_seconds",
-                                      "Time from the start of a run's last attempt to its end.", ["status"],
-                                      buckets=RUN_DURATION_BUCKETS, registry=self.registry)
+        self.deliveries = Gauge(
+            "epoch_assay_webhook_deliveries", "Webhook deliveries by state.", ["status"], registry=self.registry
+        )
+        self.runs_finished = Counter(
+            "epoch_assay_runs_finished", "Runs that finished, by outcome.", ["status"], registry=self.registry
+        )
+        self.run_duration = Histogram(
+            "epoch_assay_run_duration_seconds",
+            "Time from the start of a run's last attempt to its end.",
+            ["status"],
+            buckets=RUN_DURATION_BUCKETS,
+            registry=self.registry,
+        )
         for status in (queue.SUCCEEDED, queue.FAILED):
             self.runs_finished.labels(status)
         self._lock = threading.Lock()
@@ -68,7 +85,8 @@ class ServiceMetrics:
             runs = session.execute(select(Run.status, func.count()).group_by(Run.status)).tuples()
             self._set_by_status(self.runs, RUN_STATUSES, dict(runs.all()))
             deliveries = session.execute(
-                select(WebhookDelivery.status, func.count()).group_by(WebhookDelivery.status)).tuples()
+                select(WebhookDelivery.status, func.count()).group_by(WebhookDelivery.status)
+            ).tuples()
             self._set_by_status(self.deliveries, DELIVERY_STATUSES, dict(deliveries.all()))
             self.workers.set(queue.workers_seen_since(session, now - self._stale))
             self._count_finished_runs(session)
@@ -80,8 +98,9 @@ class ServiceMetrics:
 
     def _count_finished_runs(self, session: Session) -> None:
         rows = session.execute(
-            select(Run.id, Run.status, Run.started_at, Run.finished_at)
-            .where(Run.finished_at >= self._scan_from(), Run.status.in_((queue.SUCCEEDED, queue.FAILED)))
+            select(Run.id, Run.status, Run.started_at, Run.finished_at).where(
+                Run.finished_at >= self._scan_from(), Run.status.in_((queue.SUCCEEDED, queue.FAILED))
+            )
         ).all()
         for run_id, status, started_at, finished_at in rows:
             if run_id in self._counted:

@@ -55,7 +55,17 @@ class RequestContext:
             # The route's template, not the raw path, so the metric has a bounded set of labels.
             template = getattr(route, "path", "unmatched")
             self.metrics.observe_request(scope["method"], template, status, seconds)
-            access_log.info("%s %s %d", scope["method"], scope["path"], status, extra={
-                "method": scope["method"], "path": scope["path"], "route": template, "status": status,
-                "duration_ms": round(seconds * 1000, 2), "caller": scope.get("state", {}).get("caller_id"),
-            })
+            access_log.info(
+                "%s %s %d",
+                scope["method"],
+                scope["path"],
+                status,
+                extra={
+                    "method": scope["method"],
+                    "path": scope["path"],
+                    "route": template,
+                    "status": status,
+                    "duration_ms": round(seconds * 1000, 2),
+                    "caller": scope.get("state", {}).get("caller_id"),
+                },
+            )

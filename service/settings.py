@@ -25,7 +25,9 @@ class Settings(BaseSettings):
         4096 * MIB, gt=0, description="Largest total size of the arrays an uploaded file may declare, in bytes."
     )
     max_json_body_bytes: int = Field(8 * MIB, gt=0, description="Largest JSON request body (run specs), in bytes.")
-    lease_seconds: float = Field(60.0, gt=1.0, le=3600.0, description="How long a claimed job is held without a heartbeat.")
+    lease_seconds: float = Field(
+        60.0, gt=1.0, le=3600.0, description="How long a claimed job is held without a heartbeat."
+    )
     heartbeat_seconds: float = Field(10.0, gt=0.1, description="How often a running worker renews its lease.")
     poll_seconds: float = Field(0.5, gt=0.0, description="How often an idle worker looks for a job.")
     max_attempts: int = Field(
@@ -42,7 +44,9 @@ class Settings(BaseSettings):
     webhook_backoff_seconds: float = Field(
         10.0, gt=0.0, description="Wait after the first failed delivery; doubled at each further attempt."
     )
-    webhook_backoff_max_seconds: float = Field(3600.0, gt=0.0, description="Longest wait between two delivery attempts.")
+    webhook_backoff_max_seconds: float = Field(
+        3600.0, gt=0.0, description="Longest wait between two delivery attempts."
+    )
     webhook_timeout_seconds: float = Field(10.0, gt=0.0, le=300.0, description="Timeout of one delivery request.")
     worker_stale_seconds: float = Field(
         60.0, gt=0.0, description="/readyz wants a worker heard from within this many seconds."
@@ -95,8 +99,10 @@ class Settings(BaseSettings):
             port = None
         bare = address == f"{parts.scheme}://{parts.netloc}"
         if parts.scheme not in DASK_SCHEMES or not parts.hostname or port is None or not bare:
-            raise ValueError(f"{address!r} is not a Dask scheduler address: give scheme://host:port with scheme "
-                             f"{', '.join(DASK_SCHEMES)}, such as tcp://scheduler.lab:8786")
+            raise ValueError(
+                f"{address!r} is not a Dask scheduler address: give scheme://host:port with scheme "
+                f"{', '.join(DASK_SCHEMES)}, such as tcp://scheduler.lab:8786"
+            )
         return address
 
     @model_validator(mode="after")

@@ -24,7 +24,7 @@ def _read_back(figure) -> dict[str, tuple[float, float, float]]:
     for container in ax.containers:
         point_line, _caps, (segments,) = container.lines
         xs, ys = point_line.get_data()
-        for x, y, segment in zip(xs, ys, segments.get_segments()):
+        for x, y, segment in zip(xs, ys, segments.get_segments(), strict=False):
             found[labels[round(y)]] = (float(x), float(segment[:, 0].min()), float(segment[:, 0].max()))
     return found
 
@@ -58,7 +58,8 @@ def test_ranking_plot_draws_the_reference_apart_in_ink():
 
 def test_ranking_from_entries_orders_by_mean_and_gives_a_t_interval():
     document = {
-        "scoring": {}, "provenance": {"pipeline_hashes": {"raw": "h1", "avg": "h2"}},
+        "scoring": {},
+        "provenance": {"pipeline_hashes": {"raw": "h1", "avg": "h2"}},
         "results": [{"pipeline": "raw", "significant_fraction": f} for f in (0.2, 0.3, 0.4)]
         + [{"pipeline": "avg", "significant_fraction": f} for f in (0.5, 0.7, 0.6)],
     }
@@ -72,28 +73,45 @@ def test_ranking_from_entries_orders_by_mean_and_gives_a_t_interval():
 
 def test_ranking_of_one_epoch_set_uses_its_bootstrap_interval():
     document = {
-        "scoring": {}, "provenance": {"pipeline_hashes": {"raw": "h1"}},
-        "results": [{"pipeline": "raw", "significant_fraction": 0.5,
-                     "bootstrap": {"median": 0.45, "ci_low": 0.25, "ci_high": 0.625}}],
+        "scoring": {},
+        "provenance": {"pipeline_hashes": {"raw": "h1"}},
+        "results": [
+            {
+                "pipeline": "raw",
+                "significant_fraction": 0.5,
+                "bootstrap": {"median": 0.45, "ci_low": 0.25, "ci_high": 0.625},
+            }
+        ],
     }
     assert summary.ranking(document).rows == [RankingRow("raw", 0.45, 0.25, 0.625, True)]
 
 
 def test_ranking_of_the_document_is_used_as_it_stands_with_the_reference_from_vs_reference():
-    document = {"scoring": {}, "provenance": {"pipeline_hashes": {"raw": "h1", "avg": "h2"}}, "results": [],
-                "ranking": [{"rank": 2, "pipeline": "raw", "mean": 0.3, "ci_low": 0.2, "ci_high": 0.4,
-                             "vs_reference": None},
-                            {"rank": 1, "pipeline": "avg", "mean": 0.5, "ci_low": None, "ci_high": None,
-                             "vs_reference": {"mean": 0.2}}]}
-    assert summary.ranking(document).rows == [RankingRow("avg", 0.5, 0.5, 0.5, False),
-                                              RankingRow("raw", 0.3, 0.2, 0.4, True)]
+    document = {
+        "scoring": {},
+        "provenance": {"pipeline_hashes": {"raw": "h1", "avg": "h2"}},
+        "results": [],
+        "ranking": [
+            {"rank": 2, "pipeline": "raw", "mean": 0.3, "ci_low": 0.2, "ci_high": 0.4, "vs_reference": None},
+            {"rank": 1, "pipeline": "avg", "mean": 0.5, "ci_low": None, "ci_high": None, "vs_reference": {"mean": 0.2}},
+        ],
+    }
+    assert summary.ranking(document).rows == [
+        RankingRow("avg", 0.5, 0.5, 0.5, False),
+        RankingRow("raw", 0.3, 0.2, 0.4, True),
+    ]
 
 
 def test_ranking_from_the_group_summary_gives_a_t_interval_from_the_standard_error():
-    document = {"scoring": {"reference_pipeline": "avg"}, "provenance": {"pipeline_hashes": {"raw": "h1", "avg": "h2"}},
-                "results": [], "group": [
-                    {"pipeline": "raw", "n_subjects": 5, "significant_fraction": {"mean": 0.4, "median": 0.4, "se": 0.05}},
-                    {"pipeline": "avg", "n_subjects": 5, "significant_fraction": {"mean": 0.3, "median": 0.3, "se": 0.1}}]}
+    document = {
+        "scoring": {"reference_pipeline": "avg"},
+        "provenance": {"pipeline_hashes": {"raw": "h1", "avg": "h2"}},
+        "results": [],
+        "group": [
+            {"pipeline": "raw", "n_subjects": 5, "significant_fraction": {"mean": 0.4, "median": 0.4, "se": 0.05}},
+            {"pipeline": "avg", "n_subjects": 5, "significant_fraction": {"mean": 0.3, "median": 0.3, "se": 0.1}},
+        ],
+    }
     rows = summary.ranking(document).rows
     # Reference: scipy.stats.t.interval (Virtanen et al., 2020, SciPy 1.0), 4 degrees of freedom.
     assert rows[0][:4] == pytest.approx(("raw", 0.4, *stats.t.interval(0.95, 4, loc=0.4, scale=0.05)))
@@ -109,8 +127,15 @@ def test_kept_figure_bars_carry_the_mean_trial_and_channel_counts():
 
 
 def test_channel_map_averages_t_and_marks_channels_significant_in_half_the_sets():
-    entry = lambda t, s: {"pipeline": "raw", "channels": [  # noqa: E731 - a small table of inputs
-        {"name": "Cz", "t": t, "significant": s}, {"name": "Pz", "t": 1.0, "significant": False}]}
+    def entry(t, s):
+        return {
+            "pipeline": "raw",
+            "channels": [
+                {"name": "Cz", "t": t, "significant": s},
+                {"name": "Pz", "t": 1.0, "significant": False},
+            ],
+        }
+
     document = {"provenance": {"pipeline_hashes": {"raw": "h"}}, "results": [entry(4.0, True), entry(2.0, False)]}
     channel_map = summary.channel_map(document, "raw")
     assert channel_map.ch_names == ("Cz", "Pz")
@@ -123,7 +148,7 @@ def _lightness(hex_colour: str) -> float:
 
     Reference: sRGB transfer function of IEC 61966-2-1:1999 and the L* formula of CIE 15:2004.
     """
-    rgb = np.array([int(hex_colour[i:i + 2], 16) for i in (1, 3, 5)]) / 255.0
+    rgb = np.array([int(hex_colour[i : i + 2], 16) for i in (1, 3, 5)]) / 255.0
     linear = np.where(rgb <= 0.04045, rgb / 12.92, ((rgb + 0.055) / 1.055) ** 2.4)
     y = float(linear @ [0.2126, 0.7152, 0.0722])
     f = y ** (1 / 3) if y > (6 / 29) ** 3 else y / (3 * (6 / 29) ** 2) + 4 / 29

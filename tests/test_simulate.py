@@ -7,8 +7,8 @@ import numpy as np
 import pytest
 from scipy import signal, stats
 
-from demo.scenario import CONGRUENT, INCONGRUENT
-from demo.simulate import (
+from epoch_assay.demo.scenario import CONGRUENT, INCONGRUENT
+from epoch_assay.demo.simulate import (
     CH_NAMES,
     EEG_CHANNELS,
     SimulationConfig,
@@ -200,7 +200,7 @@ def test_drift_changes_more_across_trials_than_within_an_epoch():
 
 def test_blinks_dominate_veog_and_frontopolar_over_occipital_channels():
     blinks = simulate_components(SimulationConfig(n_trials_per_condition=20, blink_rate=1.0), 1).blinks
-    rms = dict(zip(CH_NAMES, np.sqrt(np.mean(blinks**2, axis=(0, 2)))))
+    rms = dict(zip(CH_NAMES, np.sqrt(np.mean(blinks**2, axis=(0, 2))), strict=False))
     occipital = max(rms[name] for name in ("O1", "Oz", "O2"))
     assert rms["VEOG"] > rms["Fp1"] and rms["VEOG"] > rms["Fp2"]
     assert min(rms["Fp1"], rms["Fp2"]) > 3.0 * occipital

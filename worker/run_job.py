@@ -1,7 +1,7 @@
 """One run from spec to result document: load each epoch set, apply each pipeline, score.
 
 The pipelines (listed, or expanded from a grid) run as a prefix tree per epoch set, in worker
-processes and with a step cache when the runner asks for them (``worker.multiverse``); the
+processes and with a step cache when the runner asks for them (``worker.execution.multiverse``); the
 document then also ranks the pipelines, gives a grid's factor effects and the selection.
 
 Nothing here knows of HTTP or the database: epoch sets come from a loader the runner hands in,
@@ -19,26 +19,26 @@ from typing import Any
 
 from pydantic import TypeAdapter
 
-from worker.engine import ENGINE_VERSION
-from worker.engine.epochs import EpochSet
-from worker.engine.errors import SpecError
-from worker.engine.grid import GridSpec, expand_grid
-from worker.engine.multiverse_report import (
+from epoch_assay.engine import ENGINE_VERSION
+from epoch_assay.engine.epochs import EpochSet
+from epoch_assay.engine.errors import SpecError
+from epoch_assay.engine.grid import GridSpec, expand_grid
+from epoch_assay.engine.group import group_summary
+from epoch_assay.engine.multiverse_report import (
     DEFAULT_METRIC,
     factor_effects_document,
     ranking_document,
     selection_document,
 )
-from worker.engine.pipeline import PipelineSpec, apply_pipeline
-from worker.engine.recording import ContinuousInput, apply_two_stage
-from worker.engine.group import group_summary
-from worker.engine.scoring import eeg_channel_names, score_epochs
-from worker.engine.scoring_spec import ScoringSpec
-from worker.engine.selection import SelectionSpec
-from worker.engine.provenance import StepRecord
-from worker.engine.tree import LeafOutput
-from worker.multiverse import ExecutionSettings, SourceHandlers, execute_multiverse
-from worker.parallel import Progress
+from epoch_assay.engine.pipeline import PipelineSpec, apply_pipeline
+from epoch_assay.engine.provenance import StepRecord
+from epoch_assay.engine.recording import ContinuousInput, apply_two_stage
+from epoch_assay.engine.scoring import eeg_channel_names, score_epochs
+from epoch_assay.engine.scoring_spec import ScoringSpec
+from epoch_assay.engine.selection import SelectionSpec
+from epoch_assay.engine.tree import LeafOutput
+from worker.execution.multiverse import ExecutionSettings, SourceHandlers, execute_multiverse
+from worker.execution.parallel import Progress
 
 RESULT_SCHEMA_VERSION = 1
 REPORTED_PACKAGES = ("epoch-assay", "numpy", "scipy", "mne", "pydantic")
@@ -66,18 +66,20 @@ def software_versions() -> dict[str, str]:
     return versions
 
 
-def score_unit(pipeline: PipelineSpec, epochs: EpochSet | ContinuousInput, scoring: ScoringSpec,
-               ref: EpochSetRef) -> dict[str, Any]:
+def score_unit(
+    pipeline: PipelineSpec, epochs: EpochSet | ContinuousInput, scoring: ScoringSpec, ref: EpochSetRef
+) -> dict[str, Any]:
     """Apply one pipeline to one epoch set and score it; an entry of the result's ``results``.
 
     A recording (``ContinuousInput``) is processed in two stages: continuous-stage steps before
-    epoching, the others after (see ``worker.engine.recording``).
+    epoching, the others after (see ``epoch_assay.engine.recording``).
 
     A spec that turns out impossible only now (a pipeline left too few trials, say) is
     reported in the entry's ``error`` rather than failing the whole run.
     """
-    processed, records = (apply_two_stage(pipeline, epochs) if isinstance(epochs, ContinuousInput)
-                          else apply_pipeline(pipeline, epochs))
+    processed, records = (
+        apply_two_stage(pipeline, epochs) if isinstance(epochs, ContinuousInput) else apply_pipeline(pipeline, epochs)
+    )
     uploaded = eeg_channel_names(epochs.recording if isinstance(epochs, ContinuousInput) else epochs)
     return _scored_entry(pipeline, processed, records, uploaded, scoring, ref)
 
@@ -87,11 +89,20 @@ def score_leaf(leaf: LeafOutput, source: EpochSet, scoring: ScoringSpec, ref: Ep
     return _scored_entry(leaf.pipeline, leaf.epochs, list(leaf.records), eeg_channel_names(source), scoring, ref)
 
 
-def _scored_entry(pipeline: PipelineSpec, processed: EpochSet, records: list[StepRecord], uploaded: tuple[str, ...],
-                  scoring: ScoringSpec, ref: EpochSetRef) -> dict[str, Any]:
+def _scored_entry(
+    pipeline: PipelineSpec,
+    processed: EpochSet,
+    records: list[StepRecord],
+    uploaded: tuple[str, ...],
+    scoring: ScoringSpec,
+    ref: EpochSetRef,
+) -> dict[str, Any]:
     entry: dict[str, Any] = {
-        "pipeline": pipeline.name, "pipeline_hash": pipeline.spec_hash(), "epoch_set": ref.id,
-        "subject": ref.subject, "session": ref.session,
+        "pipeline": pipeline.name,
+        "pipeline_hash": pipeline.spec_hash(),
+        "epoch_set": ref.id,
+        "subject": ref.subject,
+        "session": ref.session,
     }
     provenance = [record.to_json() for record in records]
     warnings = [warning for record in records for warning in record.warnings]
@@ -157,8 +168,9 @@ def execute_run(
         "results": results,
         "group": group,
         "cache": outcome.cache.to_json(),
-        "ranking": ranking_document(results, names, reference, selection.metric if selection else DEFAULT_METRIC,
-                                    group),
+        "ranking": ranking_document(
+            results, names, reference, selection.metric if selection else DEFAULT_METRIC, group
+        ),
         "factor_effects": factor_effects_document(results, grid, points) if grid is not None else None,
         "selection": selection_document(results, names, reference, selection) if selection is not None else None,
     }

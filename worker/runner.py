@@ -5,7 +5,7 @@ pipelines sharing a first step) and stops: the job goes back to the queue withou
 attempt, so a deploy does not wait for a long run and loses nothing but the units in progress. A job whose
 attempt raises is retried with backoff up to ``max_attempts``, except when retrying cannot
 help (the stored file is gone or malformed, the spec cannot run). Each worker also sends the
-webhook events in a thread (``service.delivery``).
+webhook events in a thread (``worker.delivery``).
 """
 
 import json
@@ -22,25 +22,31 @@ from pydantic import ValidationError
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from service.delivery import Deliverer
+from epoch_assay.engine.epochs import EpochSet as EngineEpochSet
+from epoch_assay.engine.errors import EpochSetFormatError, EpochSetTooLargeError, SpecError
+from epoch_assay.engine.io import read_epoch_set_file
+from epoch_assay.engine.recording import ChannelSpec, ContinuousInput, EpochingSpec, load_recording
 from service.settings import Settings
 from service.storage import queue
 from service.storage.blobs import BlobCorruptError, open_blob_store
 from service.storage.db import Database
 from service.storage.migrate import is_at_head
 from service.storage.models import EpochSet, Run, RunEpochSet, RunResult, Study
-from worker.engine.epochs import EpochSet as EngineEpochSet
-from worker.engine.errors import EpochSetFormatError, EpochSetTooLargeError, SpecError
-from worker.engine.io import read_epoch_set_file
-from worker.engine.recording import ChannelSpec, ContinuousInput, EpochingSpec, load_recording
-from worker.multiverse import ExecutionSettings
-from worker.parallel import Progress
+from worker.delivery import Deliverer
+from worker.execution.multiverse import ExecutionSettings
+from worker.execution.parallel import Progress
 from worker.run_job import EpochSetRef, execute_run
 
 log = logging.getLogger("epoch_assay.worker")
 # Errors that will happen again on every attempt: the stored file is gone, damaged or malformed, the spec cannot run.
-PERMANENT_ERRORS = (FileNotFoundError, BlobCorruptError, EpochSetFormatError, EpochSetTooLargeError, SpecError,
-                    ValidationError)
+PERMANENT_ERRORS = (
+    FileNotFoundError,
+    BlobCorruptError,
+    EpochSetFormatError,
+    EpochSetTooLargeError,
+    SpecError,
+    ValidationError,
+)
 
 
 class LeaseLost(Exception):
@@ -54,8 +60,9 @@ class HandBack(Exception):
 class Heartbeat:
     """Renews a job's lease in a background thread and carries the latest progress."""
 
-    def __init__(self, database: Database, job: queue.ClaimedJob, worker_id: str, settings: Settings,
-                 stopping: threading.Event) -> None:
+    def __init__(
+        self, database: Database, job: queue.ClaimedJob, worker_id: str, settings: Settings, stopping: threading.Event
+    ) -> None:
         self._database, self._job, self._worker_id, self._settings = database, job, worker_id, settings
         self._stopping = stopping
         self._stop = threading.Event()
@@ -82,18 +89,22 @@ class Heartbeat:
 
     def note_detail(self, progress: Progress) -> None:
         """Record the units done, their total and the ETA, sent with the next heartbeat."""
-        self.detail = {"units_done": progress.done, "units_total": progress.total,
-                       "elapsed_s": round(progress.elapsed_s, 3),
-                       "eta_s": None if progress.eta_s is None else round(progress.eta_s, 3)}
+        self.detail = {
+            "units_done": progress.done,
+            "units_total": progress.total,
+            "elapsed_s": round(progress.elapsed_s, 3),
+            "eta_s": None if progress.eta_s is None else round(progress.eta_s, 3),
+        }
 
     def _beat(self) -> None:
         while not self._stop.wait(self._settings.heartbeat_seconds):
             try:
                 with self._database.session() as session:
-                    held = queue.heartbeat(session, self._job, self._worker_id, self._settings.lease_seconds,
-                                           self.progress, self.detail)
+                    held = queue.heartbeat(
+                        session, self._job, self._worker_id, self._settings.lease_seconds, self.progress, self.detail
+                    )
                     queue.record_worker_seen(session, self._worker_id)
-            except Exception:  # noqa: BLE001 - a missed beat is retried; the lease outlasts a few of them
+            except Exception:
                 log.exception("heartbeat failed; trying again", extra={"job": self._job.id})
                 continue
             if not held:
@@ -126,8 +137,12 @@ class Worker:
         signal.signal(signal.SIGINT, self.request_stop)
         self.wait_for_schema()
         stop_delivery = threading.Event()
-        delivery = threading.Thread(target=Deliverer(self.database, self.settings).run_until, args=(stop_delivery,),
-                                    name="webhook-delivery", daemon=True)
+        delivery = threading.Thread(
+            target=Deliverer(self.database, self.settings).run_until,
+            args=(stop_delivery,),
+            name="webhook-delivery",
+            daemon=True,
+        )
         delivery.start()
         log.info("worker %s ready", self.worker_id)
         try:
@@ -161,7 +176,7 @@ class Worker:
                     queue.release(session, job, self.worker_id)
                 log.info("stopping: handed the job back to the queue", extra=context)
                 return True
-            except Exception as error:  # noqa: BLE001 - any failure of a job ends that attempt, not the worker
+            except Exception as error:
                 self._record_failure(job, error, context)
                 return True
         with self.database.session() as session:
@@ -193,19 +208,28 @@ class Worker:
             if run is None:
                 raise LeaseLost(job.id)
             study_code = session.scalar(select(Study.code).where(Study.id == run.study_id))
-            rows = session.execute(
-                select(EpochSet).join(RunEpochSet, RunEpochSet.epoch_set_id == EpochSet.id)
-                .where(RunEpochSet.run_id == run.id).order_by(RunEpochSet.position)
-            ).scalars().all()
+            rows = (
+                session.execute(
+                    select(EpochSet)
+                    .join(RunEpochSet, RunEpochSet.epoch_set_id == EpochSet.id)
+                    .where(RunEpochSet.run_id == run.id)
+                    .order_by(RunEpochSet.position)
+                )
+                .scalars()
+                .all()
+            )
             refs = [EpochSetRef(id=r.id, subject=r.subject, session=r.session, sha256=r.sha256) for r in rows]
             spec = run.spec
         execution = ExecutionSettings(
-            workers=self.settings.parallel_workers, cache_dir=self.settings.step_cache_dir,
-            cache_max_bytes=self.settings.cache_max_bytes, cache_min_step_seconds=self.settings.cache_min_step_seconds,
+            workers=self.settings.parallel_workers,
+            cache_dir=self.settings.step_cache_dir,
+            cache_max_bytes=self.settings.cache_max_bytes,
+            cache_min_step_seconds=self.settings.cache_min_step_seconds,
             dask_scheduler=self.settings.dask_scheduler,
-        )  # fmt: skip
-        return execute_run(job.run_id, study_code, spec, refs, self._load, beat.report, execution=execution,
-                           on_detail=beat.note_detail)
+        )
+        return execute_run(
+            job.run_id, study_code, spec, refs, self._load, beat.report, execution=execution, on_detail=beat.note_detail
+        )
 
     def _load(self, ref: EpochSetRef) -> EngineEpochSet | ContinuousInput:
         """The epoch set, or for a recording its file, events and epoching (epoched per pipeline by run_job)."""
@@ -218,8 +242,12 @@ class Worker:
         if source == "recording":
             events_copy = self.blobs.local_copy(events_sha256) if events_sha256 else nullcontext(None)
             with self.blobs.local_copy(file_sha256) as path, events_copy as events_path:
-                return load_recording(path, events_path, EpochingSpec.model_validate(epoching),
-                                      ChannelSpec.model_validate(channels or {}),
-                                      max_array_bytes=self.settings.max_array_bytes)
+                return load_recording(
+                    path,
+                    events_path,
+                    EpochingSpec.model_validate(epoching),
+                    ChannelSpec.model_validate(channels or {}),
+                    max_array_bytes=self.settings.max_array_bytes,
+                )
         with self.blobs.local_copy(ref.sha256) as path:
             return read_epoch_set_file(path, max_array_bytes=self.settings.max_array_bytes)[0]

@@ -52,8 +52,10 @@ class Caller:
         if not self.covers(study):
             raise study_not_found(study.code)
         if action == "write" and self.role == "read":
-            raise Forbidden(f"this key may only read study {study.code!r}; ask an admin for a write key "
-                            f"(epoch-assay keys create --study {study.code} --role write)")
+            raise Forbidden(
+                f"this key may only read study {study.code!r}; ask an admin for a write key "
+                f"(epoch-assay keys create --study {study.code} --role write)"
+            )
 
     def require_admin(self) -> None:
         if not self.is_admin:
@@ -75,8 +77,10 @@ def get_caller(
     if request.app.state.settings.open:
         return OPEN_CALLER
     if credentials is None or credentials.scheme.lower() != "bearer":
-        raise Unauthorized("this route needs an API key: send 'Authorization: Bearer <token>' "
-                           "(make one with `epoch-assay keys create`)")
+        raise Unauthorized(
+            "this route needs an API key: send 'Authorization: Bearer <token>' "
+            "(make one with `epoch-assay keys create`)"
+        )
     key = find_active_key(session, credentials.credentials)
     if key is None:
         raise Unauthorized("the API key is unknown or has been revoked; ask the operator for a valid one")

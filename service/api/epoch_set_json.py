@@ -14,6 +14,9 @@ from fastapi.routing import APIRoute
 from starlette.routing import Match
 from starlette.types import Scope
 
+from epoch_assay.engine.errors import EpochSetFormatError
+from epoch_assay.engine.io.detect import FileFormat
+from epoch_assay.engine.io.json_epochs import parse_json_epochs
 from service.api.access import CallerDep
 from service.api.deps import BlobsDep, SessionDep, SettingsDep
 from service.api.epoch_set_store import save_epoch_set, stored_epoch_set
@@ -23,11 +26,9 @@ from service.api.lookups import study_by_code
 from service.errors import Unprocessable, format_error_to_unprocessable
 from service.schemas.epoch_sets import SUBJECT_PATTERN
 from service.schemas.json_epoch_sets import JSON_MEDIA_TYPE
-from worker.engine.errors import EpochSetFormatError
-from worker.engine.io.detect import FileFormat
-from worker.engine.io.json_epochs import parse_json_epochs
 
 _SUBJECT = re.compile(SUBJECT_PATTERN)
+
 
 class JsonBodyRoute(APIRoute):
     """A route that matches only requests with a JSON body."""
@@ -48,8 +49,15 @@ async def _body(request: Request) -> bytes:
 
 
 @router.post("", status_code=status.HTTP_201_CREATED, include_in_schema=False)
-def post_json_epoch_set(code: str, body: Annotated[bytes, Depends(_body)], session: SessionDep, blobs: BlobsDep,
-                        settings: SettingsDep, caller: CallerDep, idempotency: IdempotencyDep) -> Response:
+def post_json_epoch_set(
+    code: str,
+    body: Annotated[bytes, Depends(_body)],
+    session: SessionDep,
+    blobs: BlobsDep,
+    settings: SettingsDep,
+    caller: CallerDep,
+    idempotency: IdempotencyDep,
+) -> Response:
     """Store a JSON epoch set; the same bytes again give the stored one (200)."""
     study = study_by_code(session, code, caller, "write")
     with blobs.staged(io.BytesIO(body)) as staged:
@@ -66,8 +74,16 @@ def post_json_epoch_set(code: str, body: Annotated[bytes, Depends(_body)], sessi
         _check_label("session", parsed.session, required=False)
         row = new_epoch_set_row(study, parsed.subject, parsed.session, staged.sha256, staged.size, parsed.epochs)
         row.file_format = FileFormat.JSON.value
-        return save_epoch_set(session, study, row, [staged], idempotency, lambda r: epoch_set_out(r, study.code),
-                              f"/v1/studies/{study.code}/epoch-sets", settings.max_attempts)
+        return save_epoch_set(
+            session,
+            study,
+            row,
+            [staged],
+            idempotency,
+            lambda r: epoch_set_out(r, study.code),
+            f"/v1/studies/{study.code}/epoch-sets",
+            settings.max_attempts,
+        )
 
 
 def _check_label(key: str, value: str | None, *, required: bool) -> None:
@@ -75,5 +91,7 @@ def _check_label(key: str, value: str | None, *, required: bool) -> None:
         return
     if value is None or not _SUBJECT.match(value):
         shown = "missing" if value is None else f"{value!r}, which does not match {SUBJECT_PATTERN}"
-        raise Unprocessable(f"{key} is {shown}; give it as a short id such as sub-01",
-                            errors=[{"loc": ["body", key], "msg": f"{key} must match {SUBJECT_PATTERN}"}])
+        raise Unprocessable(
+            f"{key} is {shown}; give it as a short id such as sub-01",
+            errors=[{"loc": ["body", key], "msg": f"{key} must match {SUBJECT_PATTERN}"}],
+        )

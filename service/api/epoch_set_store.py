@@ -22,9 +22,16 @@ def stored_epoch_set(session: Session, study: Study, sha256: str) -> EpochSet | 
     return session.scalar(select(EpochSet).where(EpochSet.study_id == study.id, EpochSet.sha256 == sha256))
 
 
-def save_epoch_set(session: Session, study: Study, row: EpochSet, blobs: Sequence[StagedBlob],
-                   idempotency: Idempotency, render: Callable[[EpochSet], BaseModel], location: str,
-                   max_attempts: int) -> Response:
+def save_epoch_set(
+    session: Session,
+    study: Study,
+    row: EpochSet,
+    blobs: Sequence[StagedBlob],
+    idempotency: Idempotency,
+    render: Callable[[EpochSet], BaseModel],
+    location: str,
+    max_attempts: int,
+) -> Response:
     """Keep ``blobs`` and commit ``row``; 201, or 200 with the stored one when the same content won a race.
 
     When the study has a locked pipeline, a run scoring the new epoch set with it is queued in the

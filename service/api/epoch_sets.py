@@ -7,10 +7,14 @@ from sqlalchemy import or_, select
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
+from epoch_assay.engine.epochs import EpochSet as EngineEpochSet
+from epoch_assay.engine.errors import EpochSetFormatError, EpochSetTooLargeError
+from epoch_assay.engine.io import read_epoch_set_file
+from epoch_assay.engine.io.detect import FileFormat
 from service.api.access import CallerDep
 from service.api.deps import BlobsDep, SessionDep, SettingsDep
-from service.api.idempotency import IdempotencyDep, canonical_fingerprint
 from service.api.epoch_set_store import save_epoch_set, stored_epoch_set
+from service.api.idempotency import IdempotencyDep, canonical_fingerprint
 from service.api.lookups import study_by_code
 from service.api.responses import BLOB_STORE_DOWN, errors
 from service.errors import Conflict, NotFound, format_error_to_unprocessable, too_large_to_payload_error
@@ -18,29 +22,48 @@ from service.schemas.epoch_sets import SUBJECT_PATTERN, EpochSetOut
 from service.schemas.json_epoch_sets import JSON_EPOCH_SET_OPENAPI
 from service.storage.ids import new_id
 from service.storage.models import EpochSet, RunEpochSet, Study
-from worker.engine.epochs import EpochSet as EngineEpochSet
-from worker.engine.errors import EpochSetFormatError, EpochSetTooLargeError
-from worker.engine.io import read_epoch_set_file
-from worker.engine.io.detect import FileFormat
 
 router = APIRouter(prefix="/v1/studies/{code}/epoch-sets", tags=["epoch sets"])
 
 
 def epoch_set_out(row: EpochSet, study_code: str) -> EpochSetOut:
     return EpochSetOut(
-        id=row.id, study=study_code, subject=row.subject, session=row.session, n_trials=row.n_trials,
-        n_channels=row.n_channels, n_times=row.n_times, sfreq=row.sfreq, tmin=row.tmin, ch_names=row.ch_names,
-        conditions=row.conditions, sha256=row.sha256, created_at=row.created_at,
+        id=row.id,
+        study=study_code,
+        subject=row.subject,
+        session=row.session,
+        n_trials=row.n_trials,
+        n_channels=row.n_channels,
+        n_times=row.n_times,
+        sfreq=row.sfreq,
+        tmin=row.tmin,
+        ch_names=row.ch_names,
+        conditions=row.conditions,
+        sha256=row.sha256,
+        created_at=row.created_at,
     )
 
 
-def new_epoch_set_row(study: Study, subject: str, session: str | None, sha256: str, size: int, epochs: EngineEpochSet) -> EpochSet:
+def new_epoch_set_row(
+    study: Study, subject: str, session: str | None, sha256: str, size: int, epochs: EngineEpochSet
+) -> EpochSet:
     meta = epochs.meta()
     return EpochSet(
-        id=new_id("es"), study_id=study.id, subject=subject, session=session, sha256=sha256, size_bytes=size,
-        n_trials=epochs.n_trials, n_channels=epochs.n_channels, n_times=epochs.n_times, sfreq=epochs.sfreq,
-        tmin=epochs.tmin, ch_names=list(epochs.ch_names), ch_types=list(epochs.ch_types),
-        conditions=meta.condition_counts, has_positions=meta.has_positions,
+        id=new_id("es"),
+        study_id=study.id,
+        subject=subject,
+        session=session,
+        sha256=sha256,
+        size_bytes=size,
+        n_trials=epochs.n_trials,
+        n_channels=epochs.n_channels,
+        n_times=epochs.n_times,
+        sfreq=epochs.sfreq,
+        tmin=epochs.tmin,
+        ch_names=list(epochs.ch_names),
+        ch_types=list(epochs.ch_types),
+        conditions=meta.condition_counts,
+        has_positions=meta.has_positions,
     )
 
 
@@ -51,18 +74,27 @@ def new_epoch_set_row(study: Study, subject: str, session: str | None, sha256: s
     openapi_extra=JSON_EPOCH_SET_OPENAPI,
     responses={
         200: {"model": EpochSetOut, "description": "The same bytes were stored before; the existing epoch set."},
-        **errors(400, 401, 403, 404, 409, 413, 422, 503,
-                 unavailable=BLOB_STORE_DOWN,
-                 unprocessable="The file is malformed (the detail names the field and the fix), or a form field "
-                               "breaks its pattern."),
+        **errors(
+            400,
+            401,
+            403,
+            404,
+            409,
+            413,
+            422,
+            503,
+            unavailable=BLOB_STORE_DOWN,
+            unprocessable="The file is malformed (the detail names the field and the fix), or a form field "
+            "breaks its pattern.",
+        ),
     },
 )
 def upload_epoch_set(
     code: str,
-    file: Annotated[UploadFile, File(description="An NPZ or MNE epochs (-epo.fif) file, told apart by content "
-                                                 "(see the README).")],
-    subject: Annotated[str, Form(pattern=SUBJECT_PATTERN, description="Subject id, e.g. sub-01.",
-                                 examples=["sub-01"])],
+    file: Annotated[
+        UploadFile, File(description="An NPZ or MNE epochs (-epo.fif) file, told apart by content (see the README).")
+    ],
+    subject: Annotated[str, Form(pattern=SUBJECT_PATTERN, description="Subject id, e.g. sub-01.", examples=["sub-01"])],
     session: SessionDep,
     blobs: BlobsDep,
     settings: SettingsDep,
@@ -81,16 +113,25 @@ def upload_epoch_set(
         if existing is not None:
             return idempotency.remember(status.HTTP_200_OK, epoch_set_out(existing, study.code))
         try:
-            epochs, file_format = read_epoch_set_file(staged.path, max_array_bytes=settings.max_array_bytes,
-                                                      allowed=(FileFormat.NPZ, FileFormat.FIF))
+            epochs, file_format = read_epoch_set_file(
+                staged.path, max_array_bytes=settings.max_array_bytes, allowed=(FileFormat.NPZ, FileFormat.FIF)
+            )
         except EpochSetFormatError as error:
             raise format_error_to_unprocessable(error) from None
         except EpochSetTooLargeError as error:
             raise too_large_to_payload_error(error) from None
         row = new_epoch_set_row(study, subject, session_label, staged.sha256, staged.size, epochs)
         row.file_format = file_format.value
-        return save_epoch_set(session, study, row, [staged], idempotency, lambda r: epoch_set_out(r, study.code),
-                              f"/v1/studies/{study.code}/epoch-sets", settings.max_attempts)
+        return save_epoch_set(
+            session,
+            study,
+            row,
+            [staged],
+            idempotency,
+            lambda r: epoch_set_out(r, study.code),
+            f"/v1/studies/{study.code}/epoch-sets",
+            settings.max_attempts,
+        )
 
 
 @router.get("", response_model=list[EpochSetOut], responses=errors(401, 404))
@@ -122,8 +163,10 @@ def get_epoch_set(code: str, epoch_set_id: str, session: SessionDep, caller: Cal
 def _epoch_set_of(session: Session, study: Study, epoch_set_id: str) -> EpochSet:
     row = session.get(EpochSet, epoch_set_id)
     if row is None or row.study_id != study.id:
-        raise NotFound(f"no epoch set {epoch_set_id!r} in study {study.code!r}; "
-                       f"list them with GET /v1/studies/{study.code}/epoch-sets")
+        raise NotFound(
+            f"no epoch set {epoch_set_id!r} in study {study.code!r}; "
+            f"list them with GET /v1/studies/{study.code}/epoch-sets"
+        )
     return row
 
 
@@ -161,13 +204,16 @@ def _blob_in_use(session: Session, sha256: str) -> bool:
 
 
 def _refuse_if_scored(session: Session, row: EpochSet) -> None:
-    run_ids = session.scalars(select(RunEpochSet.run_id).where(RunEpochSet.epoch_set_id == row.id)
-                              .order_by(RunEpochSet.run_id).limit(5)).all()
+    run_ids = session.scalars(
+        select(RunEpochSet.run_id).where(RunEpochSet.epoch_set_id == row.id).order_by(RunEpochSet.run_id).limit(5)
+    ).all()
     if run_ids:
         raise _scored_conflict(row.id, run_ids)
 
 
 def _scored_conflict(epoch_set_id: str, run_ids: list[str]) -> Conflict:
     named = f" ({', '.join(run_ids)}{', …' if len(run_ids) == 5 else ''})" if run_ids else ""
-    return Conflict(f"epoch set {epoch_set_id} is scored by a run{named}; delete the runs that use it first "
-                    "(DELETE /v1/runs/ID), then the epoch set")
+    return Conflict(
+        f"epoch set {epoch_set_id} is scored by a run{named}; delete the runs that use it first "
+        "(DELETE /v1/runs/ID), then the epoch set"
+    )

@@ -23,8 +23,10 @@ def _database_reachable(session: Session) -> None:
     try:
         session.execute(text("SELECT 1"))
     except SQLAlchemyError as error:
-        raise ServiceUnavailable(f"the database does not answer ({type(error).__name__}); check "
-                                 "EPOCH_ASSAY_DATABASE_URL and that the database is up") from None
+        raise ServiceUnavailable(
+            f"the database does not answer ({type(error).__name__}); check "
+            "EPOCH_ASSAY_DATABASE_URL and that the database is up"
+        ) from None
 
 
 @router.get("/healthz", response_model=Health, responses=errors(503, unavailable="The database does not answer."))
@@ -34,25 +36,38 @@ def healthz(session: SessionDep) -> Health:
     return Health(status="ok")
 
 
-@router.get("/readyz", response_model=Readiness,
-            responses=errors(503, unavailable="The database does not answer, or no worker was heard from recently."))
+@router.get(
+    "/readyz",
+    response_model=Readiness,
+    responses=errors(503, unavailable="The database does not answer, or no worker was heard from recently."),
+)
 def readyz(session: SessionDep, settings: SettingsDep) -> Readiness:
     """200 when the database answers and a worker was heard from recently, so queued runs will run (no key needed)."""
     _database_reachable(session)
     workers = queue.workers_seen_since(session, utc_now() - timedelta(seconds=settings.worker_stale_seconds))
     if workers == 0:
-        raise ServiceUnavailable(f"no worker was heard from in the last {settings.worker_stale_seconds:g} s, so "
-                                 "queued runs would wait; start one with `epoch-assay worker` (or use `serve`)")
+        raise ServiceUnavailable(
+            f"no worker was heard from in the last {settings.worker_stale_seconds:g} s, so "
+            "queued runs would wait; start one with `epoch-assay worker` (or use `serve`)"
+        )
     return Readiness(status="ready", workers=workers, queue_depth=queue.queue_depth(session))
 
 
 @router.get(
     "/metrics",
     response_class=Response,
-    responses={200: {"description": "Prometheus text format.", "content": {CONTENT_TYPE_LATEST.split(";")[0]: {
-        "schema": {"type": "string"},
-        "example": "# TYPE epoch_assay_queue_depth gauge\nepoch_assay_queue_depth 0.0\n"}}},
-               **errors(401)},
+    responses={
+        200: {
+            "description": "Prometheus text format.",
+            "content": {
+                CONTENT_TYPE_LATEST.split(";")[0]: {
+                    "schema": {"type": "string"},
+                    "example": "# TYPE epoch_assay_queue_depth gauge\nepoch_assay_queue_depth 0.0\n",
+                }
+            },
+        },
+        **errors(401),
+    },
 )
 def metrics(request: Request, session: SessionDep, _caller: CallerDep) -> Response:
     """Prometheus metrics: queue depth, runs by state, run durations, failures, HTTP requests (any valid key)."""

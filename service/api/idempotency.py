@@ -45,8 +45,9 @@ def canonical_fingerprint(value: Any) -> str:
 class Idempotency:
     """The ``Idempotency-Key`` of one request (if any) and the record kept for it."""
 
-    def __init__(self, session: Session, caller_id: str, key: str | None, method: str, path: str,
-                 ttl_seconds: float) -> None:
+    def __init__(
+        self, session: Session, caller_id: str, key: str | None, method: str, path: str, ttl_seconds: float
+    ) -> None:
         self.session, self.caller_id, self.key = session, caller_id, key
         self.method, self.path, self.ttl = method, path, timedelta(seconds=ttl_seconds)
         self._request_sha256 = ""
@@ -79,11 +80,20 @@ class Idempotency:
             return response
         now = utc_now()
         self.session.execute(delete(IdempotencyRecord).where(IdempotencyRecord.created_at < now - self.ttl))
-        self.session.add(IdempotencyRecord(
-            caller_id=self.caller_id, key=self.key, method=self.method, path=self.path[:500],
-            request_sha256=self._request_sha256, status_code=status_code, media_type="application/json", body=body,
-            location=location, created_at=now,
-        ))
+        self.session.add(
+            IdempotencyRecord(
+                caller_id=self.caller_id,
+                key=self.key,
+                method=self.method,
+                path=self.path[:500],
+                request_sha256=self._request_sha256,
+                status_code=status_code,
+                media_type="application/json",
+                body=body,
+                location=location,
+                created_at=now,
+            )
+        )
         try:
             self.session.flush()
         except IntegrityError:
@@ -117,16 +127,21 @@ def get_idempotency(
     session: SessionDep,
     caller: CallerDep,
     settings: SettingsDep,
-    idempotency_key: Annotated[str | None, Header(
-        alias="Idempotency-Key", pattern=KEY_PATTERN,
-        description="Any unique string (e.g. a UUID) of up to 255 visible ASCII characters. Retrying a POST "
-                    "with the same key and body returns the first answer; the same key with another body is 409.",
-        examples=["3f0c2a7e-9d4b-4c55-8a0e-5b1f9e2d7c11"],
-    )] = None,
+    idempotency_key: Annotated[
+        str | None,
+        Header(
+            alias="Idempotency-Key",
+            pattern=KEY_PATTERN,
+            description="Any unique string (e.g. a UUID) of up to 255 visible ASCII characters. Retrying a POST "
+            "with the same key and body returns the first answer; the same key with another body is 409.",
+            examples=["3f0c2a7e-9d4b-4c55-8a0e-5b1f9e2d7c11"],
+        ),
+    ] = None,
 ) -> Idempotency:
     key = idempotency_key.strip('"') if idempotency_key else None
-    return Idempotency(session, caller.id, key or None, request.method, request.url.path,
-                       settings.idempotency_ttl_seconds)
+    return Idempotency(
+        session, caller.id, key or None, request.method, request.url.path, settings.idempotency_ttl_seconds
+    )
 
 
 IdempotencyDep = Annotated[Idempotency, Depends(get_idempotency)]

@@ -13,6 +13,9 @@ import logging
 from fastapi import APIRouter, status
 from sqlalchemy.orm import Session
 
+from epoch_assay.engine.errors import SpecError
+from epoch_assay.engine.pipeline import PipelineSpec
+from epoch_assay.engine.scoring_spec import ScoringSpec
 from service.api.access import CallerDep
 from service.api.deps import SessionDep
 from service.api.lookups import run_by_id, study_by_code
@@ -23,9 +26,6 @@ from service.schemas.locked_pipelines import LockCreate, LockedOut
 from service.storage import queue
 from service.storage.ids import utc_now
 from service.storage.models import EpochSet, LockedPipeline, RunResult, Study
-from worker.engine.errors import SpecError
-from worker.engine.pipeline import PipelineSpec
-from worker.engine.scoring_spec import ScoringSpec
 
 log = logging.getLogger("epoch_assay.service")
 router = APIRouter(prefix="/v1/studies/{code}/locked-pipeline", tags=["studies"])
@@ -33,14 +33,32 @@ ORIGIN = "locked-pipeline"
 
 
 def locked_out(row: LockedPipeline, study_code: str) -> LockedOut:
-    return LockedOut(study=study_code, pipeline=row.pipeline, pipeline_hash=row.pipeline_hash, scoring=row.scoring,
-                     source_run=row.source_run, locked_at=row.locked_at)
+    return LockedOut(
+        study=study_code,
+        pipeline=row.pipeline,
+        pipeline_hash=row.pipeline_hash,
+        scoring=row.scoring,
+        source_run=row.source_run,
+        locked_at=row.locked_at,
+    )
 
 
-@router.post("", status_code=status.HTTP_201_CREATED, response_model=LockedOut,
-             responses=errors(400, 401, 403, 404, 409, 413, 422,
-                              conflict="The run named has not succeeded.",
-                              unprocessable="The body is malformed, or the run has no selection winner."))
+@router.post(
+    "",
+    status_code=status.HTTP_201_CREATED,
+    response_model=LockedOut,
+    responses=errors(
+        400,
+        401,
+        403,
+        404,
+        409,
+        413,
+        422,
+        conflict="The run named has not succeeded.",
+        unprocessable="The body is malformed, or the run has no selection winner.",
+    ),
+)
 def lock_pipeline(code: str, body: LockCreate, session: SessionDep, caller: CallerDep) -> LockedOut:
     """Lock the study's pipeline; every epoch set posted to the study from now on is scored with it."""
     study = study_by_code(session, code, caller, "write")
@@ -64,8 +82,9 @@ def get_locked_pipeline(code: str, session: SessionDep, caller: CallerDep) -> Lo
     study = study_by_code(session, code, caller, "read")
     row = session.get(LockedPipeline, study.id)
     if row is None:
-        raise NotFound(f"study {study.code!r} has no locked pipeline; lock one with POST "
-                       f"/v1/studies/{study.code}/locked-pipeline")
+        raise NotFound(
+            f"study {study.code!r} has no locked pipeline; lock one with POST /v1/studies/{study.code}/locked-pipeline"
+        )
     return locked_out(row, study.code)
 
 
@@ -79,11 +98,18 @@ def score_on_arrival(session: Session, study: Study, row: EpochSet, max_attempts
     try:
         scoring.check(pipeline.check(epoch_set_meta(row)))
     except SpecError as error:
-        log.warning("the locked pipeline cannot run on a new epoch set; not scored",
-                    extra={"study": study.code, "epoch_set": row.id, "reason": error.message})
+        log.warning(
+            "the locked pipeline cannot run on a new epoch set; not scored",
+            extra={"study": study.code, "epoch_set": row.id, "reason": error.message},
+        )
         return None
-    spec = {"study": study.code, "epoch_sets": [row.id], "pipelines": [locked.pipeline], "scoring": locked.scoring,
-            "origin": ORIGIN}
+    spec = {
+        "study": study.code,
+        "epoch_sets": [row.id],
+        "pipelines": [locked.pipeline],
+        "scoring": locked.scoring,
+        "origin": ORIGIN,
+    }
     return queue_run(session, study, spec, [pipeline], [row], max_attempts).id
 
 
@@ -96,7 +122,9 @@ def _winner_of(session: Session, study: Study, run_id: str, caller: CallerDep) -
         raise Conflict(f"run {run.id} is {run.status}; lock its winner once it has succeeded")
     winner = (json.loads(result.document).get("selection") or {}).get("winner")
     if winner is None:
-        raise Unprocessable(f"run: run {run.id} chose no winner (it had no selection, or the selection failed); "
-                            "post the pipeline itself, or lock from a run with a selection")
+        raise Unprocessable(
+            f"run: run {run.id} chose no winner (it had no selection, or the selection failed); "
+            "post the pipeline itself, or lock from a run with a selection"
+        )
     spec = next(item for item in run.spec["pipelines"] if item["name"] == winner)
     return PipelineSpec.model_validate(spec), ScoringSpec.model_validate(run.spec["scoring"]), run.id

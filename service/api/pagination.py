@@ -20,9 +20,11 @@ def decode_cursor(cursor: str) -> tuple[datetime, str]:
         created_at, row_id = json.loads(raw)
         position = datetime.fromisoformat(created_at), str(row_id)
     except (binascii.Error, ValueError, TypeError, UnicodeDecodeError):
-        raise Unprocessable("cursor: not a cursor this server handed out; pass next_cursor of the previous page "
-                            "unchanged, or leave it out for the first page",
-                            errors=[{"loc": ["query", "cursor"], "msg": "invalid cursor"}]) from None
+        raise Unprocessable(
+            "cursor: not a cursor this server handed out; pass next_cursor of the previous page "
+            "unchanged, or leave it out for the first page",
+            errors=[{"loc": ["query", "cursor"], "msg": "invalid cursor"}],
+        ) from None
     if position[0].tzinfo is None:
         position = position[0].replace(tzinfo=UTC), position[1]
     return position

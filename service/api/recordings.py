@@ -14,6 +14,8 @@ from typing import Annotated
 from fastapi import APIRouter, File, Form, Response, UploadFile, status
 from pydantic import BaseModel, Field, ValidationError
 
+from epoch_assay.engine.errors import EpochSetFormatError, EpochSetTooLargeError
+from epoch_assay.engine.recording import ChannelSpec, EpochingSpec, epoch_recording, load_recording, plan_epochs
 from service.api.access import CallerDep
 from service.api.deps import BlobsDep, SessionDep, SettingsDep
 from service.api.epoch_set_store import save_epoch_set, stored_epoch_set
@@ -25,8 +27,6 @@ from service.errors import Unprocessable, format_error_to_unprocessable, too_lar
 from service.schemas.epoch_sets import SUBJECT_PATTERN, EpochSetOut
 from service.storage.blobs import BlobStore, StagedBlob
 from service.storage.models import EpochSet
-from worker.engine.errors import EpochSetFormatError, EpochSetTooLargeError
-from worker.engine.recording import ChannelSpec, EpochingSpec, epoch_recording, load_recording, plan_epochs
 
 router = APIRouter(prefix="/v1/studies/{code}/recordings", tags=["recordings"])
 RECORDING_SOURCE = "recording"
@@ -39,15 +39,21 @@ class RecordingOut(EpochSetOut):
     file_format: str = Field(description='"edf" or "bdf", as read from the file\'s first bytes.')
     epoching: dict = Field(description="The epoching spec as stored.")
     events_found: dict[str, int] = Field(description="Events per condition found in the events or annotations.")
-    dropped_at_edges: dict[str, int] = Field(description="Events per condition whose epoch reached past the "
-                                                         "recording's ends, left out.")
+    dropped_at_edges: dict[str, int] = Field(
+        description="Events per condition whose epoch reached past the recording's ends, left out."
+    )
 
 
 def recording_out(row: EpochSet, study_code: str) -> RecordingOut:
     found = row.events_found or {}
-    return RecordingOut(**epoch_set_out(row, study_code).model_dump(), source=row.source, file_format=row.file_format,
-                        epoching=row.epoching or {}, events_found=found.get("found", {}),
-                        dropped_at_edges=found.get("dropped_at_edges", {}))
+    return RecordingOut(
+        **epoch_set_out(row, study_code).model_dump(),
+        source=row.source,
+        file_format=row.file_format,
+        epoching=row.epoching or {},
+        events_found=found.get("found", {}),
+        dropped_at_edges=found.get("dropped_at_edges", {}),
+    )
 
 
 def _parsed(model: type[BaseModel], text: str, field: str) -> BaseModel:
@@ -56,8 +62,9 @@ def _parsed(model: type[BaseModel], text: str, field: str) -> BaseModel:
     except ValidationError as error:
         problems = [{"loc": ["body", field, *item["loc"]], "msg": item["msg"]} for item in error.errors()]
         shown = "; ".join(f"{'.'.join(str(p) for p in item['loc'][1:])}: {item['msg']}" for item in problems[:5])
-        raise Unprocessable(f"{shown}. Give {field} as JSON, see the README's recordings section",
-                            errors=problems) from None
+        raise Unprocessable(
+            f"{shown}. Give {field} as JSON, see the README's recordings section", errors=problems
+        ) from None
 
 
 @contextmanager
@@ -70,8 +77,12 @@ def _staged_optional(blobs: BlobStore, upload: UploadFile | None) -> Iterator[St
 
 
 def _identity(file_sha256: str, events_sha256: str | None, epoching: EpochingSpec, channels: ChannelSpec) -> str:
-    content = {"file": file_sha256, "events": events_sha256, "epoching": epoching.model_dump(mode="json"),
-               "channels": channels.model_dump(mode="json")}
+    content = {
+        "file": file_sha256,
+        "events": events_sha256,
+        "epoching": epoching.model_dump(mode="json"),
+        "channels": channels.model_dump(mode="json"),
+    }
     return hashlib.sha256(json.dumps(content, sort_keys=True, separators=(",", ":")).encode()).hexdigest()
 
 
@@ -81,10 +92,19 @@ def _identity(file_sha256: str, events_sha256: str | None, epoching: EpochingSpe
     response_model=RecordingOut,
     responses={
         200: {"model": RecordingOut, "description": "The same upload was stored before; the existing epoch set."},
-        **errors(400, 401, 403, 404, 409, 413, 422, 503,
-                 unavailable=BLOB_STORE_DOWN,
-                 unprocessable="The recording, its events or the epoching spec cannot be used (the detail says what "
-                               "is wrong and how to fix it)."),
+        **errors(
+            400,
+            401,
+            403,
+            404,
+            409,
+            413,
+            422,
+            503,
+            unavailable=BLOB_STORE_DOWN,
+            unprocessable="The recording, its events or the epoching spec cannot be used (the detail says what "
+            "is wrong and how to fix it).",
+        ),
     },
 )
 def upload_recording(
@@ -97,10 +117,13 @@ def upload_recording(
     settings: SettingsDep,
     caller: CallerDep,
     idempotency: IdempotencyDep,
-    events: Annotated[UploadFile | None, File(description="A BIDS-style events.tsv; the file's annotations "
-                                                          "when absent.")] = None,
-    channels: Annotated[str | None, Form(description='JSON: {"types": {name: type}, "montage": name, '
-                                                     '"positions": {name: [x, y, z]}} (m).')] = None,
+    events: Annotated[
+        UploadFile | None, File(description="A BIDS-style events.tsv; the file's annotations when absent.")
+    ] = None,
+    channels: Annotated[
+        str | None,
+        Form(description='JSON: {"types": {name: type}, "montage": name, "positions": {name: [x, y, z]}} (m).'),
+    ] = None,
     session_label: Annotated[str | None, Form(alias="session", pattern=SUBJECT_PATTERN)] = None,
 ) -> Response:
     """Upload a continuous recording and how to epoch it; runs epoch it and filter it before epoching."""
@@ -117,8 +140,13 @@ def upload_recording(
         if existing is not None:
             return idempotency.remember(status.HTTP_200_OK, recording_out(existing, study.code))
         try:
-            source = load_recording(staged_file.path, staged_events.path if staged_events else None, epoching_spec,
-                                    channel_spec, max_array_bytes=settings.max_array_bytes)
+            source = load_recording(
+                staged_file.path,
+                staged_events.path if staged_events else None,
+                epoching_spec,
+                channel_spec,
+                max_array_bytes=settings.max_array_bytes,
+            )
         except EpochSetFormatError as error:
             raise format_error_to_unprocessable(error) from None
         except EpochSetTooLargeError as error:
@@ -132,6 +160,13 @@ def upload_recording(
         row.epoching, row.channels = epoching_spec.model_dump(mode="json"), channel_spec.model_dump(mode="json")
         row.events_found = {"found": plan.events_found, "dropped_at_edges": plan.dropped_at_edges}
         staged = [staged_file] + ([staged_events] if staged_events else [])
-        return save_epoch_set(session, study, row, staged, idempotency, lambda r: recording_out(r, study.code),
-                              f"/v1/studies/{study.code}/epoch-sets", settings.max_attempts)
-
+        return save_epoch_set(
+            session,
+            study,
+            row,
+            staged,
+            idempotency,
+            lambda r: recording_out(r, study.code),
+            f"/v1/studies/{study.code}/epoch-sets",
+            settings.max_attempts,
+        )

@@ -25,8 +25,12 @@ BLOB_STORE_DOWN = "The blob store could not keep the file (unreachable or full);
 
 def errors(*codes: int, **descriptions: str) -> dict[int | str, dict[str, Any]]:
     """``responses=`` for a route: each code with the Problem schema; ``conflict=``, ``not_found=`` … override texts."""
-    overrides = {409: descriptions.get("conflict"), 404: descriptions.get("not_found"),
-                 422: descriptions.get("unprocessable"), 503: descriptions.get("unavailable")}
+    overrides = {
+        409: descriptions.get("conflict"),
+        404: descriptions.get("not_found"),
+        422: descriptions.get("unprocessable"),
+        503: descriptions.get("unavailable"),
+    }
     return {code: {"model": Problem, "description": overrides.get(code) or DESCRIPTIONS[code]} for code in codes}
 
 
@@ -39,8 +43,13 @@ def install_problem_openapi(app: FastAPI) -> None:
 
     def openapi() -> dict[str, Any]:
         if app.openapi_schema is None:
-            schema = get_openapi(title=app.title, version=app.version, description=app.description, routes=app.routes,
-                                 tags=app.openapi_tags)
+            schema = get_openapi(
+                title=app.title,
+                version=app.version,
+                description=app.description,
+                routes=app.routes,
+                tags=app.openapi_tags,
+            )
             problem_ref = {"$ref": "#/components/schemas/Problem"}
             for path_item in schema.get("paths", {}).values():
                 for operation in path_item.values():
@@ -48,7 +57,8 @@ def install_problem_openapi(app: FastAPI) -> None:
                         if code.isdigit() and int(code) >= 400:
                             if int(code) == 422:
                                 response["description"] = response["description"].replace(
-                                    "Validation Error", DESCRIPTIONS[422])
+                                    "Validation Error", DESCRIPTIONS[422]
+                                )
                             response["content"] = {PROBLEM_JSON: {"schema": problem_ref}}
             components = schema.setdefault("components", {}).setdefault("schemas", {})
             components.pop("HTTPValidationError", None)

@@ -5,9 +5,27 @@ import io
 from typing import Any
 
 COLUMNS = (
-    "run", "study", "pipeline", "pipeline_hash", "epoch_set", "subject", "session", "channel", "t", "p",
-    "p_adjusted", "significant", "significant_fraction", "bootstrap_median", "bootstrap_ci_low",
-    "bootstrap_ci_high", "condition_a", "n_trials_a", "condition_b", "n_trials_b", "error",
+    "run",
+    "study",
+    "pipeline",
+    "pipeline_hash",
+    "epoch_set",
+    "subject",
+    "session",
+    "channel",
+    "t",
+    "p",
+    "p_adjusted",
+    "significant",
+    "significant_fraction",
+    "bootstrap_median",
+    "bootstrap_ci_low",
+    "bootstrap_ci_high",
+    "condition_a",
+    "n_trials_a",
+    "condition_b",
+    "n_trials_b",
+    "error",
 )
 CSV_EXAMPLE = (
     ",".join(COLUMNS) + "\r\n"
@@ -34,22 +52,36 @@ def _rows(document: dict[str, Any]) -> list[dict[str, Any]]:
         bootstrap = entry.get("bootstrap") or {}
         n_trials = entry.get("n_trials") or {}
         shared = {
-            "run": document["run"], "study": document["study"], "pipeline": entry["pipeline"],
-            "pipeline_hash": entry["pipeline_hash"], "epoch_set": entry["epoch_set"], "subject": entry["subject"],
-            "session": entry.get("session"), "significant_fraction": entry.get("significant_fraction"),
-            "bootstrap_median": bootstrap.get("median"), "bootstrap_ci_low": bootstrap.get("ci_low"),
-            "bootstrap_ci_high": bootstrap.get("ci_high"), "condition_a": condition_a,
-            "n_trials_a": n_trials.get(condition_a), "condition_b": condition_b, "n_trials_b": n_trials.get(condition_b),
+            "run": document["run"],
+            "study": document["study"],
+            "pipeline": entry["pipeline"],
+            "pipeline_hash": entry["pipeline_hash"],
+            "epoch_set": entry["epoch_set"],
+            "subject": entry["subject"],
+            "session": entry.get("session"),
+            "significant_fraction": entry.get("significant_fraction"),
+            "bootstrap_median": bootstrap.get("median"),
+            "bootstrap_ci_low": bootstrap.get("ci_low"),
+            "bootstrap_ci_high": bootstrap.get("ci_high"),
+            "condition_a": condition_a,
+            "n_trials_a": n_trials.get(condition_a),
+            "condition_b": condition_b,
+            "n_trials_b": n_trials.get(condition_b),
             "error": entry.get("error"),
         }
         channels = entry.get("channels") or [{}]
         for channel in channels:
             significant = channel.get("significant")
-            rows.append(shared | {
-                "channel": channel.get("name"), "t": channel.get("t"), "p": channel.get("p"),
-                "p_adjusted": channel.get("p_adjusted"),
-                "significant": None if significant is None else str(significant).lower(),
-            })
+            rows.append(
+                shared
+                | {
+                    "channel": channel.get("name"),
+                    "t": channel.get("t"),
+                    "p": channel.get("p"),
+                    "p_adjusted": channel.get("p_adjusted"),
+                    "significant": None if significant is None else str(significant).lower(),
+                }
+            )
     return rows
 
 

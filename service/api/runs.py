@@ -9,6 +9,9 @@ from sqlalchemy import and_, or_, select
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
+from epoch_assay.engine.epochs import EpochSetMeta
+from epoch_assay.engine.errors import SpecError
+from epoch_assay.engine.pipeline import PipelineSpec
 from service.api.access import CallerDep
 from service.api.deps import SessionDep, SettingsDep
 from service.api.idempotency import IdempotencyDep, canonical_fingerprint
@@ -22,17 +25,20 @@ from service.schemas.runs import RunAccepted, RunCreate, RunOut, RunPage, RunRes
 from service.storage import queue
 from service.storage.ids import new_id
 from service.storage.models import EpochSet, Run, RunEpochSet, RunPipeline, RunResult, Study
-from worker.engine.epochs import EpochSetMeta
-from worker.engine.errors import SpecError
-from worker.engine.pipeline import PipelineSpec
 
 router = APIRouter(prefix="/v1/runs", tags=["runs"])
 
 
 def run_out(run: Run, study_code: str) -> RunOut:
     return RunOut(
-        id=run.id, study=study_code, status=run.status, progress=run.progress, error=run.error,
-        created_at=run.created_at, started_at=run.started_at, finished_at=run.finished_at,
+        id=run.id,
+        study=study_code,
+        status=run.status,
+        progress=run.progress,
+        error=run.error,
+        created_at=run.created_at,
+        started_at=run.started_at,
+        finished_at=run.finished_at,
         pipelines=[pipeline["name"] for pipeline in run.spec.get("pipelines") or []],
         epoch_sets=list(run.spec.get("epoch_sets", [])),
         progress_detail=run.progress_detail if run.status == queue.RUNNING else None,
@@ -42,13 +48,21 @@ def run_out(run: Run, study_code: str) -> RunOut:
 def epoch_set_meta(row: EpochSet) -> EpochSetMeta:
     """What a spec check needs to know of a stored epoch set."""
     return EpochSetMeta(
-        sfreq=row.sfreq, tmin=row.tmin, n_times=row.n_times, ch_names=tuple(row.ch_names),
-        ch_types=tuple(row.ch_types), condition_counts=dict(row.conditions), has_positions=row.has_positions,
+        sfreq=row.sfreq,
+        tmin=row.tmin,
+        n_times=row.n_times,
+        ch_names=tuple(row.ch_names),
+        ch_types=tuple(row.ch_types),
+        condition_counts=dict(row.conditions),
+        has_positions=row.has_positions,
     )
 
 
 def _epoch_sets_of_run(session: SessionDep, study: Study, ids: list[str]) -> list[EpochSet]:
-    rows = {row.id: row for row in session.scalars(select(EpochSet).where(EpochSet.id.in_(ids), EpochSet.study_id == study.id))}
+    rows = {
+        row.id: row
+        for row in session.scalars(select(EpochSet).where(EpochSet.id.in_(ids), EpochSet.study_id == study.id))
+    }
     for index, epoch_set_id in enumerate(ids):
         if epoch_set_id not in rows:
             raise Unprocessable(
@@ -89,11 +103,20 @@ def _located(error: SpecError, row: EpochSet, *prefix: str | int) -> Unprocessab
     "",
     status_code=status.HTTP_202_ACCEPTED,
     response_model=RunAccepted,
-    responses=errors(400, 401, 403, 404, 409, 413, 422, unprocessable="The spec is malformed or cannot run on these "
-                                                                 "epoch sets; the detail names the field."),
+    responses=errors(
+        400,
+        401,
+        403,
+        404,
+        409,
+        413,
+        422,
+        unprocessable="The spec is malformed or cannot run on these epoch sets; the detail names the field.",
+    ),
 )
-def create_run(body: RunCreate, session: SessionDep, settings: SettingsDep, caller: CallerDep,
-               idempotency: IdempotencyDep) -> Response:
+def create_run(
+    body: RunCreate, session: SessionDep, settings: SettingsDep, caller: CallerDep, idempotency: IdempotencyDep
+) -> Response:
     """Queue a run that scores each pipeline on each epoch set."""
     study = study_by_code(session, body.study, caller, "write")
     if (replayed := idempotency.replay(canonical_fingerprint(body.model_dump(mode="json")))) is not None:
@@ -112,14 +135,23 @@ def create_run(body: RunCreate, session: SessionDep, settings: SettingsDep, call
     except IntegrityError:
         # An epoch set of the run was deleted by a concurrent request that committed first.
         session.rollback()
-        raise Unprocessable("epoch_sets: an epoch set of this run was deleted while the run was being created; "
-                            f"list the remaining ones with GET /v1/studies/{body.study}/epoch-sets") from None
-    return idempotency.remember(status.HTTP_202_ACCEPTED, RunAccepted(id=run.id, status=queue.QUEUED),
-                                location=f"/v1/runs/{run.id}")
+        raise Unprocessable(
+            "epoch_sets: an epoch set of this run was deleted while the run was being created; "
+            f"list the remaining ones with GET /v1/studies/{body.study}/epoch-sets"
+        ) from None
+    return idempotency.remember(
+        status.HTTP_202_ACCEPTED, RunAccepted(id=run.id, status=queue.QUEUED), location=f"/v1/runs/{run.id}"
+    )
 
 
-def queue_run(session: Session, study: Study, spec: dict, pipelines: list[PipelineSpec], epoch_sets: list[EpochSet],
-              max_attempts: int) -> Run:
+def queue_run(
+    session: Session,
+    study: Study,
+    spec: dict,
+    pipelines: list[PipelineSpec],
+    epoch_sets: list[EpochSet],
+    max_attempts: int,
+) -> Run:
     """Store a checked run with its epoch sets and pipeline names, and queue its job."""
     run = Run(id=new_id("run"), study_id=study.id, spec=spec, status=queue.QUEUED)
     session.add(run)
@@ -135,15 +167,21 @@ def list_runs(
     session: SessionDep,
     caller: CallerDep,
     study: Annotated[str | None, Query(description="Only runs of this study (its code).")] = None,
-    subject: Annotated[str | None, Query(pattern=SUBJECT_PATTERN, description="Only runs scoring an epoch set "
-                                                                              "of this subject.")] = None,
-    session_label: Annotated[str | None, Query(alias="session", pattern=SUBJECT_PATTERN,
-                                               description="Only runs scoring an epoch set of this session.")] = None,
+    subject: Annotated[
+        str | None, Query(pattern=SUBJECT_PATTERN, description="Only runs scoring an epoch set of this subject.")
+    ] = None,
+    session_label: Annotated[
+        str | None,
+        Query(alias="session", pattern=SUBJECT_PATTERN, description="Only runs scoring an epoch set of this session."),
+    ] = None,
     status_filter: Annotated[RunStatus | None, Query(alias="status")] = None,
-    pipeline: Annotated[str | None, Query(min_length=1, max_length=200,
-                                          description="Only runs with a pipeline of this name.")] = None,
-    created_after: Annotated[datetime | None, Query(description="Only runs created at or after this time "
-                                                                "(ISO 8601; UTC if no zone is given).")] = None,
+    pipeline: Annotated[
+        str | None, Query(min_length=1, max_length=200, description="Only runs with a pipeline of this name.")
+    ] = None,
+    created_after: Annotated[
+        datetime | None,
+        Query(description="Only runs created at or after this time (ISO 8601; UTC if no zone is given)."),
+    ] = None,
     created_before: Annotated[datetime | None, Query(description="Only runs created before this time.")] = None,
     limit: Annotated[int, Query(ge=1, le=500, description="Runs per page.")] = 100,
     cursor: Annotated[str | None, Query(max_length=400, description="next_cursor of the previous page.")] = None,
@@ -200,8 +238,11 @@ MEDIA_TYPES = ("application/json", "text/csv")
 @router.get(
     "/{run_id}/result",
     responses={
-        200: {"model": RunResultDocument, "description": "The result document, or its CSV table.",
-              "content": {"text/csv": {"schema": {"type": "string"}, "example": CSV_EXAMPLE}}},
+        200: {
+            "model": RunResultDocument,
+            "description": "The result document, or its CSV table.",
+            "content": {"text/csv": {"schema": {"type": "string"}, "example": CSV_EXAMPLE}},
+        },
         **errors(401, 404, 406, 409, conflict="The run has not succeeded (yet)."),
     },
 )
@@ -209,8 +250,10 @@ def get_run_result(
     run_id: str,
     session: SessionDep,
     caller: CallerDep,
-    result_format: Annotated[Literal["json", "csv"] | None, Query(
-        alias="format", description="csv: one row per pipeline × epoch set × channel. Overrides Accept.")] = None,
+    result_format: Annotated[
+        Literal["json", "csv"] | None,
+        Query(alias="format", description="csv: one row per pipeline × epoch set × channel. Overrides Accept."),
+    ] = None,
     accept: Annotated[str | None, Header(include_in_schema=False)] = None,
 ) -> Response:
     """The result document of a succeeded run, as JSON or (``Accept: text/csv`` or ``?format=csv``) CSV."""
@@ -218,11 +261,18 @@ def get_run_result(
     media_type = _result_media_type(result_format, accept)
     result = session.get(RunResult, run.id)
     if run.status != queue.SUCCEEDED or result is None:
-        hint = f"it failed: {run.error}" if run.status == queue.FAILED else f"poll GET /v1/runs/{run.id} until status is succeeded"
+        hint = (
+            f"it failed: {run.error}"
+            if run.status == queue.FAILED
+            else f"poll GET /v1/runs/{run.id} until status is succeeded"
+        )
         raise Conflict(f"run {run.id} is {run.status}, so it has no result; {hint}")
     if media_type == "text/csv":
-        return Response(content=result_csv(json.loads(result.document)), media_type="text/csv; charset=utf-8",
-                        headers={"Content-Disposition": f'attachment; filename="{run.id}.csv"'})
+        return Response(
+            content=result_csv(json.loads(result.document)),
+            media_type="text/csv; charset=utf-8",
+            headers={"Content-Disposition": f'attachment; filename="{run.id}.csv"'},
+        )
     return Response(content=result.document, media_type="application/json")
 
 
@@ -231,6 +281,8 @@ def _result_media_type(result_format: str | None, accept: str | None) -> str:
         return "text/csv" if result_format == "csv" else "application/json"
     media_type = preferred_media_type(accept or "", MEDIA_TYPES)
     if media_type is None:
-        raise NotAcceptable(f"the result is available as {' or '.join(MEDIA_TYPES)}; the Accept header "
-                            f"{accept!r} takes neither (or use ?format=csv / ?format=json)")
+        raise NotAcceptable(
+            f"the result is available as {' or '.join(MEDIA_TYPES)}; the Accept header "
+            f"{accept!r} takes neither (or use ?format=csv / ?format=json)"
+        )
     return media_type

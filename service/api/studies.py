@@ -25,8 +25,15 @@ def study_out(study: Study) -> StudyOut:
     "",
     status_code=status.HTTP_201_CREATED,
     response_model=StudyOut,
-    responses=errors(400, 401, 403, 409, 413, 422, conflict="A study with this code exists, or the Idempotency-Key was "
-                                                       "used for another request."),
+    responses=errors(
+        400,
+        401,
+        403,
+        409,
+        413,
+        422,
+        conflict="A study with this code exists, or the Idempotency-Key was used for another request.",
+    ),
 )
 def create_study(body: StudyCreate, session: SessionDep, caller: CallerDep, idempotency: IdempotencyDep) -> Response:
     """Create a study (admin keys only)."""

@@ -21,44 +21,67 @@ from service.storage.models import Study, Webhook, WebhookDelivery
 router = APIRouter(prefix="/v1/studies/{code}/webhooks", tags=["webhooks"])
 SIGNING = (
     " Each event is a POST with the JSON event as body and the header "
-    "`Epoch-Assay-Signature: t=<unix seconds>,v1=<hex HMAC-SHA256(secret, \"<t>.<body>\")>`; "
+    '`Epoch-Assay-Signature: t=<unix seconds>,v1=<hex HMAC-SHA256(secret, "<t>.<body>")>`; '
     "failed deliveries are retried with exponential backoff."
 )
 
 
 def webhook_out(hook: Webhook, study_code: str) -> WebhookOut:
-    return WebhookOut(id=hook.id, study=study_code, url=hook.url, events=hook.events, description=hook.description,
-                      created_at=hook.created_at)
+    return WebhookOut(
+        id=hook.id,
+        study=study_code,
+        url=hook.url,
+        events=hook.events,
+        description=hook.description,
+        created_at=hook.created_at,
+    )
 
 
 def _webhook_of(session: Session, study: Study, webhook_id: str) -> Webhook:
     hook = session.get(Webhook, webhook_id)
     if hook is None or hook.study_id != study.id:
-        raise NotFound(f"no webhook {webhook_id!r} in study {study.code!r}; list them with "
-                       f"GET /v1/studies/{study.code}/webhooks")
+        raise NotFound(
+            f"no webhook {webhook_id!r} in study {study.code!r}; list them with GET /v1/studies/{study.code}/webhooks"
+        )
     return hook
 
 
-@router.post("", status_code=status.HTTP_201_CREATED, response_model=WebhookCreated,
-             responses=errors(400, 401, 403, 404, 409, 413, 422), description="Register a webhook (write keys)." + SIGNING)
-def create_webhook(code: str, body: WebhookCreate, session: SessionDep, caller: CallerDep,
-                   idempotency: IdempotencyDep) -> Response:
+@router.post(
+    "",
+    status_code=status.HTTP_201_CREATED,
+    response_model=WebhookCreated,
+    responses=errors(400, 401, 403, 404, 409, 413, 422),
+    description="Register a webhook (write keys)." + SIGNING,
+)
+def create_webhook(
+    code: str, body: WebhookCreate, session: SessionDep, caller: CallerDep, idempotency: IdempotencyDep
+) -> Response:
     study = study_by_code(session, code, caller, "write")
     if (replayed := idempotency.replay(canonical_fingerprint(body.model_dump(mode="json")))) is not None:
         return replayed
-    hook = Webhook(id=new_id("wh"), study_id=study.id, url=str(body.url), secret="whsec_" + secrets.token_hex(32),
-                   events=list(body.events), description=body.description)
+    hook = Webhook(
+        id=new_id("wh"),
+        study_id=study.id,
+        url=str(body.url),
+        secret="whsec_" + secrets.token_hex(32),
+        events=list(body.events),
+        description=body.description,
+    )
     session.add(hook)
     session.flush()
     created = WebhookCreated(**webhook_out(hook, study.code).model_dump(), secret=hook.secret)
-    return idempotency.remember(status.HTTP_201_CREATED, created, location=f"/v1/studies/{study.code}/webhooks/{hook.id}")
+    return idempotency.remember(
+        status.HTTP_201_CREATED, created, location=f"/v1/studies/{study.code}/webhooks/{hook.id}"
+    )
 
 
 @router.get("", response_model=list[WebhookOut], responses=errors(401, 403, 404))
 def list_webhooks(code: str, session: SessionDep, caller: CallerDep) -> list[WebhookOut]:
     """The study's webhooks, oldest first (write keys; secrets are never shown again)."""
     study = study_by_code(session, code, caller, "write")
-    hooks = session.scalars(select(Webhook).where(Webhook.study_id == study.id).order_by(Webhook.created_at, Webhook.id))
+    hooks = session.scalars(
+        select(Webhook).where(Webhook.study_id == study.id).order_by(Webhook.created_at, Webhook.id)
+    )
     return [webhook_out(hook, study.code) for hook in hooks]
 
 
@@ -89,15 +112,27 @@ def list_deliveries(
     study = study_by_code(session, code, caller, "write")
     hook = _webhook_of(session, study, webhook_id)
     rows = session.scalars(
-        select(WebhookDelivery).where(WebhookDelivery.webhook_id == hook.id)
-        .order_by(WebhookDelivery.created_at.desc(), WebhookDelivery.id.desc()).limit(limit)
+        select(WebhookDelivery)
+        .where(WebhookDelivery.webhook_id == hook.id)
+        .order_by(WebhookDelivery.created_at.desc(), WebhookDelivery.id.desc())
+        .limit(limit)
     )
-    return DeliveryPage(deliveries=[
-        DeliveryOut(
-            id=row.id, event_id=row.event_id, event_type=row.event_type, run=row.run_id, status=row.status,
-            attempts=row.attempts, next_attempt_at=row.next_attempt_at if row.status == outbox.PENDING else None,
-            last_status_code=row.last_status_code, last_error=row.last_error, created_at=row.created_at,
-            delivered_at=row.delivered_at, log=row.log,
-        )
-        for row in rows
-    ])
+    return DeliveryPage(
+        deliveries=[
+            DeliveryOut(
+                id=row.id,
+                event_id=row.event_id,
+                event_type=row.event_type,
+                run=row.run_id,
+                status=row.status,
+                attempts=row.attempts,
+                next_attempt_at=row.next_attempt_at if row.status == outbox.PENDING else None,
+                last_status_code=row.last_status_code,
+                last_error=row.last_error,
+                created_at=row.created_at,
+                delivered_at=row.delivered_at,
+                log=row.log,
+            )
+            for row in rows
+        ]
+    )

@@ -32,34 +32,50 @@ def run_figures(document: dict[str, Any]) -> list[ReportFigure]:
     ranking = summary.ranking(document)
     reference = summary.reference_pipeline(document)
     if ranking.rows:
-        found.append(ReportFigure(
-            "ranking", "Ranking of pipelines",
-            f"Point and bar: {ranking.description}. The reference pipeline is the dark "
-            "diamond. Overlapping bars mean the data do not tell those pipelines apart.",
-            lambda: figures.ranking_figure(ranking.rows, description=ranking.description)))
+        found.append(
+            ReportFigure(
+                "ranking",
+                "Ranking of pipelines",
+                f"Point and bar: {ranking.description}. The reference pipeline is the dark "
+                "diamond. Overlapping bars mean the data do not tell those pipelines apart.",
+                lambda: figures.ranking_figure(ranking.rows, description=ranking.description),
+            )
+        )
     found.extend(_topomaps(document, reference))
     courses = summary.time_courses(document)
     if courses:
         window = tuple(document["scoring"]["window_s"])
-        found.append(ReportFigure(
-            "time-course", "Significant channels over time",
-            "Share of channels significant at each time point, mean over epoch sets; shaded: the scoring window.",
-            lambda: figures.time_course_figure(courses, window, reference)))
+        found.append(
+            ReportFigure(
+                "time-course",
+                "Significant channels over time",
+                "Share of channels significant at each time point, mean over epoch sets; shaded: the scoring window.",
+                lambda: figures.time_course_figure(courses, window, reference),
+            )
+        )
     kept = summary.kept_counts(document)
     if kept:
         conditions = list(document["scoring"]["conditions"])
-        found.append(ReportFigure(
-            "kept", "Trials and channels kept",
-            "What each pipeline left to score, mean per epoch set: trials of each condition, and EEG channels.",
-            lambda: figures.kept_figure(kept, conditions)))
+        found.append(
+            ReportFigure(
+                "kept",
+                "Trials and channels kept",
+                "What each pipeline left to score, mean per epoch set: trials of each condition, and EEG channels.",
+                lambda: figures.kept_figure(kept, conditions),
+            )
+        )
     sme = summary.sme_summaries(document)
     if sme:
-        found.append(ReportFigure(
-            "sme", "Standardised measurement error",
-            "Median over channels of the standardised measurement error of the window mean, per condition, in µV, "
-            "mean over epoch sets. It ignores the contrast, so it can guide the choice of pipeline without "
-            "inflating false positives.",
-            lambda: figures.sme_figure(sme)))
+        found.append(
+            ReportFigure(
+                "sme",
+                "Standardised measurement error",
+                "Median over channels of the standardised measurement error of the window mean, per condition, in µV, "
+                "mean over epoch sets. It ignores the contrast, so it can guide the choice of pipeline without "
+                "inflating false positives.",
+                lambda: figures.sme_figure(sme),
+            )
+        )
     return found
 
 
@@ -74,12 +90,16 @@ def _topomaps(document: dict[str, Any], reference: str) -> list[ReportFigure]:
     found = []
     for name, located in placed.items():
         left_out = f" Not on the map (no 10-20 position): {', '.join(located.unplaced)}." if located.unplaced else ""
-        found.append(ReportFigure(
-            topomap_name(name), f"Scalp map: {name}",
-            f"Welch t per channel, mean over {located.map.n_epoch_sets} epoch set(s); white dots: significant after "
-            f"correction in at least half of them. All maps of this run share the colour scale ±{limit:.1f}."
-            + left_out,
-            lambda located=located: topomaps.topomap_figure(located, reference, limit)))
+        found.append(
+            ReportFigure(
+                topomap_name(name),
+                f"Scalp map: {name}",
+                f"Welch t per channel, mean over {located.map.n_epoch_sets} epoch set(s); white dots: significant after "
+                f"correction in at least half of them. All maps of this run share the colour scale ±{limit:.1f}."
+                + left_out,
+                lambda located=located: topomaps.topomap_figure(located, reference, limit),
+            )
+        )
     return found
 
 

@@ -12,17 +12,17 @@ import matplotlib
 
 matplotlib.use("Agg")
 
-from matplotlib.figure import Figure  # noqa: E402 - the backend is chosen first
-from matplotlib.ticker import PercentFormatter  # noqa: E402
+from matplotlib.figure import Figure
+from matplotlib.ticker import PercentFormatter
 
-from service.report.palette import (  # noqa: E402
+from service.report.palette import (
     CONDITION_COLOURS,
     INK,
     MIST,
     REFERENCE_COLOUR,
     pipeline_colour,
 )
-from service.report.summary import Arrival, KeptCounts, RankingRow, SmeSummary, TimeCourse  # noqa: E402
+from service.report.summary import Arrival, KeptCounts, RankingRow, SmeSummary, TimeCourse
 
 FigureFormat = Literal["png", "svg"]
 WIDTH_IN = 7.5
@@ -52,24 +52,36 @@ def ranking_figure(rows: Sequence[tuple[str, float, float, float, bool]], *, des
     rows = [RankingRow(*row) for row in rows]
     figure, (ax,) = _figure(1.2 + 0.45 * max(len(rows), 1))
     positions = list(range(len(rows)))[::-1]
-    for is_reference, colour, marker, label in ((False, pipeline_colour(0), "o", PIPELINES_LABEL),
-                                              (True, REFERENCE_COLOUR, "D", REFERENCE_LABEL)):
-        chosen = [(y, row) for y, row in zip(positions, rows) if row.is_reference == is_reference]
+    for is_reference, colour, marker, label in (
+        (False, pipeline_colour(0), "o", PIPELINES_LABEL),
+        (True, REFERENCE_COLOUR, "D", REFERENCE_LABEL),
+    ):
+        chosen = [(y, row) for y, row in zip(positions, rows, strict=False) if row.is_reference == is_reference]
         if not chosen:
             continue
         ys = [y for y, _ in chosen]
         xs = [row.estimate for _, row in chosen]
         below = [row.estimate - row.ci_low for _, row in chosen]
         above = [row.ci_high - row.estimate for _, row in chosen]
-        ax.errorbar(xs, ys, xerr=[below, above], fmt=marker, color=colour, ecolor=colour,
-                    elinewidth=2.2, capsize=4, markersize=7, label=label)
-    ax.set_yticks(positions, [f"{row.name} (reference)" if row.is_reference else row.name for row in rows],
-                  fontsize=FONT_SIZE)
+        ax.errorbar(
+            xs,
+            ys,
+            xerr=[below, above],
+            fmt=marker,
+            color=colour,
+            ecolor=colour,
+            elinewidth=2.2,
+            capsize=4,
+            markersize=7,
+            label=label,
+        )
+    ax.set_yticks(
+        positions, [f"{row.name} (reference)" if row.is_reference else row.name for row in rows], fontsize=FONT_SIZE
+    )
     ax.set_ylim(-0.7, len(rows) - 0.3)
     ax.set_xlim(0.0, 1.0)
     ax.xaxis.set_major_formatter(PercentFormatter(xmax=1.0))
-    ax.set_xlabel(f"Significant channels (% of scored)\n{description}",
-                  fontsize=FONT_SIZE)
+    ax.set_xlabel(f"Significant channels (% of scored)\n{description}", fontsize=FONT_SIZE)
     ax.grid(axis="x", color=MIST, linewidth=0.6)
     ax.set_title("Pipelines ranked by the share of significant channels", fontsize=FONT_SIZE + 1, loc="left")
     return figure
@@ -104,13 +116,25 @@ def kept_figure(kept: Sequence[KeptCounts], conditions: Sequence[str]) -> Figure
     height = 0.8 / max(len(conditions), 1)
     for index, label in enumerate(conditions):
         offsets = [y + 0.4 - height * (index + 0.5) for y in positions]
-        bars = trials_ax.barh(offsets, [item.trials[label] for item in kept], height=height,
-                              color=CONDITION_COLOURS[index % len(CONDITION_COLOURS)], label=label)
+        bars = trials_ax.barh(
+            offsets,
+            [item.trials[label] for item in kept],
+            height=height,
+            color=CONDITION_COLOURS[index % len(CONDITION_COLOURS)],
+            label=label,
+        )
         trials_ax.bar_label(bars, fmt="%.0f", fontsize=FONT_SIZE - 2, padding=2)
     trials_ax.set_yticks(positions, [item.pipeline for item in kept], fontsize=FONT_SIZE)
     trials_ax.set_xlabel("Trials kept (mean per epoch set)", fontsize=FONT_SIZE)
-    figure.legend(*trials_ax.get_legend_handles_labels(), fontsize=FONT_SIZE - 1, frameon=False,
-                  loc="outside lower center", ncols=len(conditions), title="condition", title_fontsize=FONT_SIZE - 1)
+    figure.legend(
+        *trials_ax.get_legend_handles_labels(),
+        fontsize=FONT_SIZE - 1,
+        frameon=False,
+        loc="outside lower center",
+        ncols=len(conditions),
+        title="condition",
+        title_fontsize=FONT_SIZE - 1,
+    )
     bars = channels_ax.barh(positions, [item.channels for item in kept], height=0.6, color=pipeline_colour(2))
     channels_ax.bar_label(bars, fmt="%.0f", fontsize=FONT_SIZE - 2, padding=2)
     channels_ax.set_yticks(positions, [""] * len(kept))
@@ -128,14 +152,22 @@ def sme_figure(summaries: Sequence[SmeSummary]) -> Figure:
     for index, label in enumerate(conditions):
         offsets = [y + 0.4 - height * (index + 0.5) for y in positions]
         values = [summary.median_uv.get(label, float("nan")) for summary in summaries]
-        bars = ax.barh(offsets, values, height=height, color=CONDITION_COLOURS[index % len(CONDITION_COLOURS)],
-                       label=label)
+        bars = ax.barh(
+            offsets, values, height=height, color=CONDITION_COLOURS[index % len(CONDITION_COLOURS)], label=label
+        )
         ax.bar_label(bars, fmt="%.2f", fontsize=FONT_SIZE - 2, padding=2)
     ax.set_yticks(positions, [summary.pipeline for summary in summaries], fontsize=FONT_SIZE)
     ax.set_xlabel("Standardised measurement error, median over channels (µV)", fontsize=FONT_SIZE)
     ax.set_title("Measurement precision per condition (lower is better)", fontsize=FONT_SIZE + 1, loc="left")
-    figure.legend(*ax.get_legend_handles_labels(), fontsize=FONT_SIZE - 1, frameon=False,
-                  loc="outside lower center", ncols=len(conditions), title="condition", title_fontsize=FONT_SIZE - 1)
+    figure.legend(
+        *ax.get_legend_handles_labels(),
+        fontsize=FONT_SIZE - 1,
+        frameon=False,
+        loc="outside lower center",
+        ncols=len(conditions),
+        title="condition",
+        title_fontsize=FONT_SIZE - 1,
+    )
     return figure
 
 
@@ -155,14 +187,27 @@ def arrival_figure(arrivals: Sequence[Arrival]) -> Figure:
     positions = list(range(len(arrivals)))
     conditions = list(dict.fromkeys(label for item in arrivals for label in item.trials))
     for index, label in enumerate(conditions):
-        ax.plot(positions, [item.trials.get(label, 0) for item in arrivals], marker="os^v"[index % 4],
-                color=CONDITION_COLOURS[index % len(CONDITION_COLOURS)], linewidth=1.6, label=f"trials: {label}")
+        ax.plot(
+            positions,
+            [item.trials.get(label, 0) for item in arrivals],
+            marker="os^v"[index % 4],
+            color=CONDITION_COLOURS[index % len(CONDITION_COLOURS)],
+            linewidth=1.6,
+            label=f"trials: {label}",
+        )
     # Headroom above the highest count, so the markers stay clear of the title.
     ax.set_ylim(0, 1.2 * max((max(item.trials.values(), default=0) for item in arrivals), default=0) + 1)
     ax.set_ylabel("Trials per condition", fontsize=FONT_SIZE)
     channels_ax = ax.twinx()
-    channels_ax.plot(positions, [item.channels for item in arrivals], color=INK, linestyle="--", marker="D",
-                     linewidth=1.2, label="channels")
+    channels_ax.plot(
+        positions,
+        [item.channels for item in arrivals],
+        color=INK,
+        linestyle="--",
+        marker="D",
+        linewidth=1.2,
+        label="channels",
+    )
     channels_ax.set_ylim(0, 1.2 * max(item.channels for item in arrivals) + 1)
     channels_ax.set_ylabel("Channels", fontsize=FONT_SIZE)
     ax.set_xticks(positions, [item.label for item in arrivals], rotation=45, ha="right", fontsize=FONT_SIZE - 1)

@@ -108,21 +108,25 @@ class RunSummaryRow:
 
 
 def _page(title: str, body: str) -> str:
-    return (f'<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
-            f'<meta name="viewport" content="width=device-width, initial-scale=1">'
-            # An empty inline icon, so browsers do not ask the server for /favicon.ico.
-            f'<link rel="icon" href="data:,">'
-            f"<title>{escape(title)}</title><style>{CSS}</style></head>"
-            f"<body><main>{body}</main></body></html>\n")
+    return (
+        f'<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
+        f'<meta name="viewport" content="width=device-width, initial-scale=1">'
+        # An empty inline icon, so browsers do not ask the server for /favicon.ico.
+        f'<link rel="icon" href="data:,">'
+        f"<title>{escape(title)}</title><style>{CSS}</style></head>"
+        f"<body><main>{body}</main></body></html>\n"
+    )
 
 
 def _table(header: Sequence[str], rows: Sequence[Sequence[str]], numeric: Sequence[int] = ()) -> str:
     """A table from already escaped cells; columns in ``numeric`` are right-aligned."""
     head = "".join(f"<th>{cell}</th>" for cell in header)
     body = "".join(
-        "<tr>" + "".join(f'<td class="num">{cell}</td>' if i in numeric else f"<td>{cell}</td>"
-                         for i, cell in enumerate(row)) + "</tr>"
-        for row in rows)
+        "<tr>"
+        + "".join(f'<td class="num">{cell}</td>' if i in numeric else f"<td>{cell}</td>" for i, cell in enumerate(row))
+        + "</tr>"
+        for row in rows
+    )
     return f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
 
 
@@ -140,15 +144,19 @@ def data_uri(png: bytes) -> str:
 
 def _figure(item: ReportFigure, png: bytes) -> str:
     stem = f"figures/{quote(item.name, safe='')}"
-    return (f'<figure id="fig-{escape(item.name)}"><img src="{data_uri(png)}" alt="{escape(item.title)}">'
-            f"<figcaption><strong>{escape(item.title)}.</strong> {escape(item.caption)} "
-            f'<span class="links">Alone: <a href="{stem}.png">PNG</a> · <a href="{stem}.svg">SVG</a></span>'
-            f"</figcaption></figure>")
+    return (
+        f'<figure id="fig-{escape(item.name)}"><img src="{data_uri(png)}" alt="{escape(item.title)}">'
+        f"<figcaption><strong>{escape(item.title)}.</strong> {escape(item.caption)} "
+        f'<span class="links">Alone: <a href="{stem}.png">PNG</a> · <a href="{stem}.svg">SVG</a></span>'
+        f"</figcaption></figure>"
+    )
 
 
-CAUTION = ("Research software, not for clinical decisions. Picking the pipeline with the most significant channels "
-           "on the data you then test inflates false positives; choose on measures that ignore the contrast "
-           "(trials kept, SME) or on tuning subjects, and confirm on subjects that played no part in the choice.")
+CAUTION = (
+    "Research software, not for clinical decisions. Picking the pipeline with the most significant channels "
+    "on the data you then test inflates false positives; choose on measures that ignore the contrast "
+    "(trials kept, SME) or on tuning subjects, and confirm on subjects that played no part in the choice."
+)
 
 
 def run_report_html(document: dict[str, Any], run: RunFacts, shown: Sequence[tuple[ReportFigure, bytes]]) -> str:
@@ -182,8 +190,11 @@ def _figures_html(shown: Sequence[tuple[ReportFigure, bytes]]) -> str:
     others = [(item, png) for item, png in shown if not item.name.startswith("topomap-")]
     parts = [_figure(item, png) for item, png in others[:1]]
     if maps:
-        parts.append("<h3>Where on the scalp</h3><div class=\"maps\">"
-                     + "".join(_figure(item, png) for item, png in maps) + "</div>")
+        parts.append(
+            '<h3>Where on the scalp</h3><div class="maps">'
+            + "".join(_figure(item, png) for item, png in maps)
+            + "</div>"
+        )
     parts.extend(_figure(item, png) for item, png in others[1:])
     if not shown:
         parts.append("<p>No entry of this run was scored, so there is nothing to plot.</p>")
@@ -195,19 +206,30 @@ def _errors_html(document: dict[str, Any]) -> str:
     warned = [entry for entry in document["results"] if entry.get("warnings")]
     if not failed and not warned:
         return ""
-    rows = [[escape(e["pipeline"]), escape(e["subject"]), f'<span class="bad">{escape(e["error"])}</span>']
-            for e in failed]
+    rows = [
+        [escape(e["pipeline"]), escape(e["subject"]), f'<span class="bad">{escape(e["error"])}</span>'] for e in failed
+    ]
     rows += [[escape(e["pipeline"]), escape(e["subject"]), escape("; ".join(e["warnings"]))] for e in warned]
     return "<h3>Errors and warnings</h3>" + _table(["pipeline", "subject", "message"], rows)
 
 
 def _epoch_sets_html(epoch_sets: Sequence[EpochSetFacts]) -> str:
-    rows = [[_code(item.id), escape(item.subject), escape(item.session or "—"),
-             escape(", ".join(f"{label}: {count}" for label, count in item.conditions.items())),
-             str(item.n_channels), f"{item.sfreq:g}", _code(item.sha256[:16] + "…"), _when(item.created_at)]
-            for item in epoch_sets]
-    return _table(["epoch set", "subject", "session", "trials", "channels", "Hz", "SHA-256", "uploaded"], rows,
-                  numeric=(4, 5))
+    rows = [
+        [
+            _code(item.id),
+            escape(item.subject),
+            escape(item.session or "—"),
+            escape(", ".join(f"{label}: {count}" for label, count in item.conditions.items())),
+            str(item.n_channels),
+            f"{item.sfreq:g}",
+            _code(item.sha256[:16] + "…"),
+            _when(item.created_at),
+        ]
+        for item in epoch_sets
+    ]
+    return _table(
+        ["epoch set", "subject", "session", "trials", "channels", "Hz", "SHA-256", "uploaded"], rows, numeric=(4, 5)
+    )
 
 
 def _pipelines_html(pipelines: Sequence[dict[str, Any]], hashes: dict[str, str]) -> str:
@@ -226,21 +248,27 @@ def _step_text(step: dict[str, Any]) -> str:
 def _provenance_html(provenance: dict[str, Any]) -> str:
     software = ", ".join(f"{name} {version}" for name, version in provenance.get("software", {}).items())
     seeds = ", ".join(f"{name}: {seed}" for name, seed in provenance.get("seeds", {}).items())
-    rows = [["software", escape(software)], ["seeds", escape(seeds or "—")],
-            ["scoring hash", _code(provenance.get("scoring_hash", ""))]]
+    rows = [
+        ["software", escape(software)],
+        ["seeds", escape(seeds or "—")],
+        ["scoring hash", _code(provenance.get("scoring_hash", ""))],
+    ]
     rows += [[f"file {escape(es)}", _code(sha)] for es, sha in provenance.get("epoch_set_sha256", {}).items()]
     return _table(["what", "value"], rows)
 
 
 def _locked_html(study_code: str, locked: LockedFacts | None) -> str:
     if locked is None:
-        return (f"<p>No pipeline is locked; lock one with POST /v1/studies/{escape(study_code)}/locked-pipeline to "
-                "score every new epoch set on arrival.</p>")
+        return (
+            f"<p>No pipeline is locked; lock one with POST /v1/studies/{escape(study_code)}/locked-pipeline to "
+            "score every new epoch set on arrival.</p>"
+        )
     steps = " → ".join(_step_text(step) for step in locked.steps) or "no steps"
     source = escape(locked.source_run) if locked.source_run else "given directly"
-    return _table(["pipeline", "steps", "spec hash", "locked", "from run"],
-                  [[escape(locked.name), escape(steps), _code(locked.pipeline_hash[:16] + "…"), _when(locked.locked_at),
-                    source]])
+    return _table(
+        ["pipeline", "steps", "spec hash", "locked", "from run"],
+        [[escape(locked.name), escape(steps), _code(locked.pipeline_hash[:16] + "…"), _when(locked.locked_at), source]],
+    )
 
 
 def _quality_html(quality: Sequence[ArrivalQuality]) -> str:
@@ -248,39 +276,72 @@ def _quality_html(quality: Sequence[ArrivalQuality]) -> str:
         return "<p>No epoch set has been scored on arrival yet.</p>"
     rows = []
     for item in quality:
-        sme = ", ".join(f"{label}: {value:.2f}" if value is not None else f"{label}: —"
-                        for label, value in item.median_sme_uv.items())
+        sme = ", ".join(
+            f"{label}: {value:.2f}" if value is not None else f"{label}: —"
+            for label, value in item.median_sme_uv.items()
+        )
         trials = ", ".join(f"{label}: {count}" for label, count in item.n_trials.items())
         kept = "—" if item.channels_kept is None else f"{item.channels_kept} of {item.channels_uploaded}"
-        rows.append([_code(item.epoch_set), escape(item.subject), escape(item.session or "—"), _when(item.scored_at),
-                     escape(trials or "—"), escape(kept), escape(sme or "—"),
-                     f'<span class="bad">{escape(item.error)}</span>' if item.error else ""])
-    return _table(["epoch set", "subject", "session", "scored", "trials kept", "channels kept",
-                   "median SME (µV)", "problem"], rows)
+        rows.append(
+            [
+                _code(item.epoch_set),
+                escape(item.subject),
+                escape(item.session or "—"),
+                _when(item.scored_at),
+                escape(trials or "—"),
+                escape(kept),
+                escape(sme or "—"),
+                f'<span class="bad">{escape(item.error)}</span>' if item.error else "",
+            ]
+        )
+    return _table(
+        ["epoch set", "subject", "session", "scored", "trials kept", "channels kept", "median SME (µV)", "problem"],
+        rows,
+    )
 
 
-def study_report_html(study_code: str, study_title: str, runs: Sequence[RunSummaryRow],
-                      epoch_sets: Sequence[EpochSetFacts], arrival_png: bytes | None,
-                      locked: LockedFacts | None, quality: Sequence[ArrivalQuality]) -> str:
+def study_report_html(
+    study_code: str,
+    study_title: str,
+    runs: Sequence[RunSummaryRow],
+    epoch_sets: Sequence[EpochSetFacts],
+    arrival_png: bytes | None,
+    locked: LockedFacts | None,
+    quality: Sequence[ArrivalQuality],
+) -> str:
     """The study page: runs so far, the locked pipeline, data quality on arrival, the epoch sets."""
-    run_rows = [[f'<a href="../../runs/{quote(run.id, safe="")}/report">{escape(run.id)}</a>',
-                 escape(run.status) + (f' <span class="bad">({escape(run.error)})</span>' if run.error else ""),
-                 _when(run.created_at), escape(", ".join(run.pipelines)), str(run.n_epoch_sets)] for run in runs]
+    run_rows = [
+        [
+            f'<a href="../../runs/{quote(run.id, safe="")}/report">{escape(run.id)}</a>',
+            escape(run.status) + (f' <span class="bad">({escape(run.error)})</span>' if run.error else ""),
+            _when(run.created_at),
+            escape(", ".join(run.pipelines)),
+            str(run.n_epoch_sets),
+        ]
+        for run in runs
+    ]
     arrival = ""
     if arrival_png is not None:
-        arrival = (f'<figure id="fig-arrivals"><img src="{data_uri(arrival_png)}" alt="Epoch sets on arrival">'
-                   "<figcaption><strong>Epoch sets on arrival.</strong> Trials of each condition and channels of every "
-                   "epoch set, in the order they were uploaded; a drop flags a session to look at.</figcaption>"
-                   "</figure>")
+        arrival = (
+            f'<figure id="fig-arrivals"><img src="{data_uri(arrival_png)}" alt="Epoch sets on arrival">'
+            "<figcaption><strong>Epoch sets on arrival.</strong> Trials of each condition and channels of every "
+            "epoch set, in the order they were uploaded; a drop flags a session to look at.</figcaption>"
+            "</figure>"
+        )
     body = [
-        f"<h1>Study {escape(study_code)}</h1>", f'<p class="sub">{escape(study_title)}</p>',
+        f"<h1>Study {escape(study_code)}</h1>",
+        f'<p class="sub">{escape(study_title)}</p>',
         f'<p class="caution">{escape(CAUTION)}</p>',
         f"<h2>Runs ({len(runs)})</h2>",
-        _table(["run", "status", "created", "pipelines", "epoch sets"], run_rows, numeric=(4,)) if runs
+        _table(["run", "status", "created", "pipelines", "epoch sets"], run_rows, numeric=(4,))
+        if runs
         else "<p>No runs yet.</p>",
-        "<h2>Locked pipeline</h2>", _locked_html(study_code, locked),
-        f"<h2>Quality on arrival ({len(quality)})</h2>", _quality_html(quality),
-        f"<h2>Epoch sets ({len(epoch_sets)})</h2>", arrival,
+        "<h2>Locked pipeline</h2>",
+        _locked_html(study_code, locked),
+        f"<h2>Quality on arrival ({len(quality)})</h2>",
+        _quality_html(quality),
+        f"<h2>Epoch sets ({len(epoch_sets)})</h2>",
+        arrival,
         _epoch_sets_html(epoch_sets) if epoch_sets else "<p>No epoch sets yet.</p>",
     ]
     return _page(f"epoch-assay study {study_code}", "".join(body))

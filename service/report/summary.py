@@ -113,7 +113,7 @@ def ranking(document: dict[str, Any]) -> Ranking:
 
 
 def _ranking_of_document(entries: list[dict[str, Any]]) -> Ranking:
-    """Rows from ranking entries (``worker.engine.ranking.RankedPipeline.to_json``), in their rank order."""
+    """Rows from ranking entries (``epoch_assay.engine.ranking.RankedPipeline.to_json``), in their rank order."""
     rows = []
     for entry in sorted(entries, key=lambda item: item["rank"]):
         if entry.get("mean") is None:
@@ -141,17 +141,21 @@ def _ranking_of_group(groups: list[dict[str, Any]], reference: str) -> Ranking:
 
 def _row_from_entries(name: str, entries: list[dict[str, Any]], is_reference: bool) -> tuple[RankingRow, str] | None:
     """One epoch set: its bootstrap median and interval. Several: the mean and a t interval over epoch sets."""
-    fractions = np.array([entry["significant_fraction"] for entry in entries
-                          if entry.get("significant_fraction") is not None], dtype=float)
+    fractions = np.array(
+        [entry["significant_fraction"] for entry in entries if entry.get("significant_fraction") is not None],
+        dtype=float,
+    )
     if fractions.size == 0:
         return None
     if fractions.size == 1:
         boot = entries[0].get("bootstrap")
         if boot and None not in (boot.get("median"), boot.get("ci_low"), boot.get("ci_high")):
-            return RankingRow(name, boot["median"], boot["ci_low"], boot["ci_high"], is_reference), \
-                "bootstrap median over trial resamples, 2.5–97.5 percentiles"
-        return RankingRow(name, float(fractions[0]), float(fractions[0]), float(fractions[0]), is_reference), \
-            "one epoch set, no bootstrap: no interval"
+            return RankingRow(
+                name, boot["median"], boot["ci_low"], boot["ci_high"], is_reference
+            ), "bootstrap median over trial resamples, 2.5–97.5 percentiles"
+        return RankingRow(
+            name, float(fractions[0]), float(fractions[0]), float(fractions[0]), is_reference
+        ), "one epoch set, no bootstrap: no interval"
     mean = float(fractions.mean())
     half = float(stats.t.ppf(0.975, fractions.size - 1) * fractions.std(ddof=1) / math.sqrt(fractions.size))
     return RankingRow(name, mean, mean - half, mean + half, is_reference), "mean over epoch sets, 95 % t interval"
@@ -179,8 +183,13 @@ def channel_map(document: dict[str, Any], pipeline: str) -> ChannelMap | None:
             significant_count[i] += bool(channel["significant"])
     with np.errstate(invalid="ignore", divide="ignore"):
         mean_t = np.where(t_count > 0, t_sum / np.maximum(t_count, 1), np.nan)
-    return ChannelMap(pipeline=pipeline, ch_names=tuple(names), t=mean_t,
-                      significant=significant_count >= len(entries) / 2, n_epoch_sets=len(entries))
+    return ChannelMap(
+        pipeline=pipeline,
+        ch_names=tuple(names),
+        t=mean_t,
+        significant=significant_count >= len(entries) / 2,
+        n_epoch_sets=len(entries),
+    )
 
 
 def kept_counts(document: dict[str, Any]) -> list[KeptCounts]:
@@ -220,13 +229,22 @@ def sme_summaries(document: dict[str, Any]) -> list[SmeSummary]:
     """Per pipeline whose entries carry ``median_sme_uv`` ({condition: µV}): the mean over epoch sets."""
     summaries = []
     for name in pipeline_names(document):
-        medians = [entry["median_sme_uv"] for entry in scored_entries(document, name)
-                   if isinstance(entry.get("median_sme_uv"), dict)]
+        medians = [
+            entry["median_sme_uv"]
+            for entry in scored_entries(document, name)
+            if isinstance(entry.get("median_sme_uv"), dict)
+        ]
         if not medians:
             continue
         labels = list(medians[0])
-        summaries.append(SmeSummary(pipeline=name, median_uv={
-            label: float(np.mean([m[label] for m in medians if m.get(label) is not None])) for label in labels}))
+        summaries.append(
+            SmeSummary(
+                pipeline=name,
+                median_uv={
+                    label: float(np.mean([m[label] for m in medians if m.get(label) is not None])) for label in labels
+                },
+            )
+        )
     return summaries
 
 

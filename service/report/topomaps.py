@@ -1,6 +1,6 @@
 """Scalp maps of per-channel t values, drawn with MNE's ``plot_topomap`` from 10-20 positions.
 
-Positions come from MNE's standard 10-20 montage by channel name (``worker.engine.montage``);
+Positions come from MNE's standard 10-20 montage by channel name (``epoch_assay.engine.montage``);
 channels the montage does not know are left off the map (and named in the caption), since a
 map needs a place for each.
 """
@@ -12,13 +12,13 @@ import matplotlib
 
 matplotlib.use("Agg")
 
-import mne  # noqa: E402 - the backend is chosen first
-import numpy as np  # noqa: E402
-from matplotlib.figure import Figure  # noqa: E402
+import mne
+import numpy as np
+from matplotlib.figure import Figure
 
-from service.report.palette import INK, T_COLOURMAP  # noqa: E402
-from service.report.summary import ChannelMap  # noqa: E402
-from worker.engine.montage import montage_positions  # noqa: E402
+from epoch_assay.engine.montage import montage_positions
+from service.report.palette import INK, T_COLOURMAP
+from service.report.summary import ChannelMap
 
 MIN_PLACED_CHANNELS = 3
 MAP_SIZE_IN = 3.0
@@ -40,11 +40,13 @@ def place(channel_map: ChannelMap) -> PlacedMap | None:
     keep = np.isfinite(positions).all(axis=1) & np.isfinite(channel_map.t)
     if keep.sum() < MIN_PLACED_CHANNELS:
         return None
-    names = [name for name, kept in zip(channel_map.ch_names, keep) if kept]
+    names = [name for name, kept in zip(channel_map.ch_names, keep, strict=False) if kept]
     info = mne.create_info(names, sfreq=100.0, ch_types="eeg")
-    info.set_montage(mne.channels.make_dig_montage(ch_pos=dict(zip(names, positions[keep])), coord_frame="head"),
-                     verbose=False)
-    unplaced = tuple(name for name, kept in zip(channel_map.ch_names, keep) if not kept)
+    info.set_montage(
+        mne.channels.make_dig_montage(ch_pos=dict(zip(names, positions[keep], strict=False)), coord_frame="head"),
+        verbose=False,
+    )
+    unplaced = tuple(name for name, kept in zip(channel_map.ch_names, keep, strict=False) if not kept)
     return PlacedMap(map=channel_map, info=info, keep=keep, unplaced=unplaced)
 
 
@@ -58,10 +60,22 @@ def topomap_figure(placed: PlacedMap, reference: str, limit: float) -> Figure:
     figure = Figure(figsize=(MAP_SIZE_IN + 0.9, MAP_SIZE_IN + 0.5), layout="constrained")
     ax = figure.subplots()
     image, _ = mne.viz.plot_topomap(
-        placed.map.t[placed.keep], placed.info, axes=ax, show=False, cmap=T_COLOURMAP, vlim=(-limit, limit),
-        mask=placed.map.significant[placed.keep], contours=4, sensors=True,
-        mask_params={"marker": "o", "markerfacecolor": "white", "markeredgecolor": INK, "markersize": 7,
-                     "linewidth": 0},
+        placed.map.t[placed.keep],
+        placed.info,
+        axes=ax,
+        show=False,
+        cmap=T_COLOURMAP,
+        vlim=(-limit, limit),
+        mask=placed.map.significant[placed.keep],
+        contours=4,
+        sensors=True,
+        mask_params={
+            "marker": "o",
+            "markerfacecolor": "white",
+            "markeredgecolor": INK,
+            "markersize": 7,
+            "linewidth": 0,
+        },
     )
     suffix = " (reference)" if placed.map.pipeline == reference else ""
     ax.set_title(f"{placed.map.pipeline}{suffix}\nwhite dots: significant", fontsize=10)

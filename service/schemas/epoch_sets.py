@@ -12,9 +12,17 @@ class EpochSetOut(BaseModel):
         "json_schema_extra": {
             "examples": [
                 {
-                    "id": "es_3f9c0a1b7d2e4f60", "study": "READ-01", "subject": "sub-01", "session": "ses-01",
-                    "n_trials": 140, "n_channels": 33, "n_times": 251, "sfreq": 250.0, "tmin": -0.2,
-                    "conditions": {"congruent": 70, "incongruent": 70}, "sha256": "9b1c…",
+                    "id": "es_3f9c0a1b7d2e4f60",
+                    "study": "READ-01",
+                    "subject": "sub-01",
+                    "session": "ses-01",
+                    "n_trials": 140,
+                    "n_channels": 33,
+                    "n_times": 251,
+                    "sfreq": 250.0,
+                    "tmin": -0.2,
+                    "conditions": {"congruent": 70, "incongruent": 70},
+                    "sha256": "9b1c…",
                     "created_at": "2026-12-01T10:00:00Z",
                 }
             ]

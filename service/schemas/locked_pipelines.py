@@ -4,12 +4,14 @@ from datetime import datetime
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
-from worker.engine.pipeline import PipelineSpec
-from worker.engine.scoring_spec import ScoringSpec
+from epoch_assay.engine.pipeline import PipelineSpec
+from epoch_assay.engine.scoring_spec import ScoringSpec
 
 LOCK_EXAMPLE = {
-    "pipeline": {"name": "hp0.5-avg", "steps": [{"step": "highpass", "cutoff_hz": 0.5},
-                                                {"step": "reference", "kind": "average"}]},
+    "pipeline": {
+        "name": "hp0.5-avg",
+        "steps": [{"step": "highpass", "cutoff_hz": 0.5}, {"step": "reference", "kind": "average"}],
+    },
     "scoring": {"conditions": ["incongruent", "congruent"], "window_s": [0.3, 0.5]},
 }
 
@@ -17,8 +19,9 @@ LOCK_EXAMPLE = {
 class LockCreate(BaseModel):
     """A pipeline and its scoring, or a succeeded run whose selection winner (and scoring) to lock."""
 
-    model_config = ConfigDict(extra="forbid",
-                              json_schema_extra={"examples": [LOCK_EXAMPLE, {"run": "run_0123456789abcdef"}]})
+    model_config = ConfigDict(
+        extra="forbid", json_schema_extra={"examples": [LOCK_EXAMPLE, {"run": "run_0123456789abcdef"}]}
+    )
 
     pipeline: PipelineSpec | None = None
     scoring: ScoringSpec | None = None

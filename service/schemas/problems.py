@@ -4,7 +4,7 @@ from pydantic import BaseModel, ConfigDict, Field
 
 
 class FieldProblem(BaseModel):
-    loc: list[str | int] = Field(description="Where the problem is, e.g. [\"body\", \"scoring\", \"alpha\"].")
+    loc: list[str | int] = Field(description='Where the problem is, e.g. ["body", "scoring", "alpha"].')
     msg: str
     type: str | None = None
 
@@ -12,10 +12,18 @@ class FieldProblem(BaseModel):
 class Problem(BaseModel):
     """An error answer (``application/problem+json``, RFC 9457)."""
 
-    model_config = ConfigDict(json_schema_extra={"examples": [{
-        "type": "urn:epoch-assay:problem:not-found", "title": "Not found", "status": 404,
-        "detail": "no study with code 'READ-01'; list the studies with GET /v1/studies",
-    }]})
+    model_config = ConfigDict(
+        json_schema_extra={
+            "examples": [
+                {
+                    "type": "urn:epoch-assay:problem:not-found",
+                    "title": "Not found",
+                    "status": 404,
+                    "detail": "no study with code 'READ-01'; list the studies with GET /v1/studies",
+                }
+            ]
+        }
+    )
 
     type: str = Field(description="A URN naming the kind of problem, e.g. urn:epoch-assay:problem:not-found.")
     title: str

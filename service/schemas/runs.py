@@ -5,11 +5,11 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
-from worker.engine.errors import SpecError
-from worker.engine.grid import GridSpec, expand_grid
-from worker.engine.pipeline import PipelineSpec
-from worker.engine.scoring_spec import ScoringSpec
-from worker.engine.selection import SelectionSpec
+from epoch_assay.engine.errors import SpecError
+from epoch_assay.engine.grid import GridSpec, expand_grid
+from epoch_assay.engine.pipeline import PipelineSpec
+from epoch_assay.engine.scoring_spec import ScoringSpec
+from epoch_assay.engine.selection import SelectionSpec
 
 RunStatus = Literal["queued", "running", "succeeded", "failed"]
 
@@ -18,7 +18,10 @@ RUN_EXAMPLE = {
     "epoch_sets": ["es_3f9c0a1b7d2e4f60"],
     "pipelines": [
         {"name": "raw", "steps": []},
-        {"name": "hp0.1-avg", "steps": [{"step": "highpass", "cutoff_hz": 0.1}, {"step": "reference", "kind": "average"}]},
+        {
+            "name": "hp0.1-avg",
+            "steps": [{"step": "highpass", "cutoff_hz": 0.1}, {"step": "reference", "kind": "average"}],
+        },
     ],
     "scoring": {
         "conditions": ["incongruent", "congruent"],
@@ -35,8 +38,9 @@ class RunCreate(BaseModel):
 
     study: str = Field(description="Code of the study the epoch sets belong to.")
     epoch_sets: list[str] = Field(min_length=1, max_length=2000, description="Ids of the epoch sets to score.")
-    pipelines: list[PipelineSpec] | None = Field(None, min_length=1, max_length=512,
-                                                 description="The pipelines to score; or give a grid instead.")
+    pipelines: list[PipelineSpec] | None = Field(
+        None, min_length=1, max_length=512, description="The pipelines to score; or give a grid instead."
+    )
     grid: GridSpec | None = Field(None, description="Factors whose levels combine into the pipelines (see README).")
     scoring: ScoringSpec
     selection: SelectionSpec | None = Field(None, description="How to choose a winner without circularity.")
@@ -55,8 +59,10 @@ class RunCreate(BaseModel):
             raise ValueError(f"pipeline names must be unique within a run; repeated: {', '.join(repeated)}")
         reference = self.scoring.reference_pipeline
         if reference is not None and reference not in names:
-            raise ValueError(f"scoring.reference_pipeline {reference!r} is not a pipeline of this run; "
-                             f"name one of: {', '.join(names)}")
+            raise ValueError(
+                f"scoring.reference_pipeline {reference!r} is not a pipeline of this run; "
+                f"name one of: {', '.join(names)}"
+            )
         return self
 
     def resolved_pipelines(self, max_pipelines: int) -> list[PipelineSpec]:
@@ -68,15 +74,19 @@ class RunCreate(BaseModel):
         if self.grid is None:
             pipelines = list(self.pipelines or [])
             if len(pipelines) > max_pipelines:
-                raise SpecError(("pipelines",), f"the run lists {len(pipelines)} pipelines, more than the limit "
-                                                f"of {max_pipelines}; split it over several runs")
+                raise SpecError(
+                    ("pipelines",),
+                    f"the run lists {len(pipelines)} pipelines, more than the limit "
+                    f"of {max_pipelines}; split it over several runs",
+                )
             return pipelines
         pipelines = [point.pipeline for point in expand_grid(self.grid, max_pipelines)]
         reference = self.scoring.reference_pipeline
         if reference is not None and reference not in {pipeline.name for pipeline in pipelines}:
-            raise SpecError(("scoring", "reference_pipeline"),
-                            f"{reference!r} is not a pipeline of this grid; grid pipelines are named "
-                            f"like {pipelines[0].name!r}")
+            raise SpecError(
+                ("scoring", "reference_pipeline"),
+                f"{reference!r} is not a pipeline of this grid; grid pipelines are named like {pipelines[0].name!r}",
+            )
         return pipelines
 
 
@@ -95,9 +105,16 @@ class ProgressDetail(BaseModel):
 
 
 RUN_OUT_EXAMPLE = {
-    "id": "run_0123456789abcdef", "study": "READ-01", "status": "running", "progress": 0.25, "error": None,
-    "created_at": "2026-12-01T10:00:00Z", "started_at": "2026-12-01T10:00:01Z", "finished_at": None,
-    "pipelines": ["raw", "hp0.1-avg"], "epoch_sets": ["es_3f9c0a1b7d2e4f60"],
+    "id": "run_0123456789abcdef",
+    "study": "READ-01",
+    "status": "running",
+    "progress": 0.25,
+    "error": None,
+    "created_at": "2026-12-01T10:00:00Z",
+    "started_at": "2026-12-01T10:00:01Z",
+    "finished_at": None,
+    "pipelines": ["raw", "hp0.1-avg"],
+    "epoch_sets": ["es_3f9c0a1b7d2e4f60"],
 }
 
 
@@ -156,18 +173,38 @@ class PipelineResult(BaseModel):
 
 
 RESULT_EXAMPLE = {
-    "schema_version": 1, "run": "run_0123456789abcdef", "study": "READ-01",
+    "schema_version": 1,
+    "run": "run_0123456789abcdef",
+    "study": "READ-01",
     "scoring": RUN_EXAMPLE["scoring"],
-    "provenance": {"software": {"epoch-assay": "0.1.0"}, "scoring_hash": "5d2c…", "pipeline_hashes": {"raw": "9f2c…"},
-                   "epoch_set_sha256": {"es_3f9c0a1b7d2e4f60": "9b1c…"}, "seeds": {"bootstrap": 7}},
-    "results": [{
-        "pipeline": "raw", "pipeline_hash": "9f2c…", "epoch_set": "es_3f9c0a1b7d2e4f60", "subject": "sub-01",
-        "session": "ses-01", "n_trials": {"congruent": 70, "incongruent": 70},
-        "channels": [{"name": "Pz", "t": -4.1, "p": 0.0001, "p_adjusted": 0.002, "significant": True}],
-        "significant_fraction": 0.41,
-        "bootstrap": {"median": 0.38, "ci_low": 0.22, "ci_high": 0.53, "resamples": 1000, "trials_per_condition": 40},
-        "provenance": [], "warnings": [],
-    }],
+    "provenance": {
+        "software": {"epoch-assay": "0.1.0"},
+        "scoring_hash": "5d2c…",
+        "pipeline_hashes": {"raw": "9f2c…"},
+        "epoch_set_sha256": {"es_3f9c0a1b7d2e4f60": "9b1c…"},
+        "seeds": {"bootstrap": 7},
+    },
+    "results": [
+        {
+            "pipeline": "raw",
+            "pipeline_hash": "9f2c…",
+            "epoch_set": "es_3f9c0a1b7d2e4f60",
+            "subject": "sub-01",
+            "session": "ses-01",
+            "n_trials": {"congruent": 70, "incongruent": 70},
+            "channels": [{"name": "Pz", "t": -4.1, "p": 0.0001, "p_adjusted": 0.002, "significant": True}],
+            "significant_fraction": 0.41,
+            "bootstrap": {
+                "median": 0.38,
+                "ci_low": 0.22,
+                "ci_high": 0.53,
+                "resamples": 1000,
+                "trials_per_condition": 40,
+            },
+            "provenance": [],
+            "warnings": [],
+        }
+    ],
 }
 
 

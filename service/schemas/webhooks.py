@@ -8,20 +8,33 @@ from pydantic import BaseModel, ConfigDict, Field, HttpUrl, field_validator
 EventType = Literal["run.succeeded", "run.failed"]
 
 WEBHOOK_EXAMPLE = {
-    "id": "wh_5a1d0c9e8b7f6a43", "study": "READ-01", "url": "https://lims.example.org/hooks/epoch-assay",
-    "events": ["run.succeeded", "run.failed"], "description": "LIMS import", "created_at": "2026-12-01T10:00:00Z",
+    "id": "wh_5a1d0c9e8b7f6a43",
+    "study": "READ-01",
+    "url": "https://lims.example.org/hooks/epoch-assay",
+    "events": ["run.succeeded", "run.failed"],
+    "description": "LIMS import",
+    "created_at": "2026-12-01T10:00:00Z",
 }
 
 
 class WebhookCreate(BaseModel):
-    model_config = ConfigDict(extra="forbid", json_schema_extra={"examples": [{
-        "url": "https://lims.example.org/hooks/epoch-assay", "events": ["run.succeeded", "run.failed"],
-        "description": "LIMS import",
-    }]})
+    model_config = ConfigDict(
+        extra="forbid",
+        json_schema_extra={
+            "examples": [
+                {
+                    "url": "https://lims.example.org/hooks/epoch-assay",
+                    "events": ["run.succeeded", "run.failed"],
+                    "description": "LIMS import",
+                }
+            ]
+        },
+    )
 
     url: HttpUrl = Field(description="http or https URL that receives a POST with the event as JSON.")
-    events: list[EventType] = Field(default=["run.succeeded", "run.failed"], min_length=1, max_length=2,
-                                    json_schema_extra={"uniqueItems": True})
+    events: list[EventType] = Field(
+        default=["run.succeeded", "run.failed"], min_length=1, max_length=2, json_schema_extra={"uniqueItems": True}
+    )
     description: str | None = Field(None, max_length=200)
 
     @field_validator("url")
@@ -51,8 +64,13 @@ class WebhookOut(BaseModel):
 
 
 class WebhookCreated(WebhookOut):
-    model_config = ConfigDict(json_schema_extra={"examples": [WEBHOOK_EXAMPLE | {
-        "secret": "whsec_2b7e151628aed2a6abf7158809cf4f3c762e7160f38b4da56a784d9045190cfe"}]})
+    model_config = ConfigDict(
+        json_schema_extra={
+            "examples": [
+                WEBHOOK_EXAMPLE | {"secret": "whsec_2b7e151628aed2a6abf7158809cf4f3c762e7160f38b4da56a784d9045190cfe"}
+            ]
+        }
+    )
 
     secret: str = Field(description="The HMAC-SHA256 signing secret. Shown only in this answer: keep it.")
 
@@ -66,13 +84,27 @@ class DeliveryAttempt(BaseModel):
 
 
 DELIVERY_EXAMPLE = {
-    "id": "dlv_77b0e3d1c2a45f68", "event_id": "evt_0c1d2e3f4a5b6c7d", "event_type": "run.succeeded",
-    "run": "run_0123456789abcdef", "status": "delivered", "attempts": 2, "next_attempt_at": None,
-    "last_status_code": 200, "last_error": None, "created_at": "2026-12-01T10:05:00Z",
+    "id": "dlv_77b0e3d1c2a45f68",
+    "event_id": "evt_0c1d2e3f4a5b6c7d",
+    "event_type": "run.succeeded",
+    "run": "run_0123456789abcdef",
+    "status": "delivered",
+    "attempts": 2,
+    "next_attempt_at": None,
+    "last_status_code": 200,
+    "last_error": None,
+    "created_at": "2026-12-01T10:05:00Z",
     "delivered_at": "2026-12-01T10:05:10Z",
-    "log": [{"attempt": 1, "at": "2026-12-01T10:05:00Z", "status_code": 503,
-             "error": "answered 503 Service Unavailable", "seconds": 0.01},
-            {"attempt": 2, "at": "2026-12-01T10:05:10Z", "status_code": 200, "error": None, "seconds": 0.01}],
+    "log": [
+        {
+            "attempt": 1,
+            "at": "2026-12-01T10:05:00Z",
+            "status_code": 503,
+            "error": "answered 503 Service Unavailable",
+            "seconds": 0.01,
+        },
+        {"attempt": 2, "at": "2026-12-01T10:05:10Z", "status_code": 200, "error": None, "seconds": 0.01},
+    ],
 }
 
 

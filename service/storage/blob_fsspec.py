@@ -33,8 +33,25 @@ from service.storage.blobs import BlobStore, StagedBlob, blob_not_found, check_b
 OBJECT_STORE_PROTOCOLS = frozenset({"s3", "s3a", "gs", "gcs", "abfs", "abfss", "az"})
 # Known to fsspec but no place to keep blobs: read-only, archives, or layers over another URL.
 # memory:// is private to one process, so the API and the workers would not share it (tests build it directly).
-UNSUITABLE_PROTOCOLS = frozenset({"http", "https", "zip", "tar", "libarchive", "github", "git", "reference", "data",
-                                  "simplecache", "filecache", "blockcache", "cached", "dir", "memory"})
+UNSUITABLE_PROTOCOLS = frozenset(
+    {
+        "http",
+        "https",
+        "zip",
+        "tar",
+        "libarchive",
+        "github",
+        "git",
+        "reference",
+        "data",
+        "simplecache",
+        "filecache",
+        "blockcache",
+        "cached",
+        "dir",
+        "memory",
+    }
+)
 
 
 def check_blob_url(url: str) -> str:
@@ -46,8 +63,10 @@ def check_blob_url(url: str) -> str:
     try:
         fsspec.get_filesystem_class(protocol)
     except ImportError as error:
-        raise ValueError(f"the driver for {protocol}:// URLs is not installed ({error}); install it, e.g. "
-                         "pip install 'epoch-assay[s3]' for s3://") from None
+        raise ValueError(
+            f"the driver for {protocol}:// URLs is not installed ({error}); install it, e.g. "
+            "pip install 'epoch-assay[s3]' for s3://"
+        ) from None
     except ValueError:
         raise ValueError(f"{url!r} has a protocol fsspec does not know ({protocol!r}); {hint}") from None
     return url

@@ -12,7 +12,7 @@ file damaged on disk after it was stored is caught on the next read.
 import os
 import secrets
 from collections.abc import Callable, Iterator
-from contextlib import contextmanager
+from contextlib import contextmanager, suppress
 from pathlib import Path
 
 from service.storage.blobs import BlobStore, StagedBlob, blob_not_found, check_blob_name, verify
@@ -38,10 +38,8 @@ class LocalBlobStore(BlobStore):
     def commit(self, staged: StagedBlob) -> None:
         target = self.path(staged.sha256)
         target.parent.mkdir(parents=True, exist_ok=True)
-        try:
+        with suppress(FileExistsError):
             os.link(staged.path, target)
-        except FileExistsError:
-            pass
 
     @contextmanager
     def local_copy(self, sha256: str) -> Iterator[Path]:

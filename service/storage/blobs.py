@@ -87,8 +87,10 @@ def verify(path: Path, sha256: str, location: str) -> None:
 
 def blob_not_found(sha256: str, location: str) -> FileNotFoundError:
     """The error a read of a blob that is not stored raises (permanent for the worker)."""
-    return FileNotFoundError(f"No such file for blob {sha256} in {location}: its epoch set's file is gone from the "
-                             "blob store; upload it again")
+    return FileNotFoundError(
+        f"No such file for blob {sha256} in {location}: its epoch set's file is gone from the "
+        "blob store; upload it again"
+    )
 
 
 class BlobStore(ABC):

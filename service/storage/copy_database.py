@@ -67,8 +67,7 @@ def _refuse_non_empty(connection: Connection, tables: list[Table]) -> None:
         rows = connection.scalar(select(func.count()).select_from(table))
         if rows:
             raise CopyRefused(
-                f"the target database already holds {rows} rows in table {table.name}; "
-                "copy into a new, empty database"
+                f"the target database already holds {rows} rows in table {table.name}; copy into a new, empty database"
             )
 
 

@@ -50,8 +50,14 @@ def token_sha256(token: str) -> str:
 
 
 def _info(key: ApiKey, study_code: str | None) -> KeyInfo:
-    return KeyInfo(id=key.id, role=key.role, study_code=study_code, label=key.label, created_at=key.created_at,
-                   revoked_at=key.revoked_at)
+    return KeyInfo(
+        id=key.id,
+        role=key.role,
+        study_code=study_code,
+        label=key.label,
+        created_at=key.created_at,
+        revoked_at=key.revoked_at,
+    )
 
 
 def create_key(session: Session, role: Role, study_code: str | None = None, label: str | None = None) -> CreatedKey:
@@ -70,8 +76,14 @@ def create_key(session: Session, role: Role, study_code: str | None = None, labe
         if study_id is None:
             raise KeyProblem(f"no study with code {study_code!r}; create it first (POST /v1/studies with an admin key)")
     token = TOKEN_PREFIX + secrets.token_urlsafe(32)
-    key = ApiKey(id=new_id("key"), token_sha256=token_sha256(token), role=role, study_id=study_id, label=label,
-                 created_at=utc_now())
+    key = ApiKey(
+        id=new_id("key"),
+        token_sha256=token_sha256(token),
+        role=role,
+        study_id=study_id,
+        label=label,
+        created_at=utc_now(),
+    )
     session.add(key)
     session.flush()
     return CreatedKey(info=_info(key, study_code), token=token)

@@ -1,5 +1,6 @@
 """Bring a database to the newest schema with Alembic."""
 
+import importlib.util
 from pathlib import Path
 
 from alembic import command
@@ -8,7 +9,7 @@ from alembic.runtime.migration import MigrationContext
 from alembic.script import ScriptDirectory
 from sqlalchemy import Engine
 
-MIGRATIONS_DIR = Path(__file__).resolve().parents[2] / "migrations"
+MIGRATIONS_DIR = Path(importlib.util.find_spec("epoch_assay.migrations").submodule_search_locations[0])
 
 
 def alembic_config(database_url: str) -> Config:

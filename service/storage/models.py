@@ -105,7 +105,7 @@ class Run(Base):
     spec: Mapped[dict[str, Any]] = mapped_column(JSON)
     status: Mapped[str] = mapped_column(String(16), default="queued")
     progress: Mapped[float] = mapped_column(Float, default=0.0)
-    # units_done, units_total, elapsed_s, eta_s of the latest heartbeat (worker.parallel.Progress)
+    # units_done, units_total, elapsed_s, eta_s of the latest heartbeat (worker.execution.parallel.Progress)
     progress_detail: Mapped[dict[str, Any] | None] = mapped_column(JSON, nullable=True)
     error: Mapped[str | None] = mapped_column(Text, nullable=True)
     created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utc_now)

@@ -33,34 +33,54 @@ def _iso(moment: datetime | None) -> str | None:
 def record_run_event(session: Session, run_id: str, status: str, error: str | None, now: datetime) -> int:
     """Queue the event ``run.<status>`` for every webhook of the run's study that wants it; returns how many."""
     event_type = f"run.{status}"
-    row = session.execute(
-        select(Run, Study.code).join(Study, Run.study_id == Study.id).where(Run.id == run_id)
-    ).first()
+    row = session.execute(select(Run, Study.code).join(Study, Run.study_id == Study.id).where(Run.id == run_id)).first()
     if row is None:
         return 0
     run, study_code = row
-    hooks = [hook for hook in session.scalars(select(Webhook).where(Webhook.study_id == run.study_id))
-             if event_type in hook.events]
+    hooks = [
+        hook
+        for hook in session.scalars(select(Webhook).where(Webhook.study_id == run.study_id))
+        if event_type in hook.events
+    ]
     if not hooks:
         return 0
     event_id = new_id("evt")
-    payload = json.dumps({
-        "id": event_id,
-        "type": event_type,
-        "created_at": _iso(now),
-        "data": {
-            "run": {
-                "id": run.id, "study": study_code, "status": status, "error": error,
-                "created_at": _iso(run.created_at), "started_at": _iso(run.started_at), "finished_at": _iso(now),
-                "pipelines": [pipeline["name"] for pipeline in run.spec.get("pipelines", [])],
-                "epoch_sets": list(run.spec.get("epoch_sets", [])),
+    payload = json.dumps(
+        {
+            "id": event_id,
+            "type": event_type,
+            "created_at": _iso(now),
+            "data": {
+                "run": {
+                    "id": run.id,
+                    "study": study_code,
+                    "status": status,
+                    "error": error,
+                    "created_at": _iso(run.created_at),
+                    "started_at": _iso(run.started_at),
+                    "finished_at": _iso(now),
+                    "pipelines": [pipeline["name"] for pipeline in run.spec.get("pipelines", [])],
+                    "epoch_sets": list(run.spec.get("epoch_sets", [])),
+                },
+                "links": {"run": f"/v1/runs/{run.id}", "result": f"/v1/runs/{run.id}/result"},
             },
-            "links": {"run": f"/v1/runs/{run.id}", "result": f"/v1/runs/{run.id}/result"},
         },
-    }, separators=(",", ":"))
+        separators=(",", ":"),
+    )
     session.add_all(
-        WebhookDelivery(id=new_id("dlv"), webhook_id=hook.id, event_id=event_id, event_type=event_type, run_id=run.id,
-                        payload=payload, status=PENDING, attempts=0, next_attempt_at=now, log=[], created_at=now)
+        WebhookDelivery(
+            id=new_id("dlv"),
+            webhook_id=hook.id,
+            event_id=event_id,
+            event_type=event_type,
+            run_id=run.id,
+            payload=payload,
+            status=PENDING,
+            attempts=0,
+            next_attempt_at=now,
+            log=[],
+            created_at=now,
+        )
         for hook in hooks
     )
     return len(hooks)
@@ -95,14 +115,27 @@ def claim_delivery(session: Session, lease_seconds: float) -> DueDelivery | None
         update(WebhookDelivery)
         .where(WebhookDelivery.id == candidate.scalar_subquery(), _due(now))
         .values(lease_expires_at=now + timedelta(seconds=lease_seconds), attempts=WebhookDelivery.attempts + 1)
-        .returning(WebhookDelivery.id, WebhookDelivery.webhook_id, WebhookDelivery.event_id,
-                   WebhookDelivery.event_type, WebhookDelivery.payload, WebhookDelivery.attempts)
+        .returning(
+            WebhookDelivery.id,
+            WebhookDelivery.webhook_id,
+            WebhookDelivery.event_id,
+            WebhookDelivery.event_type,
+            WebhookDelivery.payload,
+            WebhookDelivery.attempts,
+        )
     ).first()
     if row is None:
         return None
     hook = session.get(Webhook, row.webhook_id)
-    return DueDelivery(id=row.id, event_id=row.event_id, event_type=row.event_type, url=hook.url, secret=hook.secret,
-                       payload=row.payload, attempt=row.attempts)
+    return DueDelivery(
+        id=row.id,
+        event_id=row.event_id,
+        event_type=row.event_type,
+        url=hook.url,
+        secret=hook.secret,
+        payload=row.payload,
+        attempt=row.attempts,
+    )
 
 
 @dataclass(frozen=True)
@@ -113,15 +146,27 @@ class AttemptOutcome:
     seconds: float
 
 
-def record_attempt(session: Session, delivery: DueDelivery, outcome: AttemptOutcome, *, max_attempts: int,
-                   backoff_seconds: float, backoff_max_seconds: float) -> str:
+def record_attempt(
+    session: Session,
+    delivery: DueDelivery,
+    outcome: AttemptOutcome,
+    *,
+    max_attempts: int,
+    backoff_seconds: float,
+    backoff_max_seconds: float,
+) -> str:
     """Log one attempt and move the delivery on (delivered, failed, or pending until the next try); the new status."""
     now = utc_now()
     row = session.get(WebhookDelivery, delivery.id)
     if row is None:
         return FAILED
-    entry = {"attempt": delivery.attempt, "at": _iso(now), "status_code": outcome.status_code,
-             "error": outcome.error, "seconds": round(outcome.seconds, 4)}
+    entry = {
+        "attempt": delivery.attempt,
+        "at": _iso(now),
+        "status_code": outcome.status_code,
+        "error": outcome.error,
+        "seconds": round(outcome.seconds, 4),
+    }
     row.log = [*row.log, entry]
     row.last_status_code, row.last_error, row.lease_expires_at = outcome.status_code, outcome.error, None
     if outcome.delivered:

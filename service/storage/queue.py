@@ -45,8 +45,10 @@ def enqueue(session: Session, run_id: str, *, max_attempts: int) -> Job:
 def _claimable(now: datetime):  # type: ignore[no-untyped-def]
     return and_(
         Job.attempts < Job.max_attempts,
-        or_(and_(Job.status == QUEUED, or_(Job.available_at.is_(None), Job.available_at <= now)),
-            and_(Job.status == RUNNING, Job.lease_expires_at < now)),
+        or_(
+            and_(Job.status == QUEUED, or_(Job.available_at.is_(None), Job.available_at <= now)),
+            and_(Job.status == RUNNING, Job.lease_expires_at < now),
+        ),
     )
 
 
@@ -89,8 +91,14 @@ def _fail_exhausted(session: Session, now: datetime) -> None:
         _finish(session, job_id, run_id, FAILED, reason, now, Job.lease_expires_at < now)
 
 
-def heartbeat(session: Session, job: ClaimedJob, worker_id: str, lease_seconds: float, progress: float | None = None,
-              progress_detail: dict[str, Any] | None = None) -> bool:
+def heartbeat(
+    session: Session,
+    job: ClaimedJob,
+    worker_id: str,
+    lease_seconds: float,
+    progress: float | None = None,
+    progress_detail: dict[str, Any] | None = None,
+) -> bool:
     """Renew the lease (and record progress and its detail). False when the job is no longer this worker's."""
     now = utc_now()
     renewed = session.execute(
@@ -130,8 +138,13 @@ def retry_or_fail(session: Session, job: ClaimedJob, worker_id: str, error: str,
         return FAILED if _finish(session, job.id, job.run_id, FAILED, reason, now, Job.worker_id == worker_id) else None
     wait = backoff_seconds * 2 ** (job.attempt - 1)
     requeued = session.execute(
-        update(Job).where(Job.id == job.id, Job.worker_id == worker_id, Job.status == RUNNING).values(
-            status=QUEUED, worker_id=None, lease_expires_at=None, error=error,
+        update(Job)
+        .where(Job.id == job.id, Job.worker_id == worker_id, Job.status == RUNNING)
+        .values(
+            status=QUEUED,
+            worker_id=None,
+            lease_expires_at=None,
+            error=error,
             available_at=now + timedelta(seconds=wait),
         )
     ).rowcount
@@ -158,8 +171,15 @@ def _finish_held(session: Session, job: ClaimedJob, worker_id: str, status: str,
     return _finish(session, job.id, job.run_id, status, error, utc_now(), Job.worker_id == worker_id)
 
 
-def _finish(session: Session, job_id: str, run_id: str, status: str, error: str | None, now: datetime,
-            still: ColumnElement[bool]) -> bool:
+def _finish(
+    session: Session,
+    job_id: str,
+    run_id: str,
+    status: str,
+    error: str | None,
+    now: datetime,
+    still: ColumnElement[bool],
+) -> bool:
     """Finish the job and its run while the job is running and ``still`` holds of it; False (nothing changed) if not.
 
     The check is part of the UPDATE, so of two transactions finishing one job at once (two workers failing an
@@ -167,7 +187,8 @@ def _finish(session: Session, job_id: str, run_id: str, status: str, error: str 
     the second waits for the row and finds it no longer running, on SQLite writers take turns.
     """
     finished = session.execute(
-        update(Job).where(Job.id == job_id, Job.status == RUNNING, still)
+        update(Job)
+        .where(Job.id == job_id, Job.status == RUNNING, still)
         .values(status=status, error=error, finished_at=now, lease_expires_at=None)
     ).rowcount
     if not finished:

@@ -7,11 +7,18 @@ from tests.support.live import wait_for_run
 SCORING = {"conditions": ["a", "b"], "window_s": [0.3, 0.5], "alpha": 0.05, "correction": "fdr_bh"}
 
 
-def upload(client: httpx.Client, study: str, content: bytes, subject: str = "sub-01", session: str | None = "ses-01",
-           filename: str = "epochs.npz") -> httpx.Response:
+def upload(
+    client: httpx.Client,
+    study: str,
+    content: bytes,
+    subject: str = "sub-01",
+    session: str | None = "ses-01",
+    filename: str = "epochs.npz",
+) -> httpx.Response:
     data = {"subject": subject} | ({"session": session} if session else {})
-    return client.post(f"/v1/studies/{study}/epoch-sets", data=data,
-                       files={"file": (filename, content, "application/octet-stream")})
+    return client.post(
+        f"/v1/studies/{study}/epoch-sets", data=data, files={"file": (filename, content, "application/octet-stream")}
+    )
 
 
 def run_and_wait(client: httpx.Client, body: dict) -> dict:

@@ -62,12 +62,19 @@ def world(service: LiveService) -> World:
     assert wait_for_run(admin, run)["status"] == "succeeded"
     webhook = admin.post(f"/v1/studies/{study}/webhooks", json=WEBHOOK).json()["id"]
     with ThreadPoolExecutor(max_workers=4) as pool:
-        revoked, other_write, read, write = pool.map(lambda role_study: service.create_key(*role_study),
-                                                     [("write", study), ("write", other), ("read", study),
-                                                      ("write", study)])
+        revoked, other_write, read, write = pool.map(
+            lambda role_study: service.create_key(*role_study),
+            [("write", study), ("write", other), ("read", study), ("write", study)],
+        )
     service.revoke_key(revoked)
-    tokens = {"none": None, "revoked": revoked, "other study": other_write, "read": read, "write": write,
-              "admin": service.admin_token}
+    tokens = {
+        "none": None,
+        "revoked": revoked,
+        "other study": other_write,
+        "read": read,
+        "write": write,
+        "admin": service.admin_token,
+    }
     yield World(service, admin, study, other, epoch_set, run, webhook, tokens)
     admin.close()
 
@@ -90,49 +97,100 @@ ROUTES = [
     Route("GET", "/healthz", "public", _get(lambda w: "/healthz")),
     Route("GET", "/readyz", "public", _get(lambda w: "/readyz")),
     Route("GET", "/metrics", "any key", _get(lambda w: "/metrics")),
-    Route("POST", "/v1/studies", "admin",
-          lambda w: ("/v1/studies", {"json": {"code": f"acc-new-{next(_codes)}-{free_port()}", "title": "t"}})),
+    Route(
+        "POST",
+        "/v1/studies",
+        "admin",
+        lambda w: ("/v1/studies", {"json": {"code": f"acc-new-{next(_codes)}-{free_port()}", "title": "t"}}),
+    ),
     Route("GET", "/v1/studies", "any key", _get(lambda w: "/v1/studies")),
     Route("GET", "/v1/studies/{code}", "read", _get(lambda w: f"/v1/studies/{w.study}")),
-    Route("POST", "/v1/studies/{code}/epoch-sets", "write", lambda w: (
-        f"/v1/studies/{w.study}/epoch-sets",
-        {"data": {"subject": "sub-09"}, "files": {"file": ("e.npz", npz_bytes(small_epochs(seed=next(_seeds))))}})),
+    Route(
+        "POST",
+        "/v1/studies/{code}/epoch-sets",
+        "write",
+        lambda w: (
+            f"/v1/studies/{w.study}/epoch-sets",
+            {"data": {"subject": "sub-09"}, "files": {"file": ("e.npz", npz_bytes(small_epochs(seed=next(_seeds))))}},
+        ),
+    ),
     Route("GET", "/v1/studies/{code}/epoch-sets", "read", _get(lambda w: f"/v1/studies/{w.study}/epoch-sets")),
-    Route("GET", "/v1/studies/{code}/epoch-sets/{epoch_set_id}", "read",
-          _get(lambda w: f"/v1/studies/{w.study}/epoch-sets/{w.epoch_set}")),
-    Route("DELETE", "/v1/studies/{code}/epoch-sets/{epoch_set_id}", "write",
-          _get(lambda w: f"/v1/studies/{w.study}/epoch-sets/{w.fresh_epoch_set()}")),
+    Route(
+        "GET",
+        "/v1/studies/{code}/epoch-sets/{epoch_set_id}",
+        "read",
+        _get(lambda w: f"/v1/studies/{w.study}/epoch-sets/{w.epoch_set}"),
+    ),
+    Route(
+        "DELETE",
+        "/v1/studies/{code}/epoch-sets/{epoch_set_id}",
+        "write",
+        _get(lambda w: f"/v1/studies/{w.study}/epoch-sets/{w.fresh_epoch_set()}"),
+    ),
     Route("POST", "/v1/runs", "write", lambda w: ("/v1/runs", {"json": run_body(w.study, w.epoch_set)})),
     Route("GET", "/v1/runs", "any key", _get(lambda w: "/v1/runs")),
     Route("GET", "/v1/runs/{run_id}", "read", _get(lambda w: f"/v1/runs/{w.run}")),
     Route("DELETE", "/v1/runs/{run_id}", "write", _get(lambda w: f"/v1/runs/{w.fresh_run()}")),
     Route("GET", "/v1/runs/{run_id}/result", "read", _get(lambda w: f"/v1/runs/{w.run}/result")),
-    Route("POST", "/v1/studies/{code}/webhooks", "write",
-          lambda w: (f"/v1/studies/{w.study}/webhooks", {"json": WEBHOOK})),
+    Route(
+        "POST", "/v1/studies/{code}/webhooks", "write", lambda w: (f"/v1/studies/{w.study}/webhooks", {"json": WEBHOOK})
+    ),
     Route("GET", "/v1/studies/{code}/webhooks", "write", _get(lambda w: f"/v1/studies/{w.study}/webhooks")),
-    Route("GET", "/v1/studies/{code}/webhooks/{webhook_id}", "write",
-          _get(lambda w: f"/v1/studies/{w.study}/webhooks/{w.webhook}")),
-    Route("DELETE", "/v1/studies/{code}/webhooks/{webhook_id}", "write",
-          _get(lambda w: f"/v1/studies/{w.study}/webhooks/{w.fresh_webhook()}")),
-    Route("GET", "/v1/studies/{code}/webhooks/{webhook_id}/deliveries", "write",
-          _get(lambda w: f"/v1/studies/{w.study}/webhooks/{w.webhook}/deliveries")),
+    Route(
+        "GET",
+        "/v1/studies/{code}/webhooks/{webhook_id}",
+        "write",
+        _get(lambda w: f"/v1/studies/{w.study}/webhooks/{w.webhook}"),
+    ),
+    Route(
+        "DELETE",
+        "/v1/studies/{code}/webhooks/{webhook_id}",
+        "write",
+        _get(lambda w: f"/v1/studies/{w.study}/webhooks/{w.fresh_webhook()}"),
+    ),
+    Route(
+        "GET",
+        "/v1/studies/{code}/webhooks/{webhook_id}/deliveries",
+        "write",
+        _get(lambda w: f"/v1/studies/{w.study}/webhooks/{w.webhook}/deliveries"),
+    ),
     # A file that is no recording: a caller let through gets 422 for the file, not 401, 403 or 404.
-    Route("POST", "/v1/studies/{code}/recordings", "write", lambda w: (
-        f"/v1/studies/{w.study}/recordings",
-        {"data": {"subject": "sub-09", "epoching": '{"tmin": -0.2, "tmax": 0.5, "conditions": {"a": ["1"]}}'},
-         "files": {"file": ("r.edf", b"not a recording")}}),
-        passed=lambda answer: answer.status_code == 422),
+    Route(
+        "POST",
+        "/v1/studies/{code}/recordings",
+        "write",
+        lambda w: (
+            f"/v1/studies/{w.study}/recordings",
+            {
+                "data": {"subject": "sub-09", "epoching": '{"tmin": -0.2, "tmax": 0.5, "conditions": {"a": ["1"]}}'},
+                "files": {"file": ("r.edf", b"not a recording")},
+            },
+        ),
+        passed=lambda answer: answer.status_code == 422,
+    ),
     Route("GET", "/v1/runs/{run_id}/report", "read", _get(lambda w: f"/v1/runs/{w.run}/report")),
-    Route("GET", "/v1/runs/{run_id}/figures/{name}.{fmt}", "read",
-          _get(lambda w: f"/v1/runs/{w.run}/figures/kept.svg")),
+    Route(
+        "GET", "/v1/runs/{run_id}/figures/{name}.{fmt}", "read", _get(lambda w: f"/v1/runs/{w.run}/figures/kept.svg")
+    ),
     Route("GET", "/v1/studies/{code}/report", "read", _get(lambda w: f"/v1/studies/{w.study}/report")),
     # Last: once the study has a locked pipeline, every upload queues a run, and an epoch set a run refers to
     # cannot be deleted, so the routes above must not see the lock.
-    Route("POST", "/v1/studies/{code}/locked-pipeline", "write",
-          lambda w: (f"/v1/studies/{w.study}/locked-pipeline", {"json": LOCK})),
-    Route("GET", "/v1/studies/{code}/locked-pipeline", "read", lambda w: (
-        w.admin.post(f"/v1/studies/{w.study}/locked-pipeline", json=LOCK).raise_for_status()
-        and f"/v1/studies/{w.study}/locked-pipeline", {})),
+    Route(
+        "POST",
+        "/v1/studies/{code}/locked-pipeline",
+        "write",
+        lambda w: (f"/v1/studies/{w.study}/locked-pipeline", {"json": LOCK}),
+    ),
+    Route(
+        "GET",
+        "/v1/studies/{code}/locked-pipeline",
+        "read",
+        lambda w: (
+            w.admin.post(f"/v1/studies/{w.study}/locked-pipeline", json=LOCK).raise_for_status()
+            and f"/v1/studies/{w.study}/locked-pipeline",
+            {},
+        ),
+    ),
 ]
 CALLERS = ("none", "revoked", "other study", "read", "write", "admin")
 
@@ -147,8 +205,11 @@ EXPECTED = {
 
 
 def test_the_matrix_names_every_route_of_the_api(world):
-    documented = {(method.upper(), path) for path, item in world.admin.get("/openapi.json").json()["paths"].items()
-                  for method in item}
+    documented = {
+        (method.upper(), path)
+        for path, item in world.admin.get("/openapi.json").json()["paths"].items()
+        for method in item
+    }
     assert documented == {(route.method, route.path) for route in ROUTES}
 
 
@@ -179,8 +240,9 @@ def test_a_study_the_key_does_not_cover_looks_exactly_like_a_missing_one(world):
         hidden = http.get(f"/v1/studies/{world.study}")
         absent = http.get(f"/v1/studies/{missing}")
     assert hidden.status_code == absent.status_code == 404
-    assert hidden.json() | {"detail": hidden.json()["detail"].replace(world.study, "X")} == \
-        absent.json() | {"detail": absent.json()["detail"].replace(missing, "X")}
+    assert hidden.json() | {"detail": hidden.json()["detail"].replace(world.study, "X")} == absent.json() | {
+        "detail": absent.json()["detail"].replace(missing, "X")
+    }
 
 
 def test_a_run_the_key_does_not_cover_looks_exactly_like_a_missing_one(world):
@@ -203,8 +265,11 @@ def test_listings_show_only_the_studies_and_runs_the_key_covers(world):
 
 
 def test_refused_deletes_leave_everything_in_place(world):
-    targets = [f"/v1/runs/{world.run}", f"/v1/studies/{world.study}/epoch-sets/{world.epoch_set}",
-               f"/v1/studies/{world.study}/webhooks/{world.webhook}"]
+    targets = [
+        f"/v1/runs/{world.run}",
+        f"/v1/studies/{world.study}/epoch-sets/{world.epoch_set}",
+        f"/v1/studies/{world.study}/webhooks/{world.webhook}",
+    ]
     for caller in ("none", "revoked", "other study", "read"):
         with world.service.client(world.tokens[caller]) as http:
             assert all(http.delete(target).status_code in (401, 403, 404) for target in targets)
@@ -229,8 +294,9 @@ def test_keys_are_stored_only_as_hashes(world):
     assert any(isinstance(value, str) and len(value) == 64 for value in stored)
 
 
-@pytest.mark.parametrize("args", [["--role", "read"], ["--role", "admin", "--study", "X"],
-                                  ["--role", "write", "--study", "no-such-study"]])
+@pytest.mark.parametrize(
+    "args", [["--role", "read"], ["--role", "admin", "--study", "X"], ["--role", "write", "--study", "no-such-study"]]
+)
 def test_keys_create_refuses_a_key_that_cannot_exist(world, args):
     finished = run_cli(["keys", "create", *args, "--data-dir", str(world.service.data_dir)], world.service.env)
     assert finished.returncode != 0 and "epoch-assay keys create:" in finished.stderr and finished.stdout == ""

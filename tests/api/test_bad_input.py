@@ -10,8 +10,13 @@ from tests.support.live import start_service
 
 def _good_arrays() -> dict:
     epochs = small_epochs(seed=10)
-    return {"data": epochs.data, "sfreq": np.float64(100.0), "tmin": np.float64(-0.2),
-            "ch_names": np.array(CHANNELS), "labels": epochs.labels}
+    return {
+        "data": epochs.data,
+        "sfreq": np.float64(100.0),
+        "tmin": np.float64(-0.2),
+        "ch_names": np.array(CHANNELS),
+        "labels": epochs.labels,
+    }
 
 
 def _with(**changes) -> bytes:
@@ -34,7 +39,10 @@ BAD_FILES = {
     "wrong rank": (_with(data=np.zeros((60, 8))), "data"),
     "NaN in data": (_with(data=_nan_data()), "data"),
     "label count mismatch": (_with(labels=np.array(["a"] * 59)), "labels"),
-    "duplicate channel names": (_with(ch_names=np.array(["Fz", "Fz", "Pz", "C3", "C4", "TP9", "TP10", "Oz"])), "ch_names"),
+    "duplicate channel names": (
+        _with(ch_names=np.array(["Fz", "Fz", "Pz", "C3", "C4", "TP9", "TP10", "Oz"])),
+        "ch_names",
+    ),
     "non-positive sfreq": (_with(sfreq=np.float64(0.0)), "sfreq"),
     "microvolts declared as volts": (_with(data=_good_arrays()["data"] * 1e6), "data"),
     "missing labels": (_with(labels=None), "labels"),
@@ -67,7 +75,10 @@ def test_upload_without_a_subject_is_422(client, study):
 def test_duplicate_study_code_is_409_and_the_first_study_is_kept(client, study):
     answer = client.post("/v1/studies", json={"code": study, "title": "another"})
     assert answer.status_code == 409
-    assert client.get(f"/v1/studies/{study}").json()["title"] == f"study of {test_duplicate_study_code_is_409_and_the_first_study_is_kept.__name__}"
+    assert (
+        client.get(f"/v1/studies/{study}").json()["title"]
+        == f"study of {test_duplicate_study_code_is_409_and_the_first_study_is_kept.__name__}"
+    )
 
 
 @pytest.mark.parametrize("code", ["", "-leading-dash", "has space", "x" * 65])
@@ -76,8 +87,12 @@ def test_study_code_that_breaks_the_pattern_is_422(client, code):
 
 
 def _run_body(study: str, epoch_set: str, steps: list | None = None, **scoring) -> dict:
-    return {"study": study, "epoch_sets": [epoch_set], "pipelines": [{"name": "p", "steps": steps or []}],
-            "scoring": SCORING | scoring}
+    return {
+        "study": study,
+        "epoch_sets": [epoch_set],
+        "pipelines": [{"name": "p", "steps": steps or []}],
+        "scoring": SCORING | scoring,
+    }
 
 
 # case: (steps of the one pipeline, changes to the scoring, text the answer must contain)
@@ -89,7 +104,10 @@ BAD_RUNS = {
     "scoring window outside the epoch": ([], {"window_s": [0.5, 2.0]}, "window_s"),
     "unknown condition": ([], {"conditions": ["a", "zzz"]}, "zzz"),
     "bootstrap asks for more trials than there are": (
-        [], {"bootstrap": {"trials_per_condition": 500, "resamples": 100, "seed": 1}}, "trials_per_condition"),
+        [],
+        {"bootstrap": {"trials_per_condition": 500, "resamples": 100, "seed": 1}},
+        "trials_per_condition",
+    ),
     "unknown step": ([{"step": "make_it_significant"}], {}, "make_it_significant"),
     "alpha out of range": ([], {"alpha": 1.5}, "alpha"),
 }

@@ -30,8 +30,9 @@ def uploaded(cli, study, tmp_path) -> str:
 @pytest.fixture()
 def spec_file(study, uploaded, tmp_path):
     path = tmp_path / "run.json"
-    path.write_text(json.dumps({"study": study, "epoch_sets": [uploaded], "pipelines": SPEC_PIPELINES,
-                                "scoring": SCORING}))
+    path.write_text(
+        json.dumps({"study": study, "epoch_sets": [uploaded], "pipelines": SPEC_PIPELINES, "scoring": SCORING})
+    )
     return path
 
 

@@ -14,8 +14,10 @@ from tests.support.epoch_files import npz_bytes, small_epochs
 from tests.support.live import REPO_ROOT, free_port, wait_for_run
 
 EXAMPLES = REPO_ROOT / "client_examples"
-SPEC = {"pipelines": [{"name": "raw", "steps": []}, {"name": "lp30", "steps": [{"step": "lowpass", "cutoff_hz": 30.0}]}],
-        "scoring": SCORING}
+SPEC = {
+    "pipelines": [{"name": "raw", "steps": []}, {"name": "lp30", "steps": [{"step": "lowpass", "cutoff_hz": 30.0}]}],
+    "scoring": SCORING,
+}
 
 
 @pytest.fixture()
@@ -32,9 +34,23 @@ def _env(service, token: str) -> dict[str, str]:
 
 def _after_session(service, study: str, files, token: str) -> subprocess.CompletedProcess:
     return subprocess.run(
-        [sys.executable, str(EXAMPLES / "after_session.py"), "--study", study, "--session", "ses-01",
-         "--spec", str(files / "run.json"), f"sub-01={files / 'sub-01.npz'}", f"sub-02={files / 'sub-02.npz'}"],
-        env=_env(service, token), capture_output=True, text=True, timeout=180)
+        [
+            sys.executable,
+            str(EXAMPLES / "after_session.py"),
+            "--study",
+            study,
+            "--session",
+            "ses-01",
+            "--spec",
+            str(files / "run.json"),
+            f"sub-01={files / 'sub-01.npz'}",
+            f"sub-02={files / 'sub-02.npz'}",
+        ],
+        env=_env(service, token),
+        capture_output=True,
+        text=True,
+        timeout=180,
+    )
 
 
 def _run_id(output: str) -> str:
@@ -54,15 +70,29 @@ def test_after_session_script_run_twice_starts_one_run(service, study, files):
     first, second = (_after_session(service, study, files, token) for _ in range(2))
     assert second.returncode == 0, second.stderr
     assert _run_id(first.stdout) == _run_id(second.stdout)
-    uploads = [[line.split()[-1] for line in run.stdout.splitlines() if line.startswith("sub-")] for run in (first, second)]
+    uploads = [
+        [line.split()[-1] for line in run.stdout.splitlines() if line.startswith("sub-")] for run in (first, second)
+    ]
     assert uploads[0] == uploads[1] and len(uploads[0]) == 2
 
 
 def test_curl_script_prints_the_result_csv_and_saves_the_report(service, study, files):
     finished = subprocess.run(
-        ["sh", str(EXAMPLES / "run_with_curl.sh"), study, "sub-01", "ses-01", str(files / "sub-01.npz"),
-         str(files / "run.json")], env=_env(service, service.create_key("write", study)), cwd=files,
-        capture_output=True, text=True, timeout=180)
+        [
+            "sh",
+            str(EXAMPLES / "run_with_curl.sh"),
+            study,
+            "sub-01",
+            "ses-01",
+            str(files / "sub-01.npz"),
+            str(files / "run.json"),
+        ],
+        env=_env(service, service.create_key("write", study)),
+        cwd=files,
+        capture_output=True,
+        text=True,
+        timeout=180,
+    )
     assert finished.returncode == 0, finished.stderr
     run_id = next(line.split()[1] for line in finished.stdout.splitlines() if line.startswith("run: "))
     rows = list(csv.DictReader(line for line in finished.stdout.splitlines() if "," in line))
@@ -79,9 +109,13 @@ def receiver(service, study, tmp_path):
         hook = http.post(f"/v1/studies/{study}/webhooks", json={"url": f"http://127.0.0.1:{port}/hook"}).json()
     csv_path = tmp_path / "runs.csv"
     env = _env(service, service.create_key("read", study)) | {"EPOCH_ASSAY_WEBHOOK_SECRET": hook["secret"]}
-    process = subprocess.Popen([sys.executable, str(EXAMPLES / "webhook_to_csv.py"), "--port", str(port),
-                                "--csv", str(csv_path)], env=env, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL,
-                               text=True)
+    process = subprocess.Popen(
+        [sys.executable, str(EXAMPLES / "webhook_to_csv.py"), "--port", str(port), "--csv", str(csv_path)],
+        env=env,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.DEVNULL,
+        text=True,
+    )
     try:
         assert process.stdout.readline().startswith("listening on")
         yield f"http://127.0.0.1:{port}/hook", csv_path
@@ -92,18 +126,25 @@ def receiver(service, study, tmp_path):
 
 def test_webhook_receiver_writes_the_summary_of_a_real_run_to_csv(client, study, receiver):
     _url, csv_path = receiver
-    epoch_set = client.post(f"/v1/studies/{study}/epoch-sets", data={"subject": "sub-03"},
-                            files={"file": ("e.npz", npz_bytes(small_epochs(seed=83)))}).json()["id"]
+    epoch_set = client.post(
+        f"/v1/studies/{study}/epoch-sets",
+        data={"subject": "sub-03"},
+        files={"file": ("e.npz", npz_bytes(small_epochs(seed=83)))},
+    ).json()["id"]
     run_id = client.post("/v1/runs", json={"study": study, "epoch_sets": [epoch_set], **SPEC}).json()["id"]
     assert wait_for_run(client, run_id)["status"] == "succeeded"
     deadline = time.monotonic() + 60
     while not csv_path.exists() and time.monotonic() < deadline:
         time.sleep(0.2)
     rows = list(csv.DictReader(csv_path.open()))
-    assert [(row["run"], row["pipeline"], row["epoch_sets_scored"]) for row in rows] == \
-        [(run_id, "raw", "1"), (run_id, "lp30", "1")]
-    fractions = {entry["pipeline"]: entry["significant_fraction"] for entry in
-                 client.get(f"/v1/runs/{run_id}/result").json()["results"]}
+    assert [(row["run"], row["pipeline"], row["epoch_sets_scored"]) for row in rows] == [
+        (run_id, "raw", "1"),
+        (run_id, "lp30", "1"),
+    ]
+    fractions = {
+        entry["pipeline"]: entry["significant_fraction"]
+        for entry in client.get(f"/v1/runs/{run_id}/result").json()["results"]
+    }
     assert {row["pipeline"]: float(row["mean_significant_fraction"]) for row in rows} == pytest.approx(fractions)
 
 

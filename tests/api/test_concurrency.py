@@ -47,8 +47,9 @@ def uploads(busy) -> list:
     files = [npz_bytes(small_epochs(seed=200 + i)) for i in range(N_FILES)]
 
     def uploader(index: int):
-        return lambda http: http.post("/v1/studies/BUSY/epoch-sets", data={"subject": f"sub-{index:02d}"},
-                                      files={"file": ("e.npz", files[index])})
+        return lambda http: http.post(
+            "/v1/studies/BUSY/epoch-sets", data={"subject": f"sub-{index:02d}"}, files={"file": ("e.npz", files[index])}
+        )
 
     return _in_parallel(busy, [uploader(i % N_FILES) for i in range(2 * N_FILES)])
 
@@ -68,8 +69,12 @@ def test_twenty_concurrent_runs_all_finish_each_claimed_once(busy, uploads):
     epoch_set_ids = sorted({answer.json()["id"] for answer in uploads})
 
     def runner(index: int):
-        body = {"study": "BUSY", "epoch_sets": [epoch_set_ids[index % N_FILES]], "scoring": SCORING,
-                "pipelines": [{"name": "raw", "steps": []}]}
+        body = {
+            "study": "BUSY",
+            "epoch_sets": [epoch_set_ids[index % N_FILES]],
+            "scoring": SCORING,
+            "pipelines": [{"name": "raw", "steps": []}],
+        }
         return lambda http: http.post("/v1/runs", json=body)
 
     created = _in_parallel(busy, [runner(i) for i in range(N_RUNS)])

@@ -20,12 +20,16 @@ from tests.support.dask_tasks import state_counts
 from tests.support.epoch_files import npz_bytes, small_epochs
 from tests.support.live import REPO_ROOT, LiveService, free_port, run_cli, start_service, stop
 
-GRID = {"factors": {
-    "highpass": {"none": [], "1": [{"step": "highpass", "cutoff_hz": 1.0}]},
-    "reference": {"average": [{"step": "reference", "kind": "average"}],
-                  "cz": [{"step": "reference", "kind": "channels", "channels": ["Cz"]}]},
-    "baseline": {"none": [], "pre": [{"step": "baseline", "window_s": [-0.2, 0.0]}]},
-}}  # fmt: skip
+GRID = {
+    "factors": {
+        "highpass": {"none": [], "1": [{"step": "highpass", "cutoff_hz": 1.0}]},
+        "reference": {
+            "average": [{"step": "reference", "kind": "average"}],
+            "cz": [{"step": "reference", "kind": "channels", "channels": ["Cz"]}],
+        },
+        "baseline": {"none": [], "pre": [{"step": "baseline", "window_s": [-0.2, 0.0]}]},
+    }
+}
 SUBJECTS = 3
 BRANCHES = 3  # first steps: highpass, reference average, reference Cz
 DASK = str(Path(sys.executable).parent / "dask")
@@ -69,8 +73,10 @@ def grid_result(service: LiveService) -> dict:
     with service.client() as client:
         if client.get(f"/v1/studies/{STUDY}").status_code == 404:
             assert client.post("/v1/studies", json={"code": STUDY, "title": "Dask end to end"}).status_code == 201
-        ids = [upload(client, STUDY, npz_bytes(small_epochs(40 + i)), subject=f"sub-{i + 1:02d}").json()["id"]
-               for i in range(SUBJECTS)]
+        ids = [
+            upload(client, STUDY, npz_bytes(small_epochs(40 + i)), subject=f"sub-{i + 1:02d}").json()["id"]
+            for i in range(SUBJECTS)
+        ]
         document = run_and_wait(client, {"study": STUDY, "epoch_sets": ids, "grid": GRID, "scoring": SCORING})
     text = json.dumps(without_timing(document), sort_keys=True)
     for position, epoch_set_id in enumerate(ids):

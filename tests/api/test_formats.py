@@ -13,27 +13,41 @@ from service.errors import Unprocessable
 OFFERED = ("application/json", "text/csv")
 
 
-@pytest.mark.parametrize(("accept", "chosen"), [
-    ("", "application/json"),
-    ("*/*", "application/json"),
-    ("text/csv", "text/csv"),
-    ("text/*", "text/csv"),
-    ("application/json;q=0.5, text/csv", "text/csv"),
-    ("text/csv;q=0, */*", "application/json"),
-    ("text/html, */*;q=0.8", "application/json"),
-    ("application/xml", None),
-])
+@pytest.mark.parametrize(
+    ("accept", "chosen"),
+    [
+        ("", "application/json"),
+        ("*/*", "application/json"),
+        ("text/csv", "text/csv"),
+        ("text/*", "text/csv"),
+        ("application/json;q=0.5, text/csv", "text/csv"),
+        ("text/csv;q=0, */*", "application/json"),
+        ("text/html, */*;q=0.8", "application/json"),
+        ("application/xml", None),
+    ],
+)
 def test_the_accept_header_picks_the_media_type_it_rates_highest(accept, chosen):
     # Reference: RFC 9110 §12.5.1 (Accept): the most specific range sets a type's quality; q=0 refuses it.
     assert preferred_media_type(accept, OFFERED) == chosen
 
 
 def _document(**entry_changes) -> dict:
-    entry = {"pipeline": "raw", "pipeline_hash": "h", "epoch_set": "es_1", "subject": "sub-01", "session": None,
-             "n_trials": {"a": 30, "b": 29}, "significant_fraction": 0.5,
-             "channels": [{"name": "Cz", "t": 2.5, "p": 0.01, "p_adjusted": 0.02, "significant": True},
-                          {"name": "Pz", "t": -0.1, "p": 0.9, "p_adjusted": 0.9, "significant": False}],
-             "bootstrap": None, "provenance": [], "warnings": []}
+    entry = {
+        "pipeline": "raw",
+        "pipeline_hash": "h",
+        "epoch_set": "es_1",
+        "subject": "sub-01",
+        "session": None,
+        "n_trials": {"a": 30, "b": 29},
+        "significant_fraction": 0.5,
+        "channels": [
+            {"name": "Cz", "t": 2.5, "p": 0.01, "p_adjusted": 0.02, "significant": True},
+            {"name": "Pz", "t": -0.1, "p": 0.9, "p_adjusted": 0.9, "significant": False},
+        ],
+        "bootstrap": None,
+        "provenance": [],
+        "warnings": [],
+    }
     return {"run": "run_1", "study": "S", "scoring": {"conditions": ["a", "b"]}, "results": [entry | entry_changes]}
 
 

@@ -23,10 +23,16 @@ def _huge_npz() -> bytes:
     buffer = io.BytesIO()
     with zipfile.ZipFile(buffer, "w") as archive:
         header = io.BytesIO()
-        npy_format.write_array_header_1_0(header, {"descr": "<f8", "fortran_order": False,
-                                                   "shape": (99999, 99999, 99999)})
+        npy_format.write_array_header_1_0(
+            header, {"descr": "<f8", "fortran_order": False, "shape": (99999, 99999, 99999)}
+        )
         archive.writestr("data.npy", header.getvalue() + bytes(16))
-        for key, value in {"sfreq": 100.0, "tmin": 0.0, "ch_names": np.array(["Cz"]), "labels": np.array(["a"])}.items():
+        for key, value in {
+            "sfreq": 100.0,
+            "tmin": 0.0,
+            "ch_names": np.array(["Cz"]),
+            "labels": np.array(["a"]),
+        }.items():
             member = io.BytesIO()
             np.save(member, value)
             archive.writestr(f"{key}.npy", member.getvalue())
@@ -55,7 +61,7 @@ def _mutations(name: str, content: bytes, seed: int) -> list[tuple[str, bytes]]:
                 data[position] = int(rng.integers(0, 256))
         else:
             start = int(rng.integers(0, len(data)))
-            data[start:start + 64] = rng.integers(0, 256, size=64, dtype=np.uint8).tobytes()
+            data[start : start + 64] = rng.integers(0, 256, size=64, dtype=np.uint8).tobytes()
         cases.append((f"{name}-{kind}-{number}", bytes(data)))
     return cases
 
@@ -64,21 +70,40 @@ def _cases(folder: Path) -> list[tuple[str, str, bytes]]:
     npz = npz_bytes(small_epochs(seed=10, n_per_condition=4))
     edf = recording_bytes(known_recording(seconds=4.0, n_events=2), "edf")
     bdf = recording_bytes(known_recording(seconds=4.0, n_events=2), "bdf")
-    body = json.dumps({"data": np.full((2, 1, 3), 1e-5).tolist(), "sfreq": 100, "tmin": 0, "ch_names": ["Cz"],
-                       "labels": ["a", "b"], "subject": "sub-01"}).encode()
-    cases = [("epoch-sets", *case) for case in _mutations("npz", npz, 1) + _mutations("fif", mne_epochs_bytes(small_epochs(seed=9, n_per_condition=4), folder), 2)]
+    body = json.dumps(
+        {
+            "data": np.full((2, 1, 3), 1e-5).tolist(),
+            "sfreq": 100,
+            "tmin": 0,
+            "ch_names": ["Cz"],
+            "labels": ["a", "b"],
+            "subject": "sub-01",
+        }
+    ).encode()
+    cases = [
+        ("epoch-sets", *case)
+        for case in _mutations("npz", npz, 1)
+        + _mutations("fif", mne_epochs_bytes(small_epochs(seed=9, n_per_condition=4), folder), 2)
+    ]
     cases += [("recordings", *case) for case in _mutations("edf", edf, 3) + _mutations("bdf", bdf, 4)]
     cases += [("json", *case) for case in _mutations("json", body, 5)]
-    cases += [("epoch-sets", "npz-huge-shape", _huge_npz()), ("recordings", "edf-huge-records", _huge_edf(edf)),
-              ("recordings", "bdf-huge-records", _huge_edf(bdf))]
+    cases += [
+        ("epoch-sets", "npz-huge-shape", _huge_npz()),
+        ("recordings", "edf-huge-records", _huge_edf(edf)),
+        ("recordings", "bdf-huge-records", _huge_edf(bdf)),
+    ]
     return cases
 
 
 def _post(client, study: str, route: str, content: bytes):
     if route == "json":
-        return client.post(f"/v1/studies/{study}/epoch-sets", content=content, headers={"Content-Type": "application/json"})
+        return client.post(
+            f"/v1/studies/{study}/epoch-sets", content=content, headers={"Content-Type": "application/json"}
+        )
     data = {"subject": "sub-01"} | ({"epoching": EPOCHING} if route == "recordings" else {})
-    return client.post(f"/v1/studies/{study}/{route}", data=data, files={"file": ("f", content, "application/octet-stream")})
+    return client.post(
+        f"/v1/studies/{study}/{route}", data=data, files={"file": ("f", content, "application/octet-stream")}
+    )
 
 
 def test_damaged_uploads_get_4xx_or_are_stored_and_never_5xx(client, study, service, tmp_path):

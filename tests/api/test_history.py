@@ -11,9 +11,15 @@ from tests.support.live import wait_for_run
 
 
 def _run(client, study: str, epoch_sets: list[str], pipelines: tuple[str, ...] = ("raw",)) -> dict:
-    body = {"study": study, "epoch_sets": epoch_sets, "scoring": SCORING,
-            "pipelines": [{"name": name, "steps": [] if name == "raw" else [{"step": "lowpass", "cutoff_hz": 30.0}]}
-                          for name in pipelines]}
+    body = {
+        "study": study,
+        "epoch_sets": epoch_sets,
+        "scoring": SCORING,
+        "pipelines": [
+            {"name": name, "steps": [] if name == "raw" else [{"step": "lowpass", "cutoff_hz": 30.0}]}
+            for name in pipelines
+        ],
+    }
     answer = client.post("/v1/runs", json=body)
     assert answer.status_code == 202, answer.text
     return client.get(f"/v1/runs/{answer.json()['id']}").json()
@@ -67,7 +73,9 @@ def test_pages_follow_each_other_without_gap_or_repeat(client, history):
     runs.extend(_run(client, study, runs[0]["epoch_sets"]) for _ in range(2))
     seen, cursor, pages = [], None, 0
     while True:
-        page = client.get("/v1/runs", params={"study": study, "limit": 2} | ({"cursor": cursor} if cursor else {})).json()
+        page = client.get(
+            "/v1/runs", params={"study": study, "limit": 2} | ({"cursor": cursor} if cursor else {})
+        ).json()
         seen.extend(run["id"] for run in page["runs"])
         pages += 1
         cursor = page["next_cursor"]
@@ -92,10 +100,16 @@ def test_a_run_lists_its_pipelines_and_epoch_sets(client, history):
 @pytest.fixture()
 def scored(client, study):
     """A succeeded run of two pipelines on two epoch sets, and its JSON result."""
-    epoch_sets = [upload(client, study, npz_bytes(small_epochs(seed=seed)), subject=f"sub-{seed}").json()["id"]
-                  for seed in (72, 73)]
-    body = {"study": study, "epoch_sets": epoch_sets, "scoring": SCORING,
-            "pipelines": [{"name": "raw", "steps": []}, {"name": "lp30", "steps": [{"step": "lowpass", "cutoff_hz": 30}]}]}
+    epoch_sets = [
+        upload(client, study, npz_bytes(small_epochs(seed=seed)), subject=f"sub-{seed}").json()["id"]
+        for seed in (72, 73)
+    ]
+    body = {
+        "study": study,
+        "epoch_sets": epoch_sets,
+        "scoring": SCORING,
+        "pipelines": [{"name": "raw", "steps": []}, {"name": "lp30", "steps": [{"step": "lowpass", "cutoff_hz": 30}]}],
+    }
     return run_and_wait(client, body)
 
 
@@ -108,8 +122,11 @@ def test_the_csv_result_has_one_row_per_pipeline_epoch_set_and_channel(client, s
     assert answer.status_code == 200 and answer.headers["content-type"].startswith("text/csv")
     rows = _csv_rows(answer.text)
     assert len(rows) == 2 * 2 * len(CHANNELS)
-    expected = {(entry["pipeline"], entry["epoch_set"], channel["name"]): channel
-                for entry in scored["results"] for channel in entry["channels"]}
+    expected = {
+        (entry["pipeline"], entry["epoch_set"], channel["name"]): channel
+        for entry in scored["results"]
+        for channel in entry["channels"]
+    }
     assert {(row["pipeline"], row["epoch_set"], row["channel"]) for row in rows} == set(expected)
     for row in rows:
         channel = expected[(row["pipeline"], row["epoch_set"], row["channel"])]
@@ -118,8 +135,9 @@ def test_the_csv_result_has_one_row_per_pipeline_epoch_set_and_channel(client, s
 
 
 def test_format_csv_in_the_query_overrides_accept(client, scored):
-    answer = client.get(f"/v1/runs/{scored['run']}/result", params={"format": "csv"},
-                        headers={"Accept": "application/json"})
+    answer = client.get(
+        f"/v1/runs/{scored['run']}/result", params={"format": "csv"}, headers={"Accept": "application/json"}
+    )
     assert answer.headers["content-type"].startswith("text/csv")
     assert answer.text.startswith("run,study,pipeline,")
 
@@ -168,6 +186,8 @@ def test_deleting_a_run_the_worker_may_be_running_leaves_the_worker_working(clie
     epoch_set = upload(client, study, npz_bytes(small_epochs(seed=77))).json()["id"]
     doomed = _run(client, study, [epoch_set], ("raw", "lp30"))
     assert client.delete(f"/v1/runs/{doomed['id']}").status_code == 204
-    after = run_and_wait(client, {"study": study, "epoch_sets": [epoch_set], "scoring": SCORING,
-                                  "pipelines": [{"name": "raw", "steps": []}]})
+    after = run_and_wait(
+        client,
+        {"study": study, "epoch_sets": [epoch_set], "scoring": SCORING, "pipelines": [{"name": "raw", "steps": []}]},
+    )
     assert after["results"][0]["epoch_set"] == epoch_set

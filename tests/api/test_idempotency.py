@@ -30,7 +30,9 @@ def test_a_retried_study_creation_returns_the_first_answer_and_creates_one_study
 
 def test_the_same_key_with_another_body_is_409(client, study):
     headers = _key()
-    assert client.post("/v1/studies", json={"code": f"{study[:50]}-j", "title": "t"}, headers=headers).status_code == 201
+    assert (
+        client.post("/v1/studies", json={"code": f"{study[:50]}-j", "title": "t"}, headers=headers).status_code == 201
+    )
     answer = client.post("/v1/studies", json={"code": f"{study[:50]}-k", "title": "t"}, headers=headers)
     assert answer.status_code == 409 and "Idempotency-Key" in answer.json()["detail"]
     assert client.get(f"/v1/studies/{study}-k").status_code == 404
@@ -38,10 +40,18 @@ def test_the_same_key_with_another_body_is_409(client, study):
 
 def test_a_retried_upload_is_replayed_although_its_multipart_boundary_differs(client, study):
     headers, content = _key(), npz_bytes(small_epochs(seed=60))
-    first = client.post(f"/v1/studies/{study}/epoch-sets", data={"subject": "sub-01"}, headers=headers,
-                        files={"file": ("e.npz", content)})
-    again = client.post(f"/v1/studies/{study}/epoch-sets", data={"subject": "sub-01"}, headers=headers,
-                        files={"file": ("e.npz", content)})
+    first = client.post(
+        f"/v1/studies/{study}/epoch-sets",
+        data={"subject": "sub-01"},
+        headers=headers,
+        files={"file": ("e.npz", content)},
+    )
+    again = client.post(
+        f"/v1/studies/{study}/epoch-sets",
+        data={"subject": "sub-01"},
+        headers=headers,
+        files={"file": ("e.npz", content)},
+    )
     assert first.request.headers["content-type"] != again.request.headers["content-type"]
     assert (first.status_code, again.status_code) == (201, 201)
     assert again.json()["id"] == first.json()["id"] and again.headers[REPLAYED] == "true"
@@ -51,10 +61,18 @@ def test_a_retried_upload_is_replayed_although_its_multipart_boundary_differs(cl
 def test_the_same_key_on_an_upload_of_other_bytes_is_409(client, study):
     headers = _key()
     assert upload(client, study, npz_bytes(small_epochs(seed=61))).status_code == 201
-    first = client.post(f"/v1/studies/{study}/epoch-sets", data={"subject": "sub-02"}, headers=headers,
-                        files={"file": ("e.npz", npz_bytes(small_epochs(seed=62)))})
-    other = client.post(f"/v1/studies/{study}/epoch-sets", data={"subject": "sub-02"}, headers=headers,
-                        files={"file": ("e.npz", npz_bytes(small_epochs(seed=63)))})
+    first = client.post(
+        f"/v1/studies/{study}/epoch-sets",
+        data={"subject": "sub-02"},
+        headers=headers,
+        files={"file": ("e.npz", npz_bytes(small_epochs(seed=62)))},
+    )
+    other = client.post(
+        f"/v1/studies/{study}/epoch-sets",
+        data={"subject": "sub-02"},
+        headers=headers,
+        files={"file": ("e.npz", npz_bytes(small_epochs(seed=63)))},
+    )
     assert (first.status_code, other.status_code) == (201, 409)
     assert len(client.get(f"/v1/studies/{study}/epoch-sets").json()) == 2
 
@@ -70,8 +88,12 @@ def test_a_retried_run_creation_queues_one_run(client, study):
 
 
 def upload_with(client, study: str, content: bytes, headers: dict[str, str]):
-    return client.post(f"/v1/studies/{study}/epoch-sets", data={"subject": "sub-01"}, headers=headers,
-                       files={"file": ("e.npz", content)})
+    return client.post(
+        f"/v1/studies/{study}/epoch-sets",
+        data={"subject": "sub-01"},
+        headers=headers,
+        files={"file": ("e.npz", content)},
+    )
 
 
 def test_a_refused_request_is_not_kept_so_its_retry_is_carried_out(client, study):
@@ -111,6 +133,7 @@ def test_concurrent_tries_with_one_key_create_one_run(client, study, service):
 
 
 def test_an_idempotency_key_with_spaces_is_422(client, study):
-    answer = client.post("/v1/studies", json={"code": f"{study[:50]}-s", "title": "t"},
-                         headers={"Idempotency-Key": "has spaces in it"})
+    answer = client.post(
+        "/v1/studies", json={"code": f"{study[:50]}-s", "title": "t"}, headers={"Idempotency-Key": "has spaces in it"}
+    )
     assert answer.status_code == 422 and "Idempotency-Key" in answer.text

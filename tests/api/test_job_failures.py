@@ -11,13 +11,27 @@ def test_a_failing_job_is_failed_with_its_reason_and_the_next_job_still_runs(cli
     blob = next((service.data_dir / "blobs").glob(f"*/{broken['sha256']}"))
     blob.unlink()
 
-    failed = client.post("/v1/runs", json={"study": study, "epoch_sets": [broken["id"]],
-                                           "pipelines": [{"name": "raw", "steps": []}], "scoring": SCORING})
+    failed = client.post(
+        "/v1/runs",
+        json={
+            "study": study,
+            "epoch_sets": [broken["id"]],
+            "pipelines": [{"name": "raw", "steps": []}],
+            "scoring": SCORING,
+        },
+    )
     state = wait_for_run(client, failed.json()["id"])
     assert state["status"] == "failed"
     assert "No such file" in state["error"] or "not found" in state["error"].lower()
     assert client.get(f"/v1/runs/{state['id']}/result").status_code == 409
 
-    document = run_and_wait(client, {"study": study, "epoch_sets": [healthy["id"]],
-                                     "pipelines": [{"name": "raw", "steps": []}], "scoring": SCORING})
+    document = run_and_wait(
+        client,
+        {
+            "study": study,
+            "epoch_sets": [healthy["id"]],
+            "pipelines": [{"name": "raw", "steps": []}],
+            "scoring": SCORING,
+        },
+    )
     assert document["results"][0]["subject"] == "sub-02"

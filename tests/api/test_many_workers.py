@@ -48,12 +48,21 @@ def _queue_runs(service: LiveService) -> dict[str, tuple[str, str]]:
     specs = {}
     with service.client() as http:
         assert http.post("/v1/studies", json={"code": "DRAIN", "title": "many workers"}).status_code == 201
-        epoch_sets = [upload(http, "DRAIN", npz_bytes(small_epochs(seed=seed, n_per_condition=10)),
-                             subject=f"sub-{seed}").json()["id"] for seed in EPOCH_SET_SEEDS]
+        epoch_sets = [
+            upload(http, "DRAIN", npz_bytes(small_epochs(seed=seed, n_per_condition=10)), subject=f"sub-{seed}").json()[
+                "id"
+            ]
+            for seed in EPOCH_SET_SEEDS
+        ]
         for index in range(N_RUNS):
-            epoch_set, pipeline = epoch_sets[index % len(epoch_sets)], PIPELINES[index // len(epoch_sets) % len(PIPELINES)]
-            answer = http.post("/v1/runs", json={"study": "DRAIN", "epoch_sets": [epoch_set], "scoring": CHEAP_SCORING,
-                                                 "pipelines": [pipeline]})
+            epoch_set, pipeline = (
+                epoch_sets[index % len(epoch_sets)],
+                PIPELINES[index // len(epoch_sets) % len(PIPELINES)],
+            )
+            answer = http.post(
+                "/v1/runs",
+                json={"study": "DRAIN", "epoch_sets": [epoch_set], "scoring": CHEAP_SCORING, "pipelines": [pipeline]},
+            )
             assert answer.status_code == 202, answer.text
             specs[answer.json()["id"]] = (epoch_set, pipeline["name"])
     return specs
@@ -94,13 +103,15 @@ def _worker_id(worker: subprocess.Popen) -> str:
 
 
 def _running_jobs_of(service: LiveService, worker: subprocess.Popen) -> list[str]:
-    rows = service.query("SELECT id FROM jobs WHERE worker_id = :worker AND status = 'running'",
-                         {"worker": _worker_id(worker)})
+    rows = service.query(
+        "SELECT id FROM jobs WHERE worker_id = :worker AND status = 'running'", {"worker": _worker_id(worker)}
+    )
     return [row.id for row in rows]
 
 
-def _kill_one_holding_a_job(service: LiveService, workers: list[subprocess.Popen],
-                            timeout_s: float = 60.0) -> tuple[subprocess.Popen, str]:
+def _kill_one_holding_a_job(
+    service: LiveService, workers: list[subprocess.Popen], timeout_s: float = 60.0
+) -> tuple[subprocess.Popen, str]:
     """SIGKILL a worker (and its children) at a moment it holds a running job; the worker and that job's id.
 
     A worker is frozen (SIGSTOP) so the database can be read at a moment it cannot move on: if it holds

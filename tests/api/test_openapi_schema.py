@@ -14,8 +14,13 @@ from schemathesis.checks import (
     status_code_conformance,
 )
 
-CHECKS = [not_a_server_error, status_code_conformance, content_type_conformance, response_headers_conformance,
-          response_schema_conformance]
+CHECKS = [
+    not_a_server_error,
+    status_code_conformance,
+    content_type_conformance,
+    response_headers_conformance,
+    response_schema_conformance,
+]
 # The service under test has no worker, so /readyz rightly answers its declared 503; the other checks still apply.
 # (No worker also means no webhook is ever called, whatever URL the generated requests registered.)
 CHECKS_BY_OPERATION = {"GET /readyz": [check for check in CHECKS if check is not not_a_server_error]}
@@ -32,12 +37,17 @@ def _failures_of(operation, mode: GenerationMode, headers: dict[str, str]) -> li
     failures: list[str] = []
 
     @given(case=operation.as_strategy(generation_mode=mode))
-    @settings(max_examples=EXAMPLES_PER_OPERATION_AND_MODE, deadline=None, database=None, derandomize=True,
-              suppress_health_check=list(HealthCheck))
+    @settings(
+        max_examples=EXAMPLES_PER_OPERATION_AND_MODE,
+        deadline=None,
+        database=None,
+        derandomize=True,
+        suppress_health_check=list(HealthCheck),
+    )
     def exercise(case) -> None:
         try:
             case.call_and_validate(headers=headers, checks=CHECKS_BY_OPERATION.get(operation.label, CHECKS))
-        except (Exception, BaseExceptionGroup) as failure:  # noqa: BLE001 - collected: one run reports them all
+        except (Exception, BaseExceptionGroup) as failure:
             failures.append(f"{operation.label} ({mode.value}): {failure}"[:2000])
 
     try:
@@ -50,6 +60,10 @@ def _failures_of(operation, mode: GenerationMode, headers: dict[str, str]) -> li
 def test_generated_requests_get_no_5xx_and_answers_that_match_the_schema(idle_service, operations):
     headers = {"Authorization": f"Bearer {idle_service.admin_token}"}
     assert len(operations) >= 20
-    failures = [failure for operation in operations for mode in (GenerationMode.POSITIVE, GenerationMode.NEGATIVE)
-                for failure in _failures_of(operation, mode, headers)]
+    failures = [
+        failure
+        for operation in operations
+        for mode in (GenerationMode.POSITIVE, GenerationMode.NEGATIVE)
+        for failure in _failures_of(operation, mode, headers)
+    ]
     assert failures == [], "\n\n".join(failures[:10])

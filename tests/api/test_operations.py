@@ -58,8 +58,11 @@ def test_each_request_is_logged_as_one_json_line_with_its_request_id(idle_servic
 def _metrics(client) -> dict[tuple[str, tuple], float]:
     answer = client.get("/metrics")
     assert answer.status_code == 200 and answer.headers["content-type"].startswith("text/plain")
-    return {(sample.name, tuple(sorted(sample.labels.items()))): sample.value
-            for family in text_string_to_metric_families(answer.text) for sample in family.samples}
+    return {
+        (sample.name, tuple(sorted(sample.labels.items()))): sample.value
+        for family in text_string_to_metric_families(answer.text)
+        for sample in family.samples
+    }
 
 
 def test_metrics_need_a_key(service):
@@ -70,8 +73,10 @@ def test_metrics_need_a_key(service):
 def test_metrics_count_finished_runs_and_their_durations(client, study):
     epoch_set = upload(client, study, npz_bytes(small_epochs(seed=95))).json()["id"]
     before = _metrics(client)
-    run_and_wait(client, {"study": study, "epoch_sets": [epoch_set], "scoring": SCORING,
-                          "pipelines": [{"name": "raw", "steps": []}]})
+    run_and_wait(
+        client,
+        {"study": study, "epoch_sets": [epoch_set], "scoring": SCORING, "pipelines": [{"name": "raw", "steps": []}]},
+    )
     after = _metrics(client)
     key = ("epoch_assay_runs_finished_total", (("status", "succeeded"),))
     duration = ("epoch_assay_run_duration_seconds_count", (("status", "succeeded"),))
@@ -84,8 +89,15 @@ def test_metrics_count_failed_runs(client, study, service):
     epoch_set = upload(client, study, npz_bytes(small_epochs(seed=96))).json()
     next((service.data_dir / "blobs").glob(f"*/{epoch_set['sha256']}")).unlink()
     before = _metrics(client)
-    created = client.post("/v1/runs", json={"study": study, "epoch_sets": [epoch_set["id"]], "scoring": SCORING,
-                                            "pipelines": [{"name": "raw", "steps": []}]})
+    created = client.post(
+        "/v1/runs",
+        json={
+            "study": study,
+            "epoch_sets": [epoch_set["id"]],
+            "scoring": SCORING,
+            "pipelines": [{"name": "raw", "steps": []}],
+        },
+    )
     assert wait_for_run(client, created.json()["id"])["status"] == "failed"
     key = ("epoch_assay_runs_finished_total", (("status", "failed"),))
     assert _metrics(client)[key] == before.get(key, 0) + 1
@@ -94,6 +106,8 @@ def test_metrics_count_failed_runs(client, study, service):
 def test_metrics_count_requests_by_route_template(client, study):
     client.get(f"/v1/studies/{study}")
     requests = _metrics(client)
-    assert any(name == "epoch_assay_http_requests_total" and dict(labels).get("route") == "/v1/studies/{code}"
-               for name, labels in requests)
+    assert any(
+        name == "epoch_assay_http_requests_total" and dict(labels).get("route") == "/v1/studies/{code}"
+        for name, labels in requests
+    )
     assert not any(dict(labels).get("route") == f"/v1/studies/{study}" for _name, labels in requests)

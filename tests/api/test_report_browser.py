@@ -6,6 +6,7 @@ network request is watched, every image is measured, and a full-page screenshot 
 """
 
 import base64
+import contextlib
 import json
 import os
 import shutil
@@ -18,8 +19,16 @@ from tests.api.test_reports import scored  # noqa: F401 - the module's run, reus
 from tests.support.live import REPO_ROOT
 
 ARTIFACTS = REPO_ROOT / "test-artifacts"
-CHROMIUM_FLAGS = ["--headless", "--no-sandbox", "--disable-gpu", "--no-first-run", "--disable-background-networking",
-                  "--disable-component-update", "--disable-sync", "--remote-debugging-pipe"]
+CHROMIUM_FLAGS = [
+    "--headless",
+    "--no-sandbox",
+    "--disable-gpu",
+    "--no-first-run",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+    "--remote-debugging-pipe",
+]
 PAGE_WIDTH_PX = 1100
 
 
@@ -44,9 +53,13 @@ class DevTools:
             os.dup2(to_browser_read, 3)
             os.dup2(from_browser_write, 4)
 
-        self.process = subprocess.Popen([executable, *CHROMIUM_FLAGS, f"--user-data-dir={profile}", "about:blank"],
-                                        preexec_fn=onto_fds_3_and_4, close_fds=False,
-                                        stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+        self.process = subprocess.Popen(
+            [executable, *CHROMIUM_FLAGS, f"--user-data-dir={profile}", "about:blank"],
+            preexec_fn=onto_fds_3_and_4,
+            close_fds=False,
+            stdout=subprocess.DEVNULL,
+            stderr=subprocess.DEVNULL,
+        )
         os.close(to_browser_read)
         os.close(from_browser_write)
         self._buffer = b""
@@ -64,7 +77,9 @@ class DevTools:
 
     def call(self, method: str, session: str | None = None, **params: object) -> dict:
         self._next_id += 1
-        request = {"id": self._next_id, "method": method, "params": params} | ({"sessionId": session} if session else {})
+        request = {"id": self._next_id, "method": method, "params": params} | (
+            {"sessionId": session} if session else {}
+        )
         os.write(self._to_browser, json.dumps(request).encode() + b"\0")
         while True:
             message = self._read_message()
@@ -85,10 +100,8 @@ class DevTools:
                 return message
 
     def close(self) -> None:
-        try:
+        with contextlib.suppress(RuntimeError, OSError):
             self.call("Browser.close")
-        except (RuntimeError, OSError):
-            pass
         try:
             self.process.wait(timeout=20)
         except subprocess.TimeoutExpired:
@@ -109,18 +122,35 @@ def rendered(service, scored, tmp_path_factory):  # noqa: F811 - pytest fixture 
         session = browser.call("Target.attachToTarget", targetId=target, flatten=True)["sessionId"]
         browser.call("Network.enable", session)
         browser.call("Page.enable", session)
-        browser.call("Network.setExtraHTTPHeaders", session,
-                     headers={"Authorization": f"Bearer {service.admin_token}"})
-        browser.call("Emulation.setDeviceMetricsOverride", session, width=PAGE_WIDTH_PX, height=900,
-                     deviceScaleFactor=1, mobile=False)
+        browser.call("Network.setExtraHTTPHeaders", session, headers={"Authorization": f"Bearer {service.admin_token}"})
+        browser.call(
+            "Emulation.setDeviceMetricsOverride",
+            session,
+            width=PAGE_WIDTH_PX,
+            height=900,
+            deviceScaleFactor=1,
+            mobile=False,
+        )
         browser.call("Page.navigate", session, url=url)
         browser.wait_for_event("Page.loadEventFired")
-        images = browser.call("Runtime.evaluate", session, returnByValue=True, expression=(
-            "Array.from(document.images).map(i => ({alt: i.alt, complete: i.complete, "
-            "natural: [i.naturalWidth, i.naturalHeight], shown: [i.clientWidth, i.clientHeight]}))"))["result"]["value"]
+        images = browser.call(
+            "Runtime.evaluate",
+            session,
+            returnByValue=True,
+            expression=(
+                "Array.from(document.images).map(i => ({alt: i.alt, complete: i.complete, "
+                "natural: [i.naturalWidth, i.naturalHeight], shown: [i.clientWidth, i.clientHeight]}))"
+            ),
+        )["result"]["value"]
         height = browser.call("Page.getLayoutMetrics", session)["cssContentSize"]["height"]
-        browser.call("Emulation.setDeviceMetricsOverride", session, width=PAGE_WIDTH_PX, height=int(height),
-                     deviceScaleFactor=1, mobile=False)
+        browser.call(
+            "Emulation.setDeviceMetricsOverride",
+            session,
+            width=PAGE_WIDTH_PX,
+            height=int(height),
+            deviceScaleFactor=1,
+            mobile=False,
+        )
         shot = browser.call("Page.captureScreenshot", session, format="png", captureBeyondViewport=True)["data"]
         ARTIFACTS.mkdir(exist_ok=True)
         screenshot = ARTIFACTS / "run-report.png"
@@ -137,8 +167,10 @@ def _events(rendered, method: str) -> list[dict]:
 
 def test_report_loads_in_chromium_with_no_failed_request(rendered):
     assert _events(rendered, "Network.loadingFailed") == []
-    statuses = [(params["response"]["url"], params["response"]["status"])
-                for params in _events(rendered, "Network.responseReceived")]
+    statuses = [
+        (params["response"]["url"], params["response"]["status"])
+        for params in _events(rendered, "Network.responseReceived")
+    ]
     assert (rendered["url"], 200) in statuses
 
 

@@ -10,11 +10,18 @@ from tests.support.epoch_files import npz_bytes, small_epochs
 from tests.support.live import wait_for_run
 
 HOSTILE_NAME = "<i>lp30</i>"
-BOOTSTRAP_SCORING = {"conditions": ["a", "b"], "window_s": [0.3, 0.5], "alpha": 0.05, "correction": "fdr_bh",
-                     "bootstrap": {"trials_per_condition": 20, "resamples": 50, "seed": 3}}
-PIPELINES = [{"name": "raw", "steps": []},
-             {"name": HOSTILE_NAME, "steps": [{"step": "lowpass", "cutoff_hz": 30.0}]},
-             {"name": "avg", "steps": [{"step": "reference", "kind": "average"}]}]
+BOOTSTRAP_SCORING = {
+    "conditions": ["a", "b"],
+    "window_s": [0.3, 0.5],
+    "alpha": 0.05,
+    "correction": "fdr_bh",
+    "bootstrap": {"trials_per_condition": 20, "resamples": 50, "seed": 3},
+}
+PIPELINES = [
+    {"name": "raw", "steps": []},
+    {"name": HOSTILE_NAME, "steps": [{"step": "lowpass", "cutoff_hz": 30.0}]},
+    {"name": "avg", "steps": [{"step": "reference", "kind": "average"}]},
+]
 
 
 @pytest.fixture(scope="module")
@@ -23,10 +30,13 @@ def scored(service, request) -> tuple[str, str]:
     with service.client() as http:
         code = f"reports-{request.module.__name__.rsplit('.', 1)[-1]}"
         assert http.post("/v1/studies", json={"code": code, "title": "Reports <& titles>"}).status_code == 201
-        ids = [upload(http, code, npz_bytes(small_epochs(seed=seed)), subject=f"sub-0{seed}").json()["id"]
-               for seed in (1, 2)]
-        created = http.post("/v1/runs", json={"study": code, "epoch_sets": ids, "pipelines": PIPELINES,
-                                              "scoring": BOOTSTRAP_SCORING})
+        ids = [
+            upload(http, code, npz_bytes(small_epochs(seed=seed)), subject=f"sub-0{seed}").json()["id"]
+            for seed in (1, 2)
+        ]
+        created = http.post(
+            "/v1/runs", json={"study": code, "epoch_sets": ids, "pipelines": PIPELINES, "scoring": BOOTSTRAP_SCORING}
+        )
         assert created.status_code == 202, created.text
         assert wait_for_run(http, created.json()["id"])["status"] == "succeeded"
         return code, created.json()["id"]
@@ -109,8 +119,10 @@ def test_read_key_of_the_study_reads_the_report_and_another_studys_key_gets_404(
 def test_report_of_a_run_that_failed_is_409_with_the_reason(service, client, study):
     broken = upload(client, study, npz_bytes(small_epochs(seed=5))).json()
     next((service.data_dir / "blobs").glob(f"*/{broken['sha256']}")).unlink()
-    created = client.post("/v1/runs", json={"study": study, "epoch_sets": [broken["id"]], "pipelines": PIPELINES[:1],
-                                            "scoring": BOOTSTRAP_SCORING})
+    created = client.post(
+        "/v1/runs",
+        json={"study": study, "epoch_sets": [broken["id"]], "pipelines": PIPELINES[:1], "scoring": BOOTSTRAP_SCORING},
+    )
     assert wait_for_run(client, created.json()["id"])["status"] == "failed"
     answer = client.get(f"/v1/runs/{created.json()['id']}/report")
     assert answer.status_code == 409

@@ -30,8 +30,15 @@ def test_same_bytes_uploaded_twice_give_the_stored_epoch_set(client, study):
 def test_run_result_p_values_match_scipy_welch(client, study):
     epochs = small_epochs(seed=3)
     epoch_set = upload(client, study, npz_bytes(epochs)).json()
-    document = run_and_wait(client, {"study": study, "epoch_sets": [epoch_set["id"]],
-                                     "pipelines": [{"name": "raw", "steps": []}], "scoring": SCORING})
+    document = run_and_wait(
+        client,
+        {
+            "study": study,
+            "epoch_sets": [epoch_set["id"]],
+            "pipelines": [{"name": "raw", "steps": []}],
+            "scoring": SCORING,
+        },
+    )
     (entry,) = document["results"]
     in_window = (epochs.times >= 0.3 - 1e-9) & (epochs.times <= 0.5 + 1e-9)
     means = epochs.data[:, :, in_window].mean(axis=2)
@@ -46,8 +53,12 @@ def test_run_result_p_values_match_scipy_welch(client, study):
 
 def test_bootstrap_with_the_same_seed_gives_the_same_numbers(client, study):
     epoch_set = upload(client, study, npz_bytes(small_epochs(seed=4))).json()
-    body = {"study": study, "epoch_sets": [epoch_set["id"]], "pipelines": [{"name": "raw", "steps": []}],
-            "scoring": SCORING | {"bootstrap": {"trials_per_condition": 20, "resamples": 200, "seed": 11}}}
+    body = {
+        "study": study,
+        "epoch_sets": [epoch_set["id"]],
+        "pipelines": [{"name": "raw", "steps": []}],
+        "scoring": SCORING | {"bootstrap": {"trials_per_condition": 20, "resamples": 200, "seed": 11}},
+    }
     first = run_and_wait(client, body)["results"][0]["bootstrap"]
     second = run_and_wait(client, body)["results"][0]["bootstrap"]
     assert first == second
@@ -57,11 +68,21 @@ def test_bootstrap_with_the_same_seed_gives_the_same_numbers(client, study):
 
 def test_every_pipeline_step_of_the_foundation_runs_and_reports_provenance(client, study):
     epoch_set = upload(client, study, npz_bytes(small_epochs(seed=5))).json()
-    steps = [{"step": "highpass", "cutoff_hz": 0.5}, {"step": "lowpass", "cutoff_hz": 30.0},
-             {"step": "reference", "kind": "channels", "channels": ["TP9", "TP10"]},
-             {"step": "baseline", "window_s": [-0.2, 0.0]}]
-    document = run_and_wait(client, {"study": study, "epoch_sets": [epoch_set["id"]],
-                                     "pipelines": [{"name": "full", "steps": steps}], "scoring": SCORING})
+    steps = [
+        {"step": "highpass", "cutoff_hz": 0.5},
+        {"step": "lowpass", "cutoff_hz": 30.0},
+        {"step": "reference", "kind": "channels", "channels": ["TP9", "TP10"]},
+        {"step": "baseline", "window_s": [-0.2, 0.0]},
+    ]
+    document = run_and_wait(
+        client,
+        {
+            "study": study,
+            "epoch_sets": [epoch_set["id"]],
+            "pipelines": [{"name": "full", "steps": steps}],
+            "scoring": SCORING,
+        },
+    )
     (entry,) = document["results"]
     assert [record["step"] for record in entry["provenance"]] == ["highpass", "lowpass", "reference", "baseline"]
     assert any("high-pass" in warning or "highpass" in warning for warning in entry["warnings"])
@@ -71,7 +92,14 @@ def test_every_pipeline_step_of_the_foundation_runs_and_reports_provenance(clien
 
 def test_runs_are_listed_by_study(client, study):
     epoch_set = upload(client, study, npz_bytes(small_epochs(seed=6))).json()
-    run_and_wait(client, {"study": study, "epoch_sets": [epoch_set["id"]],
-                          "pipelines": [{"name": "raw", "steps": []}], "scoring": SCORING})
+    run_and_wait(
+        client,
+        {
+            "study": study,
+            "epoch_sets": [epoch_set["id"]],
+            "pipelines": [{"name": "raw", "steps": []}],
+            "scoring": SCORING,
+        },
+    )
     listed = client.get("/v1/runs", params={"study": study}).json()["runs"]
     assert len(listed) == 1 and listed[0]["status"] == "succeeded" and listed[0]["progress"] == 1.0

@@ -98,8 +98,9 @@ def _comparable(document: dict, epoch_set_id: str) -> dict:
 
 
 def _run(client: httpx.Client, study: str, epoch_set_id: str) -> httpx.Response:
-    return client.post("/v1/runs", json={"study": study, "epoch_sets": [epoch_set_id], "pipelines": RAW,
-                                         "scoring": SCORING})
+    return client.post(
+        "/v1/runs", json={"study": study, "epoch_sets": [epoch_set_id], "pipelines": RAW, "scoring": SCORING}
+    )
 
 
 def test_an_upload_to_one_host_is_run_by_another_with_the_result_of_the_local_store(two_hosts, shared, client, study):
@@ -108,9 +109,13 @@ def test_an_upload_to_one_host_is_run_by_another_with_the_result_of_the_local_st
     on_one_host = upload(client, study, content).json()
     assert two_hosts.holds(on_two_hosts["sha256"])
     assert not (two_hosts.service.data_dir / "blobs").exists()
-    documents = [_comparable(run_and_wait(http, {"study": study, "epoch_sets": [epoch_set["id"]], "pipelines": RAW,
-                                                 "scoring": SCORING}), epoch_set["id"])
-                 for http, epoch_set in ((shared, on_two_hosts), (client, on_one_host))]
+    documents = [
+        _comparable(
+            run_and_wait(http, {"study": study, "epoch_sets": [epoch_set["id"]], "pipelines": RAW, "scoring": SCORING}),
+            epoch_set["id"],
+        )
+        for http, epoch_set in ((shared, on_two_hosts), (client, on_one_host))
+    ]
     assert documents[0] == documents[1]
     sha256 = on_two_hosts["sha256"]
     assert (two_hosts.worker_dir / "blob-cache" / sha256[:2] / sha256).read_bytes() == content
@@ -126,8 +131,13 @@ def test_a_blob_damaged_in_the_shared_store_fails_its_run_naming_the_blob(two_ho
     # Damage does not pass with time: the first attempt is the last.
     [(attempts,)] = two_hosts.service.query("SELECT attempts FROM jobs WHERE run_id = :run", {"run": state["id"]})
     assert attempts == 1
-    for path in (f"/v1/runs/{state['id']}", f"/v1/runs/{state['id']}/result", f"/v1/runs/{state['id']}/report",
-                 f"/v1/studies/{study}/report", f"/v1/studies/{study}/epoch-sets/{epoch_set['id']}"):
+    for path in (
+        f"/v1/runs/{state['id']}",
+        f"/v1/runs/{state['id']}/result",
+        f"/v1/runs/{state['id']}/report",
+        f"/v1/studies/{study}/report",
+        f"/v1/studies/{study}/epoch-sets/{epoch_set['id']}",
+    ):
         assert shared.get(path).status_code < 500, path
 
 
@@ -178,5 +188,7 @@ def test_a_store_that_cannot_be_written_stops_the_process_at_start_with_one_line
         server.stop()
     assert finished.returncode != 0
     [line] = finished.stderr.strip().splitlines()
-    assert line.startswith("epoch-assay: cannot write to the blob store (EPOCH_ASSAY_BLOB_URL=s3://no-such-bucket/blobs)")
+    assert line.startswith(
+        "epoch-assay: cannot write to the blob store (EPOCH_ASSAY_BLOB_URL=s3://no-such-bucket/blobs)"
+    )
     assert "bucket" in line and "Traceback" not in finished.stderr

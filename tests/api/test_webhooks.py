@@ -19,8 +19,15 @@ def _hook(client, study: str, url: str, **fields) -> dict:
 
 def _run(client, study: str, seed: int) -> tuple[str, dict]:
     epoch_set = upload(client, study, npz_bytes(small_epochs(seed=seed))).json()
-    created = client.post("/v1/runs", json={"study": study, "epoch_sets": [epoch_set["id"]], "scoring": SCORING,
-                                            "pipelines": [{"name": "raw", "steps": []}]})
+    created = client.post(
+        "/v1/runs",
+        json={
+            "study": study,
+            "epoch_sets": [epoch_set["id"]],
+            "scoring": SCORING,
+            "pipelines": [{"name": "raw", "steps": []}],
+        },
+    )
     return created.json()["id"], epoch_set
 
 
@@ -66,8 +73,15 @@ def upload_then_break(client, study: str, service) -> tuple[str, dict]:
     """A run on an epoch set whose stored file was removed behind the service's back."""
     epoch_set = upload(client, study, npz_bytes(small_epochs(seed=81))).json()
     next((service.data_dir / "blobs").glob(f"*/{epoch_set['sha256']}")).unlink()
-    created = client.post("/v1/runs", json={"study": study, "epoch_sets": [epoch_set["id"]], "scoring": SCORING,
-                                            "pipelines": [{"name": "raw", "steps": []}]})
+    created = client.post(
+        "/v1/runs",
+        json={
+            "study": study,
+            "epoch_sets": [epoch_set["id"]],
+            "scoring": SCORING,
+            "pipelines": [{"name": "raw", "steps": []}],
+        },
+    )
     return created.json()["id"], epoch_set
 
 

@@ -15,10 +15,16 @@ from tests.support.receiver import Receiver
 LEASE_SECONDS = "3"
 # Slow on purpose (14 units per epoch set, each 40,000 resamples: seconds in all), so a worker can be stopped
 # after its first unit is reported (heartbeats come every 0.5 s here) and well before its last.
-SLOW_SCORING = {"conditions": ["a", "b"], "window_s": [0.3, 0.5], "alpha": 0.05, "correction": "fdr_bh",
-                "bootstrap": {"trials_per_condition": 20, "resamples": 40_000, "seed": 5}}
-SLOW_PIPELINES = [{"name": f"lp{cutoff}", "steps": [{"step": "lowpass", "cutoff_hz": float(cutoff)}]}
-                  for cutoff in range(20, 34)]
+SLOW_SCORING = {
+    "conditions": ["a", "b"],
+    "window_s": [0.3, 0.5],
+    "alpha": 0.05,
+    "correction": "fdr_bh",
+    "bootstrap": {"trials_per_condition": 20, "resamples": 40_000, "seed": 5},
+}
+SLOW_PIPELINES = [
+    {"name": f"lp{cutoff}", "steps": [{"step": "lowpass", "cutoff_hz": float(cutoff)}]} for cutoff in range(20, 34)
+]
 
 
 @pytest.fixture(scope="module")
@@ -39,16 +45,19 @@ def http(faults):
 
 
 def _slow_run(http, study: str, epoch_sets: list[str]) -> str:
-    answer = http.post("/v1/runs", json={"study": study, "epoch_sets": epoch_sets, "pipelines": SLOW_PIPELINES,
-                                         "scoring": SLOW_SCORING})
+    answer = http.post(
+        "/v1/runs",
+        json={"study": study, "epoch_sets": epoch_sets, "pipelines": SLOW_PIPELINES, "scoring": SLOW_SCORING},
+    )
     assert answer.status_code == 202, answer.text
     return answer.json()["id"]
 
 
 def _study_with_epoch_sets(http, code: str, seeds: tuple[int, ...]) -> list[str]:
     assert http.post("/v1/studies", json={"code": code, "title": "faults"}).status_code == 201
-    return [upload(http, code, npz_bytes(small_epochs(seed=seed)), subject=f"sub-{seed}").json()["id"]
-            for seed in seeds]
+    return [
+        upload(http, code, npz_bytes(small_epochs(seed=seed)), subject=f"sub-{seed}").json()["id"] for seed in seeds
+    ]
 
 
 def _wait_until_midway(http, run_id: str, timeout_s: float = 120.0) -> dict:
@@ -111,8 +120,15 @@ def test_a_job_that_keeps_failing_stops_after_max_attempts_with_its_reason(fault
     blob = faults.data_dir / "blobs" / sha256[:2] / sha256
     blob.unlink()
     blob.mkdir()  # reading it fails with an error that might pass, so every attempt is made
-    answer = http.post("/v1/runs", json={"study": "FAIL-1", "epoch_sets": [epoch_set], "scoring": SLOW_SCORING,
-                                         "pipelines": [{"name": "raw", "steps": []}]})
+    answer = http.post(
+        "/v1/runs",
+        json={
+            "study": "FAIL-1",
+            "epoch_sets": [epoch_set],
+            "scoring": SLOW_SCORING,
+            "pipelines": [{"name": "raw", "steps": []}],
+        },
+    )
     faults.start_worker()
     state = wait_for_run(http, answer.json()["id"])
     assert state["status"] == "failed"

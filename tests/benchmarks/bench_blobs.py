@@ -18,9 +18,9 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from service.storage.blob_fsspec import FsspecBlobStore  # noqa: E402
-from service.storage.blob_local import LocalBlobStore  # noqa: E402
-from service.storage.blobs import BlobStore  # noqa: E402
+from service.storage.blob_fsspec import FsspecBlobStore
+from service.storage.blob_local import LocalBlobStore
+from service.storage.blobs import BlobStore
 
 MB = 1_000_000
 
@@ -78,8 +78,9 @@ def main() -> None:
 
         shared = FsspecBlobStore.from_url((root / "shared").as_uri(), root / "blob-cache", 10 * size)
         uploaded = timed(lambda: store_once(shared, content), 1)
-        fetched = timed(lambda: (shared.cache.entry(sha256).unlink(missing_ok=True), read_verified(shared, sha256)),
-                        repeats)
+        fetched = timed(
+            lambda: (shared.cache.entry(sha256).unlink(missing_ok=True), read_verified(shared, sha256)), repeats
+        )
         cached = timed(lambda: read_verified(shared, sha256), repeats)
         report("file:// via fsspec: stage, upload and move", uploaded, size)
         report("file:// via fsspec: fetch, verify, keep a copy", fetched, size)

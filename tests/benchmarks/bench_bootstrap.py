@@ -21,17 +21,17 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-import numpy as np  # noqa: E402
-from scipy import stats  # noqa: E402
+import numpy as np
+from scipy import stats
 
-from worker.engine.stats import (  # noqa: E402
+from epoch_assay.engine.stats import (
     TrialDraw,
     adjust_pvalues,
     bootstrap_significant_fraction,
     draw_trials,
     draw_with_replacement,
 )
-from worker.engine.stats.bootstrap import DEFAULT_CHUNK_BYTES, resamples_per_chunk  # noqa: E402
+from epoch_assay.engine.stats.bootstrap import DEFAULT_CHUNK_BYTES, resamples_per_chunk
 
 SEED = 7
 ALPHA = 0.05
@@ -76,7 +76,7 @@ def loop_of_scipy_tests(a: np.ndarray, b: np.ndarray, draw: TrialDraw) -> np.nda
     The correction is the engine's own, so the ratio measures the t-tests and their batching.
     """
     fractions = np.empty(draw.indices_a.shape[0])
-    for resample, (rows_a, rows_b) in enumerate(zip(draw.indices_a, draw.indices_b)):
+    for resample, (rows_a, rows_b) in enumerate(zip(draw.indices_a, draw.indices_b, strict=False)):
         p = stats.ttest_ind(a[rows_a], b[rows_b], equal_var=False, axis=0).pvalue
         fractions[resample] = np.mean(adjust_pvalues(p, CORRECTION) < ALPHA)
     return fractions
@@ -107,8 +107,7 @@ def peak_memory_mb(channels: int, trials: int, resamples: int) -> float:
     rng = np.random.default_rng(1)
     a, b = rng.normal(size=(trials, channels)), rng.normal(size=(trials, channels))
     tracemalloc.start()
-    bootstrap_significant_fraction(a, b, mode="all", resamples=resamples, seed=SEED, alpha=ALPHA,
-                                   correction=CORRECTION)
+    bootstrap_significant_fraction(a, b, mode="all", resamples=resamples, seed=SEED, alpha=ALPHA, correction=CORRECTION)
     peak = tracemalloc.get_traced_memory()[1]
     tracemalloc.stop()
     return peak / 2**20
@@ -140,8 +139,8 @@ def main() -> None:
     for mode in ("fixed", "all"):
         # The loop gets its trials drawn beforehand, untimed; the vectorised time includes drawing.
         draw = drawn_trials(size, mode)
-        loop_seconds, loop_fractions = best_time(lambda: loop_of_scipy_tests(a, b, draw), repeats=3)
-        vector_seconds, vector_fractions = best_time(lambda: vectorised(a, b, size, mode), repeats=10)
+        loop_seconds, loop_fractions = best_time(lambda draw=draw: loop_of_scipy_tests(a, b, draw), repeats=3)
+        vector_seconds, vector_fractions = best_time(lambda mode=mode: vectorised(a, b, size, mode), repeats=10)
         disagreeing = int(np.count_nonzero(loop_fractions != vector_fractions))
         print(f"  mode {mode!r}")
         print(f"    loop of scipy.stats.ttest_ind (best of 3) : {loop_seconds * 1e3:9.1f} ms")
@@ -153,10 +152,13 @@ def main() -> None:
     memory = MEMORY_QUICK if quick else MEMORY_FULL
     for resamples in memory.resamples:
         peak = peak_memory_mb(memory.channels, memory.trials, resamples)
-        print(f"  peak memory, mode 'all', {memory.channels} channels, 2 x {memory.trials} trials, "
-              f"{resamples} resamples: {peak:7.1f} MB")
+        print(
+            f"  peak memory, mode 'all', {memory.channels} channels, 2 x {memory.trials} trials, "
+            f"{resamples} resamples: {peak:7.1f} MB"
+        )
     if failures:
         sys.exit(f"the vectorised bootstrap disagrees with the scipy loop in mode(s) {', '.join(failures)}")
+
 
 if __name__ == "__main__":
     main()

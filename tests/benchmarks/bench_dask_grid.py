@@ -29,9 +29,9 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from distributed import LocalCluster  # noqa: E402
+from distributed import LocalCluster
 
-from tests.benchmarks.bench_grid import (  # noqa: E402
+from tests.benchmarks.bench_grid import (
     FULL,
     QUICK,
     fractions,
@@ -39,8 +39,8 @@ from tests.benchmarks.bench_grid import (  # noqa: E402
     simulated_study,
     worker_execution,
 )
-from worker.parallel import default_workers  # noqa: E402
-from worker.run_job import execute_run  # noqa: E402
+from worker.execution.parallel import default_workers
+from worker.run_job import execute_run
 
 DASK_WORKERS = (1, 2, 4)
 
@@ -58,14 +58,18 @@ def main() -> None:
         with tempfile.TemporaryDirectory(prefix="bench-dask-cache-") as cache_dir:
             execution = worker_execution(Path(cache_dir), **options)
             started = time.perf_counter()
-            document = execute_run("run_grid", "BENCH", spec, refs, lambda ref: sets[ref.id], lambda _: None,
-                                   execution=execution)
+            document = execute_run(
+                "run_grid", "BENCH", spec, refs, lambda ref: sets[ref.id], lambda _: None, execution=execution
+            )
             return document, time.perf_counter() - started
 
     cores = default_workers()
-    print(f"{len(spec['pipelines'])} pipelines × {size.subjects} subjects of {size.channels} channels, "
-          f"{size.trials} trials, 1 s at {size.sfreq:g} Hz; {cores} cores on this machine; "
-          f"best of {args.repeat} run(s) each; load average before {os.getloadavg()[0]:.1f}", flush=True)
+    print(
+        f"{len(spec['pipelines'])} pipelines × {size.subjects} subjects of {size.channels} channels, "
+        f"{size.trials} trials, 1 s at {size.sfreq:g} Hz; {cores} cores on this machine; "
+        f"best of {args.repeat} run(s) each; load average before {os.getloadavg()[0]:.1f}",
+        flush=True,
+    )
     configurations: dict[str, Callable[[], AbstractContextManager[dict[str, object]]]] = {
         f"Dask, {n} worker{'s' if n > 1 else ''}": functools.partial(_on_cluster, n) for n in DASK_WORKERS
     }
@@ -85,16 +89,19 @@ def main() -> None:
         raise SystemExit("the configurations disagree")
     print("same significant fractions in every configuration")
     if max(DASK_WORKERS) > cores:
-        print(f"note: {max(DASK_WORKERS)} Dask workers share {cores} cores here, so they cannot beat {cores}; "
-              "more workers pay off only on more cores or more hosts")
+        print(
+            f"note: {max(DASK_WORKERS)} Dask workers share {cores} cores here, so they cannot beat {cores}; "
+            "more workers pay off only on more cores or more hosts"
+        )
 
 
 @contextmanager
 def _on_cluster(n_workers: int) -> Iterator[dict[str, object]]:
     """A LocalCluster of ``n_workers`` one-thread processes for one timed run, closed after it, so no idle
     cluster shares the machine with another configuration's run."""
-    with LocalCluster(n_workers=n_workers, processes=True, threads_per_worker=1, host="127.0.0.1",
-                      dashboard_address="127.0.0.1:0") as cluster:
+    with LocalCluster(
+        n_workers=n_workers, processes=True, threads_per_worker=1, host="127.0.0.1", dashboard_address="127.0.0.1:0"
+    ) as cluster:
         yield {"dask_scheduler": cluster.scheduler_address}
 
 

@@ -27,13 +27,13 @@ from typing import TypeVar
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-import numpy as np  # noqa: E402
+import numpy as np
 
-from service.settings import Settings  # noqa: E402
-from worker.engine.epochs import EpochSet  # noqa: E402
-from worker.engine.grid import GridSpec, expand_grid  # noqa: E402
-from worker.multiverse import ExecutionSettings  # noqa: E402
-from worker.run_job import EpochSetRef, execute_run  # noqa: E402
+from epoch_assay.engine.epochs import EpochSet
+from epoch_assay.engine.grid import GridSpec, expand_grid
+from service.settings import Settings
+from worker.execution.multiverse import ExecutionSettings
+from worker.run_job import EpochSetRef, execute_run
 
 CONDITIONS = ("deviant", "standard")
 GIB = 1024**3
@@ -54,13 +54,18 @@ QUICK = Size(subjects=2, channels=8, trials=40, sfreq=100.0, highpass_hz=(2.0,))
 
 
 def grid(size: Size) -> GridSpec:
-    return GridSpec(factors={
-        "highpass": {"none": [], **{f"{hz:g}": [{"step": "highpass", "cutoff_hz": hz}] for hz in size.highpass_hz}},
-        "lowpass": {"none": [], "30": [{"step": "lowpass", "cutoff_hz": 30.0}]},
-        "reference": {"none": [], "average": [{"step": "reference", "kind": "average"}],
-                      "pair": [{"step": "reference", "kind": "channels", "channels": ["E00", "E01"]}]},
-        "baseline": {"none": [], "pre": [{"step": "baseline", "window_s": [-0.2, 0.0]}]},
-    })  # fmt: skip
+    return GridSpec(
+        factors={
+            "highpass": {"none": [], **{f"{hz:g}": [{"step": "highpass", "cutoff_hz": hz}] for hz in size.highpass_hz}},
+            "lowpass": {"none": [], "30": [{"step": "lowpass", "cutoff_hz": 30.0}]},
+            "reference": {
+                "none": [],
+                "average": [{"step": "reference", "kind": "average"}],
+                "pair": [{"step": "reference", "kind": "channels", "channels": ["E00", "E01"]}],
+            },
+            "baseline": {"none": [], "pre": [{"step": "baseline", "window_s": [-0.2, 0.0]}]},
+        }
+    )
 
 
 def simulated_subject(size: Size, subject: int) -> EpochSet:
@@ -74,8 +79,14 @@ def simulated_subject(size: Size, subject: int) -> EpochSet:
     labels = np.array([CONDITIONS[i % 2] for i in range(size.trials)])
     effect = 3e-6 * np.exp(-0.5 * ((times - 0.4) / 0.05) ** 2)
     data[labels == CONDITIONS[0], size.channels // 2 :, :] += effect
-    return EpochSet(data=data, sfreq=size.sfreq, tmin=-0.2, ch_names=tuple(f"E{i:02d}" for i in range(size.channels)),
-                    ch_types=("eeg",) * size.channels, labels=labels)
+    return EpochSet(
+        data=data,
+        sfreq=size.sfreq,
+        tmin=-0.2,
+        ch_names=tuple(f"E{i:02d}" for i in range(size.channels)),
+        ch_types=("eeg",) * size.channels,
+        labels=labels,
+    )
 
 
 def simulated_study(size: Size) -> tuple[dict[str, EpochSet], list[EpochSetRef]]:
@@ -94,13 +105,22 @@ def grid_spec(size: Size, window_s: tuple[float, float]) -> dict:
 def worker_execution(cache_dir: Path, **options: object) -> ExecutionSettings:
     """The worker's default step cache settings, with the cache in ``cache_dir``, and ``options``."""
     defaults = Settings()
-    return ExecutionSettings(cache_dir=cache_dir, cache_max_bytes=defaults.cache_max_bytes,
-                             cache_min_step_seconds=defaults.cache_min_step_seconds, **options)
+    return ExecutionSettings(
+        cache_dir=cache_dir,
+        cache_max_bytes=defaults.cache_max_bytes,
+        cache_min_step_seconds=defaults.cache_min_step_seconds,
+        **options,
+    )
 
 
 def scoring(window_s: tuple[float, float]) -> dict:
-    return {"conditions": list(CONDITIONS), "window_s": list(window_s), "alpha": 0.05, "correction": "fdr_bh",
-            "time_course": None}
+    return {
+        "conditions": list(CONDITIONS),
+        "window_s": list(window_s),
+        "alpha": 0.05,
+        "correction": "fdr_bh",
+        "time_course": None,
+    }
 
 
 def timed(run: Callable[[], Value]) -> tuple[Value, float, int]:
@@ -140,12 +160,17 @@ def main() -> None:
             entries += execute_run("run_one", "BENCH", spec, refs, load, lambda _: None)["results"]
         return entries
 
-    print(f"{len(points)} pipelines × {size.subjects} subjects of {size.channels} channels, {size.trials} trials, "
-          f"1 s at {size.sfreq:g} Hz; one process, one worker")
+    print(
+        f"{len(points)} pipelines × {size.subjects} subjects of {size.channels} channels, {size.trials} trials, "
+        f"1 s at {size.sfreq:g} Hz; one process, one worker"
+    )
     with tempfile.TemporaryDirectory(prefix="bench-grid-cache-") as cache_dir:
         document, grid_s, grid_peak = timed(grid_run(Path(cache_dir), (0.3, 0.5)))
-        print(f"grid run (cold cache):   {grid_s:8.1f} s   peak memory {grid_peak / GIB:.2f} GiB   "
-              f"cache {document['cache']}", flush=True)
+        print(
+            f"grid run (cold cache):   {grid_s:8.1f} s   peak memory {grid_peak / GIB:.2f} GiB   "
+            f"cache {document['cache']}",
+            flush=True,
+        )
         rerun, rerun_s, _ = timed(grid_run(Path(cache_dir), (0.25, 0.45)))
         print(f"rerun, new window:       {rerun_s:8.1f} s   cache {rerun['cache']}", flush=True)
     independent, independent_s, independent_peak = timed(independent_runs)

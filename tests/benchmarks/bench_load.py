@@ -22,11 +22,11 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-import httpx  # noqa: E402
-import numpy as np  # noqa: E402
+import httpx
+import numpy as np
 
-from tests.support.epoch_files import npz_bytes, small_epochs  # noqa: E402
-from tests.support.live import LiveService, start_service  # noqa: E402
+from tests.support.epoch_files import npz_bytes, small_epochs
+from tests.support.live import LiveService, start_service
 
 STUDY = "LOAD-1"
 SCORING = {"conditions": ["a", "b"], "window_s": [0.3, 0.5], "alpha": 0.05, "correction": "fdr_bh"}
@@ -54,13 +54,20 @@ class PhaseResult:
 
     def report(self) -> str:
         p50, p95, p99 = np.percentile(self.latencies_s, [50, 95, 99]) * 1e3
-        return (f"  {self.name:<8} {len(self.latencies_s):6d} requests in {self.wall_s:6.2f} s : "
-                f"{len(self.latencies_s) / self.wall_s:8.1f} req/s   p50 {p50:7.1f} ms   p95 {p95:7.1f} ms   "
-                f"p99 {p99:7.1f} ms   statuses {dict(sorted(self.statuses.items()))}")
+        return (
+            f"  {self.name:<8} {len(self.latencies_s):6d} requests in {self.wall_s:6.2f} s : "
+            f"{len(self.latencies_s) / self.wall_s:8.1f} req/s   p50 {p50:7.1f} ms   p95 {p95:7.1f} ms   "
+            f"p99 {p99:7.1f} ms   statuses {dict(sorted(self.statuses.items()))}"
+        )
 
 
-def run_phase(name: str, service: LiveService, threads: int, requests: list[Callable[[httpx.Client], httpx.Response]],
-              max_seconds: float) -> PhaseResult:
+def run_phase(
+    name: str,
+    service: LiveService,
+    threads: int,
+    requests: list[Callable[[httpx.Client], httpx.Response]],
+    max_seconds: float,
+) -> PhaseResult:
     """Send ``requests`` from ``threads`` threads (one client each) until done or ``max_seconds`` have passed."""
     latencies, statuses, lock = [], {}, threading.Lock()
     pending = iter(requests)
@@ -91,10 +98,20 @@ def prepare(service: LiveService) -> str:
     """A study with one epoch set and one (queued) run to read; returns the run id."""
     with service.client() as admin:
         admin.post("/v1/studies", json={"code": STUDY, "title": "load"}).raise_for_status()
-        epoch_set = admin.post(f"/v1/studies/{STUDY}/epoch-sets", data={"subject": "sub-00"},
-                               files={"file": ("e.npz", npz_bytes(small_epochs(seed=0)))}).json()["id"]
-        run = admin.post("/v1/runs", json={"study": STUDY, "epoch_sets": [epoch_set], "scoring": SCORING,
-                                           "pipelines": [{"name": "raw", "steps": []}]})
+        epoch_set = admin.post(
+            f"/v1/studies/{STUDY}/epoch-sets",
+            data={"subject": "sub-00"},
+            files={"file": ("e.npz", npz_bytes(small_epochs(seed=0)))},
+        ).json()["id"]
+        run = admin.post(
+            "/v1/runs",
+            json={
+                "study": STUDY,
+                "epoch_sets": [epoch_set],
+                "scoring": SCORING,
+                "pipelines": [{"name": "raw", "steps": []}],
+            },
+        )
         return run.json()["id"]
 
 
@@ -107,16 +124,31 @@ def main() -> None:
         service = start_service(Path(folder), n_workers=0)
         try:
             run_id = prepare(service)
-            reads = [lambda c: c.get(f"/v1/runs/{run_id}"), lambda c: c.get(f"/v1/studies/{STUDY}/epoch-sets"),
-                     lambda c: c.get("/v1/runs", params={"study": STUDY, "limit": 20})]
-            uploads = [lambda c, content=content, i=i: c.post(
-                f"/v1/studies/{STUDY}/epoch-sets", data={"subject": f"sub-{i + 1:03d}"},
-                files={"file": ("e.npz", content)}) for i, content in enumerate(files)]
-            print(f"load on one API process over loopback ({size.readers} reading threads, "
-                  f"{size.uploaders} uploading threads, {len(files[0]) / 1e6:.2f} MB per upload)")
+            reads = [
+                lambda c: c.get(f"/v1/runs/{run_id}"),
+                lambda c: c.get(f"/v1/studies/{STUDY}/epoch-sets"),
+                lambda c: c.get("/v1/runs", params={"study": STUDY, "limit": 20}),
+            ]
+            uploads = [
+                lambda c, content=content, i=i: c.post(
+                    f"/v1/studies/{STUDY}/epoch-sets",
+                    data={"subject": f"sub-{i + 1:03d}"},
+                    files={"file": ("e.npz", content)},
+                )
+                for i, content in enumerate(files)
+            ]
+            print(
+                f"load on one API process over loopback ({size.readers} reading threads, "
+                f"{size.uploaders} uploading threads, {len(files[0]) / 1e6:.2f} MB per upload)"
+            )
             results = [
-                run_phase("reads", service, size.readers, [reads[i % len(reads)] for i in range(size.reads)],
-                          size.max_seconds_per_phase),
+                run_phase(
+                    "reads",
+                    service,
+                    size.readers,
+                    [reads[i % len(reads)] for i in range(size.reads)],
+                    size.max_seconds_per_phase,
+                ),
                 run_phase("uploads", service, size.uploaders, uploads, size.max_seconds_per_phase),
             ]
         finally:

@@ -17,11 +17,11 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-import numpy as np  # noqa: E402
+import numpy as np
 
-from worker.engine.epochs import EpochSet  # noqa: E402
-from worker.engine.montage import montage_positions, standard_montage  # noqa: E402
-from worker.engine.pipeline import PipelineSpec  # noqa: E402
+from epoch_assay.engine.epochs import EpochSet
+from epoch_assay.engine.montage import montage_positions, standard_montage
+from epoch_assay.engine.pipeline import PipelineSpec
 
 STEPS = [
     {"step": "highpass", "cutoff_hz": 0.1},
@@ -33,20 +33,32 @@ STEPS = [
     {"step": "resample", "sfreq": 250.0},
     {"step": "reference", "kind": "average"},
     {"step": "reference", "kind": "rest"},
-    {"step": "bad_channels", "criteria": {"flat": {}, "deviation": {}, "correlation": {}, "line_noise": {},
-                                          "high_frequency": {}, "bridged": {}}, "action": "interpolate"},
+    {
+        "step": "bad_channels",
+        "criteria": {
+            "flat": {},
+            "deviation": {},
+            "correlation": {},
+            "line_noise": {},
+            "high_frequency": {},
+            "bridged": {},
+        },
+        "action": "interpolate",
+    },
     {"step": "ica", "n_components": 0.9, "seed": 0},
     {"step": "detrend", "kind": "linear"},
-    {"step": "trial_rejection", "criteria": {"peak_to_peak_uv": 150.0, "amplitude_z": 5.0,
-                                             "high_frequency_z": 5.0, "low_frequency_z": 5.0}},
+    {
+        "step": "trial_rejection",
+        "criteria": {"peak_to_peak_uv": 150.0, "amplitude_z": 5.0, "high_frequency_z": 5.0, "low_frequency_z": 5.0},
+    },
     {"step": "baseline", "window_s": [-0.2, 0.0]},
-]  # fmt: skip
+]
 
 
 def make_epochs(n_channels: int, n_trials: int, duration_s: float, sfreq: float) -> EpochSet:
     """Seeded noise epochs, data in V, on the first ``n_channels`` names of the 10-10 template."""
     names = tuple(standard_montage("standard_1005").ch_names[:n_channels])
-    n_times = int(round(duration_s * sfreq))
+    n_times = round(duration_s * sfreq)
     rng = np.random.default_rng(0)
     mixing = rng.standard_normal((n_channels, n_channels)) / np.sqrt(n_channels)
     white = rng.standard_normal((n_trials, n_channels, n_times))
@@ -55,9 +67,14 @@ def make_epochs(n_channels: int, n_trials: int, duration_s: float, sfreq: float)
     data = 1e-5 * np.einsum("ck,tkn->tcn", mixing, tilted)
     positions = montage_positions(names, "standard_1005")
     return EpochSet(
-        data=data, sfreq=sfreq, tmin=-0.2, ch_names=names, ch_types=("eeg",) * n_channels,
-        labels=np.array(["a", "b"] * (n_trials // 2)), positions=positions,
-    )  # fmt: skip
+        data=data,
+        sfreq=sfreq,
+        tmin=-0.2,
+        ch_names=names,
+        ch_types=("eeg",) * n_channels,
+        labels=np.array(["a", "b"] * (n_trials // 2)),
+        positions=positions,
+    )
 
 
 def measure(step_spec: dict, epochs: EpochSet) -> tuple[float, int]:

@@ -5,7 +5,7 @@ from collections.abc import Callable
 import numpy as np
 import pytest
 
-from worker.engine.epochs import EpochSet
+from epoch_assay.engine.epochs import EpochSet
 
 RandomEpochs = Callable[..., EpochSet]
 

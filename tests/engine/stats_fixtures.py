@@ -2,7 +2,7 @@
 
 import numpy as np
 
-from worker.engine.epochs import EpochSet
+from epoch_assay.engine.epochs import EpochSet
 
 MICROVOLT = 1e-6
 

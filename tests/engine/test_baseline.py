@@ -1,14 +1,14 @@
 """Baseline correction and its checks."""
 
-from mne.baseline import rescale
 import numpy as np
 import pytest
+from mne.baseline import rescale
 from pydantic import ValidationError
 
+from epoch_assay.engine.epochs import EpochSet
+from epoch_assay.engine.errors import SpecError
+from epoch_assay.engine.steps.baseline import Baseline
 from tests.engine.conftest import random_epoch_set
-from worker.engine.epochs import EpochSet
-from worker.engine.errors import SpecError
-from worker.engine.steps.baseline import Baseline
 
 # Window ends fall between samples (100 Hz, tmin -0.1 s) so that every definition of
 # "inside the window" picks the same samples, -0.09 s to -0.01 s.

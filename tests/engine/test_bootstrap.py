@@ -7,9 +7,9 @@ import pytest
 from scipy import stats
 from statsmodels.stats.multitest import multipletests
 
+from epoch_assay.engine.stats import adjust_pvalues, bootstrap_significant_fraction, draw_trials, draw_with_replacement
+from epoch_assay.engine.stats.bootstrap import DEFAULT_CHUNK_BYTES, resamples_per_chunk
 from tests.engine.stats_fixtures import window_mean_pair
-from worker.engine.stats import adjust_pvalues, bootstrap_significant_fraction, draw_trials, draw_with_replacement
-from worker.engine.stats.bootstrap import DEFAULT_CHUNK_BYTES, resamples_per_chunk
 
 SETTINGS = dict(trials_per_condition=12, resamples=200, alpha=0.05, correction="fdr_bh")
 
@@ -99,7 +99,12 @@ ALL_MODE = dict(mode="all", resamples=300, alpha=0.05, correction="fdr_bh")
 
 @pytest.mark.parametrize(
     "settings",
-    [ALL_MODE, {**ALL_MODE, "mode": "equalized"}, {**SETTINGS, "test": "mann_whitney"}, {**SETTINGS, "test": "student"}],
+    [
+        ALL_MODE,
+        {**ALL_MODE, "mode": "equalized"},
+        {**SETTINGS, "test": "mann_whitney"},
+        {**SETTINGS, "test": "student"},
+    ],
     ids=["all", "equalized", "mann_whitney", "student"],
 )
 @pytest.mark.parametrize("chunk_size", [1, 13])
@@ -168,11 +173,21 @@ def test_bca_interval_matches_scipy_bootstrap_on_the_same_resamples():
     # distribution (bootstrap_result, n_resamples=0), so that SciPy computes the bias correction and the
     # jackknife acceleration (Efron, 1987) itself. Resampling trial indices resamples the trials.
     previous = SimpleNamespace(bootstrap_distribution=result.fractions)
-    expected = stats.bootstrap((np.arange(a.shape[0]), np.arange(b.shape[0])), fraction, n_resamples=0,
-                               bootstrap_result=previous, method="BCa", vectorized=True, confidence_level=0.95)
+    expected = stats.bootstrap(
+        (np.arange(a.shape[0]), np.arange(b.shape[0])),
+        fraction,
+        n_resamples=0,
+        bootstrap_result=previous,
+        method="BCa",
+        vectorized=True,
+        confidence_level=0.95,
+    )
     assert result.observed == fraction(np.arange(a.shape[0]), np.arange(b.shape[0]))
-    np.testing.assert_allclose([result.ci_low, result.ci_high], [expected.confidence_interval.low,
-                                                                 expected.confidence_interval.high], rtol=1e-12)
+    np.testing.assert_allclose(
+        [result.ci_low, result.ci_high],
+        [expected.confidence_interval.low, expected.confidence_interval.high],
+        rtol=1e-12,
+    )
 
 
 def test_bca_is_refused_for_subsets_without_replacement(means):
@@ -185,7 +200,7 @@ def test_chunk_size_keeps_a_large_bootstrap_within_the_memory_budget():
     # stays under the budget, so 10,000 resamples are processed in bounded memory.
     chunk = resamples_per_chunk(1000, 1000, 128, DEFAULT_CHUNK_BYTES)
     per_resample = 8 * (3 * 2000 + 32 * 128)
-    assert 1 <= chunk and chunk * per_resample <= DEFAULT_CHUNK_BYTES
+    assert chunk >= 1 and chunk * per_resample <= DEFAULT_CHUNK_BYTES
 
 
 def test_bca_acceleration_is_zero_when_no_single_trial_changes_the_fraction(means):

@@ -9,10 +9,10 @@ Tolerances come from the binomial error of the number of simulated data sets.
 import numpy as np
 import pytest
 
-from demo.simulate import SimulationConfig, simulate_subject
-from worker.engine.scoring import score_epochs
-from worker.engine.scoring_spec import BootstrapSpec, ScoringSpec
-from worker.engine.stats import adjust_pvalues, welch_t, window_means
+from epoch_assay.demo.simulate import SimulationConfig, simulate_subject
+from epoch_assay.engine.scoring import score_epochs
+from epoch_assay.engine.scoring_spec import BootstrapSpec, ScoringSpec
+from epoch_assay.engine.stats import adjust_pvalues, welch_t, window_means
 
 ALPHA = 0.05
 WINDOW_S = (0.3, 0.5)
@@ -40,10 +40,19 @@ def test_uncorrected_fraction_without_effect_averages_alpha(null_sets):
 
 @pytest.mark.slow
 def test_max_stat_family_wise_rate_without_effect_is_about_alpha(null_sets):
-    spec = ScoringSpec(conditions=CONDITIONS, window_s=WINDOW_S, alpha=ALPHA, test="permutation",
-                       correction="max_stat", n_permutations=200, time_course=None)
-    any_significant = [score_epochs(epochs, spec.model_copy(update={"seed": index})).significant_fraction > 0
-                       for index, epochs in enumerate(null_sets)]
+    spec = ScoringSpec(
+        conditions=CONDITIONS,
+        window_s=WINDOW_S,
+        alpha=ALPHA,
+        test="permutation",
+        correction="max_stat",
+        n_permutations=200,
+        time_course=None,
+    )
+    any_significant = [
+        score_epochs(epochs, spec.model_copy(update={"seed": index})).significant_fraction > 0
+        for index, epochs in enumerate(null_sets)
+    ]
     assert abs(np.mean(any_significant) - ALPHA) < NULL_TOLERANCE
 
 
@@ -63,8 +72,14 @@ def test_bootstrap_percentile_interval_covers_the_true_fraction_about_95_percent
     # fraction is the expected fraction of a data set of this size: estimated from fresh sets.
     config = SimulationConfig(effect_uv=8.0, subject_spread=0.0, subject_effect_sd=0.0, seed=12, **SMALL)
     truth = np.mean([fdr_fraction(simulate_subject(config, 10_000 + index)) for index in range(N_TRUTH_SETS)])
-    spec = ScoringSpec(conditions=CONDITIONS, window_s=WINDOW_S, alpha=ALPHA, correction="fdr_bh", time_course=None,
-                       bootstrap=BootstrapSpec(mode="all", resamples=200, seed=1))
+    spec = ScoringSpec(
+        conditions=CONDITIONS,
+        window_s=WINDOW_S,
+        alpha=ALPHA,
+        correction="fdr_bh",
+        time_course=None,
+        bootstrap=BootstrapSpec(mode="all", resamples=200, seed=1),
+    )
     covered = []
     for index in range(N_COVERAGE_SETS):
         summary = score_epochs(simulate_subject(config, index), spec).bootstrap

@@ -4,13 +4,29 @@ import numpy as np
 import pytest
 from statsmodels.stats.multitest import multipletests
 
-from worker.engine.stats import adjust_pvalues
+from epoch_assay.engine.stats import adjust_pvalues
 
 # Benjamini & Hochberg (1995), J. R. Stat. Soc. B 57:289–300, section 4 worked example:
 # 15 p-values; at q = 0.05 the step-up procedure rejects the four smallest, Bonferroni
 # three (values recalled from memory, not re-checked against the printed paper).
 BH_1995_EXAMPLE = np.array(
-    [0.0001, 0.0004, 0.0019, 0.0095, 0.0201, 0.0278, 0.0298, 0.0344, 0.0459, 0.3240, 0.4262, 0.5719, 0.6528, 0.7590, 1.000]
+    [
+        0.0001,
+        0.0004,
+        0.0019,
+        0.0095,
+        0.0201,
+        0.0278,
+        0.0298,
+        0.0344,
+        0.0459,
+        0.3240,
+        0.4262,
+        0.5719,
+        0.6528,
+        0.7590,
+        1.000,
+    ]
 )
 
 
@@ -87,7 +103,7 @@ def test_rows_with_different_nan_counts_match_statsmodels_row_by_row():
     p[0, [1, 2]] = np.nan
     p[2, 5] = np.nan
     adjusted = adjust_pvalues(p, "fdr_by")
-    for row, expected_row in zip(p, adjusted):
+    for row, expected_row in zip(p, adjusted, strict=False):
         finite = ~np.isnan(row)
         # Reference: statsmodels multipletests(method="fdr_by") on each row's defined p-values (Seabold & Perktold, 2010)
         np.testing.assert_allclose(expected_row[finite], multipletests(row[finite], method="fdr_by")[1], rtol=1e-12)

@@ -8,13 +8,13 @@ import pandas as pd
 import pytest
 import statsmodels.formula.api as smf
 
-from demo.simulate import SimulationConfig, simulate_subject
-from worker.engine.factor_effects import build_design, factor_effects
-from worker.engine.grid import GridSpec, expand_grid
-from worker.engine.scoring import score_epochs
-from worker.engine.scoring_spec import ScoringSpec
-from worker.engine.subject_metrics import MetricTable, metric_table
-from worker.engine.tree import build_tree, execute_tree
+from epoch_assay.demo.simulate import SimulationConfig, simulate_subject
+from epoch_assay.engine.factor_effects import build_design, factor_effects
+from epoch_assay.engine.grid import GridSpec, expand_grid
+from epoch_assay.engine.scoring import score_epochs
+from epoch_assay.engine.scoring_spec import ScoringSpec
+from epoch_assay.engine.subject_metrics import MetricTable, metric_table
+from epoch_assay.engine.tree import build_tree, execute_tree
 
 FACTOR_LEVELS = {"f": ["lo", "mid", "hi"], "g": ["x", "y"]}
 PIPELINE_LEVELS = {f"f={f},g={g}": {"f": f, "g": g} for f in FACTOR_LEVELS["f"] for g in FACTOR_LEVELS["g"]}
@@ -27,18 +27,30 @@ def synthetic_table(metric: str = "trials_kept") -> MetricTable:
     f_effect = {"lo": 0.0, "mid": 1.0, "hi": 2.5}
     g_effect = {"x": 0.0, "y": -0.7}
     subject_level = rng.normal(0.0, 2.0, len(SUBJECTS))
-    values = np.array([
-        [f_effect[PIPELINE_LEVELS[p]["f"]] + g_effect[PIPELINE_LEVELS[p]["g"]] + subject_level[s]
-         + rng.normal(0.0, 0.5) for s in range(len(SUBJECTS))]
-        for p in PIPELINES
-    ]) + 10.0  # fmt: skip
+    values = (
+        np.array(
+            [
+                [
+                    f_effect[PIPELINE_LEVELS[p]["f"]]
+                    + g_effect[PIPELINE_LEVELS[p]["g"]]
+                    + subject_level[s]
+                    + rng.normal(0.0, 0.5)
+                    for s in range(len(SUBJECTS))
+                ]
+                for p in PIPELINES
+            ]
+        )
+        + 10.0
+    )
     return MetricTable(metric, PIPELINES, SUBJECTS, values)
 
 
 def statsmodels_fit(table: MetricTable):
-    rows = [{"y": table.values[p, s], "f": PIPELINE_LEVELS[name]["f"], "g": PIPELINE_LEVELS[name]["g"],
-             "subject": subject}
-            for p, name in enumerate(table.pipelines) for s, subject in enumerate(table.subjects)]
+    rows = [
+        {"y": table.values[p, s], "f": PIPELINE_LEVELS[name]["f"], "g": PIPELINE_LEVELS[name]["g"], "subject": subject}
+        for p, name in enumerate(table.pipelines)
+        for s, subject in enumerate(table.subjects)
+    ]
     frame = pd.DataFrame(rows)
     formula = "y ~ C(f, Treatment('lo')) + C(g, Treatment('x'))"
     return smf.mixedlm(formula, frame, groups=frame["subject"]).fit(reml=True)
@@ -75,8 +87,12 @@ def test_baseline_level_reports_zero_effect():
 
 
 def test_fraction_metric_is_analysed_after_arcsine_square_root():
-    table = MetricTable("significant_fraction", PIPELINES, SUBJECTS,
-                        np.random.default_rng(2).uniform(0, 1, (len(PIPELINES), len(SUBJECTS))))
+    table = MetricTable(
+        "significant_fraction",
+        PIPELINES,
+        SUBJECTS,
+        np.random.default_rng(2).uniform(0, 1, (len(PIPELINES), len(SUBJECTS))),
+    )
     design = build_design(table, PIPELINE_LEVELS, FACTOR_LEVELS)
     # Bartlett (1947); Anscombe (1948): arcsine square root transform of a proportion
     np.testing.assert_allclose(np.sort(design.response), np.sort(np.arcsin(np.sqrt(table.values.ravel()))))
@@ -89,11 +105,15 @@ def test_a_constant_metric_is_refused_with_the_reason():
         factor_effects(table, PIPELINE_LEVELS, FACTOR_LEVELS)
 
 
-DRIFT_GRID = GridSpec(factors={
-    "highpass": {"none": [], "1": [{"step": "highpass", "cutoff_hz": 1.0}]},
-    "reference": {"average": [{"step": "reference", "kind": "average"}],
-                  "mastoids": [{"step": "reference", "kind": "channels", "channels": ["TP9", "TP10"]}]},
-})
+DRIFT_GRID = GridSpec(
+    factors={
+        "highpass": {"none": [], "1": [{"step": "highpass", "cutoff_hz": 1.0}]},
+        "reference": {
+            "average": [{"step": "reference", "kind": "average"}],
+            "mastoids": [{"step": "reference", "kind": "channels", "channels": ["TP9", "TP10"]}],
+        },
+    }
+)
 
 
 def test_high_pass_raises_the_significant_fraction_when_some_subjects_drift():
@@ -107,9 +127,17 @@ def test_high_pass_raises_the_significant_fraction_when_some_subjects_drift():
     for subject in range(1, 7):
         epochs = simulate_subject(replace(config, drift_uv=80.0 if subject <= 3 else 0.0), subject)
         for leaf in execute_tree(tree, epochs, f"{subject:064x}"):
-            entries.append({"pipeline": leaf.pipeline.name, "subject": f"sub-{subject}",
-                            **score_epochs(leaf.epochs, scoring).to_json()})
+            entries.append(
+                {
+                    "pipeline": leaf.pipeline.name,
+                    "subject": f"sub-{subject}",
+                    **score_epochs(leaf.epochs, scoring).to_json(),
+                }
+            )
     table = metric_table(entries, "significant_fraction", [point.pipeline.name for point in points])
-    effects = factor_effects(table, {p.pipeline.name: p.levels for p in points},
-                             {factor: list(levels) for factor, levels in DRIFT_GRID.factors.items()})
+    effects = factor_effects(
+        table,
+        {p.pipeline.name: p.levels for p in points},
+        {factor: list(levels) for factor, levels in DRIFT_GRID.factors.items()},
+    )
     assert effects.factors["highpass"].levels["1"].ci_low > 0.0

@@ -5,10 +5,9 @@ import pytest
 from pydantic import ValidationError
 from scipy import signal
 
-from tests.engine.conftest import random_epoch_set
-from worker.engine.epochs import EpochSet, EpochSetMeta
-from worker.engine.errors import SpecError
-from worker.engine.steps.filters import (
+from epoch_assay.engine.epochs import EpochSet, EpochSetMeta
+from epoch_assay.engine.errors import SpecError
+from epoch_assay.engine.steps.filters import (
     HighPass,
     LowPass,
     design_fir,
@@ -17,6 +16,7 @@ from worker.engine.steps.filters import (
     fir_transition_hz,
     iir_padding_samples,
 )
+from tests.engine.conftest import random_epoch_set
 
 SFREQ = 250.0
 FIR_CASES = [("highpass", 0.5), ("highpass", 1.0), ("highpass", 10.0), ("lowpass", 20.0), ("lowpass", 40.0)]

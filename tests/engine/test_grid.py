@@ -3,8 +3,8 @@
 import pytest
 from pydantic import ValidationError
 
-from worker.engine.errors import SpecError
-from worker.engine.grid import GridSpec, expand_grid
+from epoch_assay.engine.errors import SpecError
+from epoch_assay.engine.grid import GridSpec, expand_grid
 
 ISSUE_EXAMPLE = {
     "highpass": {"none": [], "0.5": [{"step": "highpass", "cutoff_hz": 0.5}]},

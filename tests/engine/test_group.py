@@ -7,8 +7,8 @@ from scipy import stats
 from statsmodels.stats.multitest import multipletests
 from statsmodels.stats.weightstats import DescrStatsW
 
-from worker.engine.group import group_channel_test, group_summary, paired_comparison, subject_scores
-from worker.engine.scoring_spec import ScoringSpec
+from epoch_assay.engine.group import group_channel_test, group_summary, paired_comparison, subject_scores
+from epoch_assay.engine.scoring_spec import ScoringSpec
 
 SPEC = ScoringSpec(conditions=("a", "b"), window_s=(0.1, 0.2), correction="holm")
 CHANNELS = ("C1", "C2", "C3")
@@ -17,10 +17,12 @@ CHANNELS = ("C1", "C2", "C3")
 def entry(pipeline, subject, fraction, diffs_uv, sme=(1.0, 2.0), names=CHANNELS):
     """A scored result entry as score_unit writes it (only the fields the group level reads)."""
     return {
-        "pipeline": pipeline, "subject": subject, "significant_fraction": fraction,
+        "pipeline": pipeline,
+        "subject": subject,
+        "significant_fraction": fraction,
         "median_sme_uv": {"a": sme[0], "b": sme[1]},
-        "channels": [{"name": name, "mean_diff_uv": diff} for name, diff in zip(names, diffs_uv)],
-    }  # fmt: skip
+        "channels": [{"name": name, "mean_diff_uv": diff} for name, diff in zip(names, diffs_uv, strict=False)],
+    }
 
 
 @pytest.fixture(scope="module")
@@ -77,7 +79,7 @@ def test_named_reference_pipeline_is_used(study):
 
 def test_fewer_than_two_subjects_give_no_comparison_and_no_group_test():
     entries = [entry("raw", "s0", 0.2, [1, 2, 3]), entry("clean", "s0", 0.3, [1, 2, 3])]
-    raw, clean = group_summary(entries, ["raw", "clean"], SPEC)
+    _raw, clean = group_summary(entries, ["raw", "clean"], SPEC)
     assert clean["vs_reference"] is None and clean["group_test"] is None and clean["n_subjects"] == 1
 
 
@@ -91,7 +93,8 @@ def test_fraction_summary_is_mean_median_and_standard_error(study):
     values = fractions(study, "raw")
     # Reference: scipy.stats.sem (Virtanen et al., 2020)
     assert raw["significant_fraction"] == pytest.approx(
-        {"mean": values.mean(), "median": np.median(values), "se": stats.sem(values)}, rel=1e-12)
+        {"mean": values.mean(), "median": np.median(values), "se": stats.sem(values)}, rel=1e-12
+    )
 
 
 def test_two_epoch_sets_of_one_subject_are_averaged_first():
@@ -123,16 +126,18 @@ def test_group_test_equals_scipy_one_sample_t_with_the_runs_correction(study):
     channels = raw["group_test"]["channels"]
     np.testing.assert_allclose([c["t"] for c in channels], expected.statistic, rtol=1e-10)
     np.testing.assert_allclose([c["p"] for c in channels], expected.pvalue, rtol=1e-8)
-    np.testing.assert_allclose([c["p_adjusted"] for c in channels], multipletests(expected.pvalue, method="holm")[1],
-                               rtol=1e-8)
+    np.testing.assert_allclose(
+        [c["p_adjusted"] for c in channels], multipletests(expected.pvalue, method="holm")[1], rtol=1e-8
+    )
     assert raw["group_test"]["significant_fraction"] == np.mean([c["significant"] for c in channels])
 
 
 def test_group_max_stat_uses_sign_flips_like_mne():
     rng = np.random.default_rng(2)
     diffs = rng.normal([1.0, 0.3, 0.0, 0.0], 1.0, size=(9, 4)) * 1e-6
-    spec = ScoringSpec(conditions=("a", "b"), window_s=(0.1, 0.2), test="permutation", correction="max_stat",
-                       n_permutations=1000)
+    spec = ScoringSpec(
+        conditions=("a", "b"), window_s=(0.1, 0.2), test="permutation", correction="max_stat", n_permutations=1000
+    )
     result = group_channel_test(("C1", "C2", "C3", "C4"), diffs, spec)
     # Reference: mne.stats.permutation_t_test (Gramfort et al., 2013, MNE-Python); 2**9 sign patterns
     # ≤ 1000, so both enumerate them all and agree exactly.

@@ -4,18 +4,21 @@ import mne
 import numpy as np
 import pytest
 
-from worker.engine.errors import EpochSetFormatError
-from worker.engine.io.detect import EPOCH_FILE_FORMATS, RECORDING_FORMATS, FileFormat, detect_format, sniff
+from epoch_assay.engine.errors import EpochSetFormatError
+from epoch_assay.engine.io.detect import EPOCH_FILE_FORMATS, RECORDING_FORMATS, FileFormat, detect_format, sniff
 from tests.support.epoch_files import npz_bytes, small_epochs
 from tests.support.recording_files import known_recording, recording_bytes
 
 
-@pytest.mark.parametrize(("content", "expected"), [
-    (lambda: npz_bytes(small_epochs()), FileFormat.NPZ),
-    (lambda: recording_bytes(known_recording(seconds=3.0, n_events=1), "edf"), FileFormat.EDF),
-    (lambda: recording_bytes(known_recording(seconds=3.0, n_events=1), "bdf"), FileFormat.BDF),
-    (lambda: b'  {"data": []}', FileFormat.JSON),
-])
+@pytest.mark.parametrize(
+    ("content", "expected"),
+    [
+        (lambda: npz_bytes(small_epochs()), FileFormat.NPZ),
+        (lambda: recording_bytes(known_recording(seconds=3.0, n_events=1), "edf"), FileFormat.EDF),
+        (lambda: recording_bytes(known_recording(seconds=3.0, n_events=1), "bdf"), FileFormat.BDF),
+        (lambda: b'  {"data": []}', FileFormat.JSON),
+    ],
+)
 def test_the_format_is_recognised_from_the_content(content, expected):
     # Reference: EDF header version "0" + 7 spaces (Kemp et al., 1992); BDF byte 0xFF then its seven-letter
     # identifier (the published BDF header layout); zip local-file header "PK\x03\x04" (PKWARE APPNOTE.TXT 4.3.7).

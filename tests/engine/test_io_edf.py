@@ -5,10 +5,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from worker.engine.errors import EpochSetFormatError, EpochSetTooLargeError
-from worker.engine.io.detect import FileFormat
-from worker.engine.io.edf import read_continuous
-from worker.engine.recording import ChannelSpec, EpochingSpec, epoch_recording, load_recording
+from epoch_assay.engine.errors import EpochSetFormatError, EpochSetTooLargeError
+from epoch_assay.engine.io.detect import FileFormat
+from epoch_assay.engine.io.edf import read_continuous
+from epoch_assay.engine.recording import ChannelSpec, EpochingSpec, epoch_recording, load_recording
 from tests.support.recording_files import known_recording, quantisation_step_v, recording_bytes
 
 LIMIT = 10**9
@@ -43,12 +43,16 @@ def test_annotations_are_read_as_events(tmp_path, kind):
 @pytest.mark.parametrize("kind", ["edf", "bdf"])
 def test_epochs_equal_the_known_signal_around_each_event(tmp_path, kind):
     known = known_recording()
-    source = load_recording(_write(tmp_path, recording_bytes(known, kind)), None,
-                            EpochingSpec(tmin=-0.2, tmax=0.5, conditions={"A": ["a"], "B": ["b"]}), ChannelSpec(),
-                            max_array_bytes=LIMIT)
+    source = load_recording(
+        _write(tmp_path, recording_bytes(known, kind)),
+        None,
+        EpochingSpec(tmin=-0.2, tmax=0.5, conditions={"A": ["a"], "B": ["b"]}),
+        ChannelSpec(),
+        max_array_bytes=LIMIT,
+    )
     epochs = epoch_recording(source.recording, source.events, source.epoching)
-    starts = [int(round(onset * known.sfreq)) - 20 for onset in known.onset_s]
-    expected = np.stack([known.signal_v[:, start:start + 71] for start in starts])
+    starts = [round(onset * known.sfreq) - 20 for onset in known.onset_s]
+    expected = np.stack([known.signal_v[:, start : start + 71] for start in starts])
     np.testing.assert_allclose(epochs.data, expected, rtol=0, atol=quantisation_step_v(kind))
     assert epochs.labels.tolist() == ["A" if value == "a" else "B" for value in known.values]
     assert epochs.tmin == pytest.approx(-0.2)
@@ -62,8 +66,9 @@ def test_a_truncated_file_is_refused_naming_the_declared_and_found_sizes(tmp_pat
 
 def test_a_header_cut_short_is_refused_as_truncated(tmp_path):
     with pytest.raises(EpochSetFormatError, match="truncated"):
-        read_continuous(_write(tmp_path, recording_bytes(known_recording(), "bdf")[:300]), FileFormat.BDF,
-                        max_array_bytes=LIMIT)
+        read_continuous(
+            _write(tmp_path, recording_bytes(known_recording(), "bdf")[:300]), FileFormat.BDF, max_array_bytes=LIMIT
+        )
 
 
 def test_signals_at_different_rates_are_refused(tmp_path):
@@ -71,16 +76,17 @@ def test_signals_at_different_rates_are_refused(tmp_path):
     n_signals = int(content[252:256].decode())
     # Samples-per-record fields follow 216 bytes per signal of earlier fields (Kemp et al., 1992).
     offset = 256 + 216 * n_signals
-    first = content[offset:offset + 8].decode().strip()
-    content[offset:offset + 8] = str(int(first) // 2).ljust(8).encode()
+    first = content[offset : offset + 8].decode().strip()
+    content[offset : offset + 8] = str(int(first) // 2).ljust(8).encode()
     with pytest.raises(EpochSetFormatError, match="different rates"):
         read_continuous(_write(tmp_path, bytes(content)), FileFormat.EDF, max_array_bytes=LIMIT)
 
 
 def test_a_recording_larger_than_the_memory_limit_is_refused_from_its_header(tmp_path):
     with pytest.raises(EpochSetTooLargeError):
-        read_continuous(_write(tmp_path, recording_bytes(known_recording(), "edf")), FileFormat.EDF,
-                        max_array_bytes=1000)
+        read_continuous(
+            _write(tmp_path, recording_bytes(known_recording(), "edf")), FileFormat.EDF, max_array_bytes=1000
+        )
 
 
 def test_a_header_with_text_where_a_number_belongs_is_refused(tmp_path):

@@ -3,8 +3,8 @@
 import numpy as np
 import pytest
 
-from worker.engine.errors import EpochSetFormatError
-from worker.engine.io.events import read_events_tsv
+from epoch_assay.engine.errors import EpochSetFormatError
+from epoch_assay.engine.io.events import read_events_tsv
 
 
 def _events(tmp_path, text: str):
@@ -25,15 +25,18 @@ def test_the_value_column_is_read_when_there_is_no_trial_type(tmp_path):
     assert _events(tmp_path, "onset\tduration\tvalue\n1\t0\t12\n").values.tolist() == ["12"]
 
 
-@pytest.mark.parametrize(("text", "fragment"), [
-    ("", "empty"),
-    ("onset\ttrial_type\n1\ta\n", "duration"),
-    ("onset\tduration\n1\t0\n", "trial_type"),
-    ("onset\tduration\ttrial_type\nsoon\t0\ta\n", "line 2: onset"),
-    ("onset\tduration\ttrial_type\n-1\t0\ta\n", "line 2: onset"),
-    ("onset\tduration\ttrial_type\n1\t0\n", "line 2 has 2"),
-    ("onset\tduration\ttrial_type\n1\t0\tn/a\n", "no event value"),
-])
+@pytest.mark.parametrize(
+    ("text", "fragment"),
+    [
+        ("", "empty"),
+        ("onset\ttrial_type\n1\ta\n", "duration"),
+        ("onset\tduration\n1\t0\n", "trial_type"),
+        ("onset\tduration\ttrial_type\nsoon\t0\ta\n", "line 2: onset"),
+        ("onset\tduration\ttrial_type\n-1\t0\ta\n", "line 2: onset"),
+        ("onset\tduration\ttrial_type\n1\t0\n", "line 2 has 2"),
+        ("onset\tduration\ttrial_type\n1\t0\tn/a\n", "no event value"),
+    ],
+)
 def test_a_malformed_events_file_is_refused_saying_where(tmp_path, text, fragment):
     with pytest.raises(EpochSetFormatError, match=fragment):
         _events(tmp_path, text)

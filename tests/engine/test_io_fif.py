@@ -4,8 +4,8 @@ import mne
 import numpy as np
 import pytest
 
-from worker.engine.errors import EpochSetFormatError, EpochSetTooLargeError
-from worker.engine.io.fif import read_fif_epochs
+from epoch_assay.engine.errors import EpochSetFormatError, EpochSetTooLargeError
+from epoch_assay.engine.io.fif import read_fif_epochs
 
 LIMIT = 10**9
 
@@ -14,8 +14,9 @@ def _mne_epochs(with_montage: bool = False) -> mne.EpochsArray:
     rng = np.random.default_rng(3)
     info = mne.create_info(["Fz", "Cz", "Pz", "HEOG", "ECG"], 200.0, ["eeg", "eeg", "eeg", "eog", "ecg"])
     events = np.array([[100 * i, 0, 1 + i % 2] for i in range(6)])
-    epochs = mne.EpochsArray(rng.normal(0, 1e-5, (6, 5, 40)), info, events=events, event_id={"go": 1, "stop": 2},
-                             tmin=-0.05, verbose="error")
+    epochs = mne.EpochsArray(
+        rng.normal(0, 1e-5, (6, 5, 40)), info, events=events, event_id={"go": 1, "stop": 2}, tmin=-0.05, verbose="error"
+    )
     if with_montage:
         epochs.set_montage("standard_1020", on_missing="ignore", verbose="error")
     return epochs

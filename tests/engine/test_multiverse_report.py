@@ -2,20 +2,28 @@
 
 import numpy as np
 
-from worker.engine.grid import GridSpec, expand_grid
-from worker.engine.multiverse_report import factor_effects_document, ranking_document, selection_document
-from worker.engine.selection import ContrastBlindSpec, SplitSpec, TuningHoldoutSpec
+from epoch_assay.engine.grid import GridSpec, expand_grid
+from epoch_assay.engine.multiverse_report import factor_effects_document, ranking_document, selection_document
+from epoch_assay.engine.selection import ContrastBlindSpec, SplitSpec, TuningHoldoutSpec
 
-GRID = GridSpec(factors={"hp": {"none": [], "1": [{"step": "highpass", "cutoff_hz": 1.0}]},
-                         "bl": {"none": [], "pre": [{"step": "baseline", "window_s": [-0.1, 0.0]}]}})
+GRID = GridSpec(
+    factors={
+        "hp": {"none": [], "1": [{"step": "highpass", "cutoff_hz": 1.0}]},
+        "bl": {"none": [], "pre": [{"step": "baseline", "window_s": [-0.1, 0.0]}]},
+    }
+)
 POINTS = expand_grid(GRID)
 NAMES = [point.pipeline.name for point in POINTS]
 RNG = np.random.default_rng(1)
 RESULTS = [
-    {"pipeline": name, "subject": f"s{s}", "significant_fraction": float(np.clip(0.2 + 0.2 * (i >= 2)
-                                                                                 + RNG.normal(0, 0.05), 0, 1)),
-     "n_trials": {"a": 40 - i, "b": 40}}
-    for s in range(6) for i, name in enumerate(NAMES)
+    {
+        "pipeline": name,
+        "subject": f"s{s}",
+        "significant_fraction": float(np.clip(0.2 + 0.2 * (i >= 2) + RNG.normal(0, 0.05), 0, 1)),
+        "n_trials": {"a": 40 - i, "b": 40},
+    }
+    for s in range(6)
+    for i, name in enumerate(NAMES)
 ]
 
 
@@ -23,8 +31,10 @@ def test_ranking_lists_every_pipeline_best_first_with_its_group_entry():
     group = [{"pipeline": name, "n_subjects": 6} for name in NAMES]
     ranking = ranking_document(RESULTS, NAMES, NAMES[0], "significant_fraction", group)
     assert sorted(e["pipeline"] for e in ranking) == sorted(NAMES)
-    assert ranking[0]["pipeline"].startswith("hp=1") and ranking[0]["group"] == {"pipeline": ranking[0]["pipeline"],
-                                                                                "n_subjects": 6}
+    assert ranking[0]["pipeline"].startswith("hp=1") and ranking[0]["group"] == {
+        "pipeline": ranking[0]["pipeline"],
+        "n_subjects": 6,
+    }
     means = [e["mean"] for e in ranking]
     assert means == sorted(means, reverse=True)
 

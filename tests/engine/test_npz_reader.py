@@ -9,9 +9,9 @@ import numpy as np
 import pytest
 from numpy.lib import format as npy_format
 
+from epoch_assay.engine.errors import EpochSetFormatError, EpochSetTooLargeError
+from epoch_assay.engine.io import read_npz, write_npz
 from tests.engine.conftest import random_epoch_set
-from worker.engine.errors import EpochSetFormatError, EpochSetTooLargeError
-from worker.engine.io import read_npz, write_npz
 
 LIMIT_BYTES = 10**7
 N_TRIALS, N_CHANNELS, N_TIMES = 6, 4, 20

@@ -4,11 +4,11 @@ import numpy as np
 import pytest
 from pydantic import ValidationError
 
+from epoch_assay.engine.epochs import EpochSet
+from epoch_assay.engine.errors import SpecError
+from epoch_assay.engine.pipeline import PipelineSpec, apply_pipeline
+from epoch_assay.engine.windows import window_mask
 from tests.engine.conftest import random_epoch_set
-from worker.engine.epochs import EpochSet
-from worker.engine.errors import SpecError
-from worker.engine.pipeline import PipelineSpec, apply_pipeline
-from worker.engine.windows import window_mask
 
 BASELINE_S = (-0.1, 0.0)
 STEPS = [

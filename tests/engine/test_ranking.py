@@ -3,8 +3,8 @@
 import numpy as np
 from scipy import stats
 
-from worker.engine.ranking import mean_intervals, rank_pipelines
-from worker.engine.subject_metrics import MetricTable
+from epoch_assay.engine.ranking import mean_intervals, rank_pipelines
+from epoch_assay.engine.subject_metrics import MetricTable
 
 RNG = np.random.default_rng(5)
 VALUES = RNG.uniform(0.0, 1.0, size=(4, 9))

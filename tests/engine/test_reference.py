@@ -5,10 +5,10 @@ import numpy as np
 import pytest
 from pydantic import ValidationError
 
+from epoch_assay.engine.epochs import EpochSet
+from epoch_assay.engine.errors import SpecError
+from epoch_assay.engine.steps.reference import Reference
 from tests.engine.conftest import random_epoch_set
-from worker.engine.epochs import EpochSet
-from worker.engine.errors import SpecError
-from worker.engine.steps.reference import Reference
 
 NAMES = ("Fz", "Cz", "Pz", "TP9", "TP10", "HEOG")
 TYPES = ("eeg", "eeg", "eeg", "eeg", "eeg", "eog")

@@ -2,18 +2,22 @@
 
 import json
 
-import pydantic
-
 import numpy as np
+import pydantic
 import pytest
 from scipy import stats
 from statsmodels.stats.multitest import multipletests
 
+from epoch_assay.engine.errors import SpecError
+from epoch_assay.engine.scoring import score_epochs
+from epoch_assay.engine.scoring_spec import BootstrapSpec, ScoringSpec, TimeCourseSpec
+from epoch_assay.engine.stats import (
+    bootstrap_significant_fraction,
+    hedges_g,
+    standardized_measurement_error,
+    window_means,
+)
 from tests.engine.stats_fixtures import MICROVOLT, small_epoch_set
-from worker.engine.errors import SpecError
-from worker.engine.scoring import score_epochs
-from worker.engine.scoring_spec import BootstrapSpec, ScoringSpec, TimeCourseSpec
-from worker.engine.stats import bootstrap_significant_fraction, hedges_g, standardized_measurement_error, window_means
 
 SPEC = ScoringSpec(conditions=("dev", "std"), window_s=(0.2, 0.4), alpha=0.05, correction="fdr_bh")
 WITH_BOOTSTRAP = SPEC.model_copy(update={"bootstrap": BootstrapSpec(trials_per_condition=20, resamples=100, seed=3)})
@@ -111,7 +115,12 @@ def test_to_json_is_json_with_nan_as_null(epochs):
     decoded = json.loads(json.dumps(score.to_json(), allow_nan=False))
     flat_channel = decoded["channels"][3]
     assert {key: flat_channel[key] for key in ("name", "t", "p", "p_adjusted", "significant", "hedges_g")} == {
-        "name": "E4", "t": None, "p": None, "p_adjusted": None, "significant": False, "hedges_g": None,
+        "name": "E4",
+        "t": None,
+        "p": None,
+        "p_adjusted": None,
+        "significant": False,
+        "hedges_g": None,
     }
     assert flat_channel["hedges_g_ci"] == [None, None]
 
@@ -119,14 +128,36 @@ def test_to_json_is_json_with_nan_as_null(epochs):
 def test_to_json_has_exactly_the_documented_keys(epochs):
     document = score_epochs(epochs, WITH_BOOTSTRAP).to_json()
     assert set(document) == {
-        "n_trials", "channels", "significant_fraction", "significant_fraction_uploaded", "channels_kept",
-        "channels_uploaded", "median_sme_uv", "time_course", "bootstrap",
+        "n_trials",
+        "channels",
+        "significant_fraction",
+        "significant_fraction_uploaded",
+        "channels_kept",
+        "channels_uploaded",
+        "median_sme_uv",
+        "time_course",
+        "bootstrap",
     }
     assert set(document["channels"][0]) == {
-        "name", "t", "p", "p_adjusted", "significant", "mean_diff_uv", "hedges_g", "hedges_g_ci", "sme_uv",
+        "name",
+        "t",
+        "p",
+        "p_adjusted",
+        "significant",
+        "mean_diff_uv",
+        "hedges_g",
+        "hedges_g_ci",
+        "sme_uv",
     }
     assert set(document["bootstrap"]) == {
-        "median", "ci_low", "ci_high", "resamples", "trials_per_condition", "mode", "ci", "trials_drawn",
+        "median",
+        "ci_low",
+        "ci_high",
+        "resamples",
+        "trials_per_condition",
+        "mode",
+        "ci",
+        "trials_drawn",
         "with_replacement",
     }
     assert set(document["time_course"]) == {"bin_s", "times_s", "significant_fraction"}
@@ -209,8 +240,11 @@ def test_other_tests_match_scipy_on_the_window_means(epochs, test):
     dev, std = dev_std_means(epochs)
     # Reference: scipy.stats.ttest_ind(equal_var=True) / mannwhitneyu(method="asymptotic") (Virtanen et al., 2020);
     # for mann_whitney the channel's t carries U.
-    expected = (stats.ttest_ind(dev, std, equal_var=True) if test == "student"
-                else stats.mannwhitneyu(dev, std, method="asymptotic", axis=0))
+    expected = (
+        stats.ttest_ind(dev, std, equal_var=True)
+        if test == "student"
+        else stats.mannwhitneyu(dev, std, method="asymptotic", axis=0)
+    )
     np.testing.assert_allclose([c.t for c in score.channels], expected.statistic, rtol=1e-10)
     np.testing.assert_allclose([c.p for c in score.channels], expected.pvalue, rtol=1e-8)
 
@@ -247,8 +281,9 @@ def test_modes_other_than_fixed_accept_fewer_trials_than_trials_per_condition(ep
 
 
 def test_uploaded_fraction_counts_dropped_and_flagged_channels_as_not_significant(epochs):
-    dropped = epochs.with_changes(data=epochs.data[:, 1:], ch_names=epochs.ch_names[1:], ch_types=epochs.ch_types[1:],
-                                  bads=frozenset({"E3"}))
+    dropped = epochs.with_changes(
+        data=epochs.data[:, 1:], ch_names=epochs.ch_names[1:], ch_types=epochs.ch_types[1:], bads=frozenset({"E3"})
+    )
     score = score_epochs(dropped, SPEC, uploaded_eeg_channels=tuple(EEG))
     # E1 dropped, E3 flagged: E2 is the one significant channel left, of four scored and six uploaded.
     assert [c.name for c in score.channels] == ["E2", "E4", "E5", "E6"]

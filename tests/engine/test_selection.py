@@ -4,28 +4,30 @@ import numpy as np
 import pytest
 from pydantic import TypeAdapter, ValidationError
 
-from tests.engine.conftest import random_epoch_set
-from worker.engine.errors import SpecError
-from worker.engine.pipeline import PipelineSpec
-from worker.engine.scoring import score_epochs
-from worker.engine.scoring_spec import ScoringSpec
-from worker.engine.selection import (
+from epoch_assay.engine.errors import SpecError
+from epoch_assay.engine.pipeline import PipelineSpec
+from epoch_assay.engine.scoring import score_epochs
+from epoch_assay.engine.scoring_spec import ScoringSpec
+from epoch_assay.engine.selection import (
     SelectionSpec,
     SplitSpec,
     contrast_blind,
     split_subjects,
     tuning_holdout,
 )
-from worker.engine.subject_metrics import MetricTable, metric_table
-from worker.engine.tree import build_tree, execute_tree
+from epoch_assay.engine.subject_metrics import MetricTable, metric_table
+from epoch_assay.engine.tree import build_tree, execute_tree
+from tests.engine.conftest import random_epoch_set
 
 SUBJECTS = ("s1", "s2", "s3", "s4")
 # p1 is best on s1, s2 only; p2 is best overall
-VALUES = np.array([
-    [0.10, 0.10, 0.10, 0.10],
-    [0.50, 0.50, 0.00, 0.00],
-    [0.40, 0.40, 0.40, 0.40],
-])
+VALUES = np.array(
+    [
+        [0.10, 0.10, 0.10, 0.10],
+        [0.50, 0.50, 0.00, 0.00],
+        [0.40, 0.40, 0.40, 0.40],
+    ]
+)
 TABLE = MetricTable("significant_fraction", ("ref", "p1", "p2"), SUBJECTS, VALUES)
 
 
@@ -91,11 +93,17 @@ def null_study(simulation: int, n_subjects: int) -> list[dict]:
     tree = build_tree(NULL_PIPELINES)
     entries = []
     for subject in range(n_subjects):
-        epochs = random_epoch_set(n_trials=40, n_channels=N_CHANNELS, n_times=30, sfreq=100.0, tmin=-0.05,
-                                  seed=1000 * simulation + subject)
+        epochs = random_epoch_set(
+            n_trials=40, n_channels=N_CHANNELS, n_times=30, sfreq=100.0, tmin=-0.05, seed=1000 * simulation + subject
+        )
         for leaf in execute_tree(tree, epochs, f"{simulation:032x}{subject:032x}"):
-            entries.append({"pipeline": leaf.pipeline.name, "subject": f"s{subject}",
-                            **score_epochs(leaf.epochs, NULL_SCORING).to_json()})
+            entries.append(
+                {
+                    "pipeline": leaf.pipeline.name,
+                    "subject": f"s{subject}",
+                    **score_epochs(leaf.epochs, NULL_SCORING).to_json(),
+                }
+            )
     return entries
 
 

@@ -4,15 +4,20 @@ import mne
 import numpy as np
 import pytest
 
-from demo.simulate import CH_NAMES, SimulationConfig, simulate_components, simulate_subject
-from worker.engine.epochs import EpochSet
-from worker.engine.errors import SpecError
-from worker.engine.steps.bad_channels import BadChannelCriteria, BadChannels, interpolate_channels
-from worker.engine.units import uv_to_v
+from epoch_assay.demo.simulate import CH_NAMES, SimulationConfig, simulate_components, simulate_subject
+from epoch_assay.engine.epochs import EpochSet
+from epoch_assay.engine.errors import SpecError
+from epoch_assay.engine.steps.bad_channels import BadChannelCriteria, BadChannels, interpolate_channels
+from epoch_assay.engine.units import uv_to_v
 
 ALL_CRITERIA = {
-    "flat": {}, "deviation": {}, "correlation": {}, "line_noise": {"freq_hz": 50}, "high_frequency": {}, "bridged": {},
-}  # fmt: skip
+    "flat": {},
+    "deviation": {},
+    "correlation": {},
+    "line_noise": {"freq_hz": 50},
+    "high_frequency": {},
+    "bridged": {},
+}
 FAULTY = {"O2": "flat", "T8": "noisy", "FC1": "bridged", "FC2": "bridged", "P7": "disconnected", "TP10": "line"}
 CONFIG = SimulationConfig(n_trials_per_condition=20, drift_uv=0.0, sfreq=250.0)
 
@@ -48,9 +53,14 @@ def test_injected_faults_found_with_high_recall_and_at_most_one_false_positive()
 
 @pytest.mark.parametrize(
     ("criterion", "channels"),
-    [("flat", {"O2"}), ("high_frequency", {"T8"}), ("bridged", {"FC1", "FC2"}), ("line_noise", {"TP10"}),
-     ("correlation", {"P7"})],
-)  # fmt: skip
+    [
+        ("flat", {"O2"}),
+        ("high_frequency", {"T8"}),
+        ("bridged", {"FC1", "FC2"}),
+        ("line_noise", {"TP10"}),
+        ("correlation", {"P7"}),
+    ],
+)
 def test_each_criterion_finds_its_fault(criterion: str, channels: set[str]) -> None:
     step = BadChannels(criteria=BadChannelCriteria.model_validate({criterion: {}}), action="flag")
     _, record = step.apply(_with_faults())
@@ -86,7 +96,9 @@ def test_interpolation_matches_mne_interpolate_bads() -> None:
     eeg = [i for i, kind in enumerate(epochs.ch_types) if kind == "eeg"]
     names = [epochs.ch_names[i] for i in eeg]
     info = mne.create_info(names, epochs.sfreq, "eeg")
-    info.set_montage(mne.channels.make_dig_montage(dict(zip(names, epochs.positions[eeg])), coord_frame="head"))
+    info.set_montage(
+        mne.channels.make_dig_montage(dict(zip(names, epochs.positions[eeg], strict=False)), coord_frame="head")
+    )
     info["bads"] = ["C3", "Pz"]
     reference = mne.EpochsArray(epochs.data[:, eeg].copy(), info, verbose="error")
     reference.interpolate_bads(reset_bads=True, verbose="error")

@@ -5,11 +5,11 @@ import pytest
 from pydantic import ValidationError
 from scipy import signal
 
+from epoch_assay.engine.epochs import EpochSet
+from epoch_assay.engine.errors import SpecError
+from epoch_assay.engine.steps import filters
+from epoch_assay.engine.steps.filters import BandPass, HighPass, design_fir, design_iir, fir_transition_hz
 from tests.engine.conftest import random_epoch_set
-from worker.engine.epochs import EpochSet
-from worker.engine.errors import SpecError
-from worker.engine.steps import filters
-from worker.engine.steps.filters import BandPass, HighPass, design_fir, design_iir, fir_transition_hz
 
 SFREQ = 250.0
 LOW, HIGH = 1.0, 30.0
@@ -17,9 +17,13 @@ LOW, HIGH = 1.0, 30.0
 
 def _epochs(waveform: np.ndarray) -> EpochSet:
     return EpochSet(
-        data=waveform.reshape(1, 1, -1), sfreq=SFREQ, tmin=0.0, ch_names=("Cz",), ch_types=("eeg",),
+        data=waveform.reshape(1, 1, -1),
+        sfreq=SFREQ,
+        tmin=0.0,
+        ch_names=("Cz",),
+        ch_types=("eeg",),
         labels=np.array(["a"]),
-    )  # fmt: skip
+    )
 
 
 def _amplitude_after(step: BandPass, freq_hz: float) -> float:

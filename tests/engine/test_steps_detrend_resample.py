@@ -4,11 +4,11 @@ import numpy as np
 import pytest
 from scipy import signal
 
+from epoch_assay.engine.epochs import EpochSet
+from epoch_assay.engine.errors import SpecError
+from epoch_assay.engine.steps.detrend import Detrend
+from epoch_assay.engine.steps.resample import Resample
 from tests.engine.conftest import random_epoch_set
-from worker.engine.epochs import EpochSet
-from worker.engine.errors import SpecError
-from worker.engine.steps.detrend import Detrend
-from worker.engine.steps.resample import Resample
 
 SFREQ = 500.0
 
@@ -17,9 +17,13 @@ def _sine_epochs(freq_hz: float, n_trials: int = 3, duration_s: float = 4.0) -> 
     times = np.arange(int(duration_s * SFREQ)) / SFREQ
     data = np.tile(np.sin(2 * np.pi * freq_hz * times), (n_trials, 2, 1))
     return EpochSet(
-        data=data, sfreq=SFREQ, tmin=-0.2, ch_names=("Cz", "Pz"), ch_types=("eeg", "eeg"),
+        data=data,
+        sfreq=SFREQ,
+        tmin=-0.2,
+        ch_names=("Cz", "Pz"),
+        ch_types=("eeg", "eeg"),
         labels=np.array(["a", "b", "a"][:n_trials]),
-    )  # fmt: skip
+    )
 
 
 def test_linear_detrend_leaves_residual_of_least_squares_line() -> None:

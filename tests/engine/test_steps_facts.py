@@ -2,12 +2,12 @@
 
 import numpy as np
 
-from demo.scenario import CONDITIONS, INCONGRUENT
-from demo.simulate import SimulationConfig, simulate_subject
-from worker.engine.epochs import EpochSet
-from worker.engine.pipeline import PipelineSpec, apply_pipeline
-from worker.engine.scoring import score_epochs
-from worker.engine.scoring_spec import ScoringSpec
+from epoch_assay.demo.scenario import CONDITIONS, INCONGRUENT
+from epoch_assay.demo.simulate import SimulationConfig, simulate_subject
+from epoch_assay.engine.epochs import EpochSet
+from epoch_assay.engine.pipeline import PipelineSpec, apply_pipeline
+from epoch_assay.engine.scoring import score_epochs
+from epoch_assay.engine.scoring_spec import ScoringSpec
 
 # A strong effect on strongly drifting data, so that the filters' effects stand out in two subjects.
 DRIFTING = SimulationConfig(n_trials_per_condition=60, effect_uv=10.0, drift_uv=40.0, blink_rate=0.0)

@@ -3,10 +3,10 @@
 import numpy as np
 import pytest
 
-from demo.simulate import CH_NAMES, EOG_CHANNEL, SimulationConfig, simulate_components, simulate_subject
-from worker.engine.epochs import EpochSet
-from worker.engine.errors import SpecError
-from worker.engine.steps.ica import Ica, OcularCriterion
+from epoch_assay.demo.simulate import CH_NAMES, EOG_CHANNEL, SimulationConfig, simulate_components, simulate_subject
+from epoch_assay.engine.epochs import EpochSet
+from epoch_assay.engine.errors import SpecError
+from epoch_assay.engine.steps.ica import Ica, OcularCriterion
 
 CONFIG = SimulationConfig(n_trials_per_condition=25, drift_uv=0.0, line_noise_uv=0.0, blink_rate=0.6, sfreq=250.0)
 FRONTAL = [CH_NAMES.index(name) for name in ("Fp1", "Fp2", "F7", "F8")]
@@ -43,9 +43,11 @@ def test_frontal_channels_stand_in_for_missing_eog(blinking) -> None:
     epochs, clean = blinking
     keep = [i for i, name in enumerate(epochs.ch_names) if name != EOG_CHANNEL]
     no_eog = epochs.with_changes(
-        data=epochs.data[:, keep], ch_names=tuple(epochs.ch_names[i] for i in keep),
-        ch_types=tuple(epochs.ch_types[i] for i in keep), positions=epochs.positions[keep],
-    )  # fmt: skip
+        data=epochs.data[:, keep],
+        ch_names=tuple(epochs.ch_names[i] for i in keep),
+        ch_types=tuple(epochs.ch_types[i] for i in keep),
+        positions=epochs.positions[keep],
+    )
     cleaned, record = Ica(n_components=20, seed=1).apply(no_eog)
     assert any(component.kind == "ocular" for component in record.components_removed)
     assert _frontal_correlations(cleaned.data, clean[:, keep]).min() > 0.9

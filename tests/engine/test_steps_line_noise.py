@@ -5,10 +5,10 @@ import pytest
 from pydantic import ValidationError
 from scipy import fft, signal
 
+from epoch_assay.engine.epochs import EpochSet
+from epoch_assay.engine.errors import SpecError
+from epoch_assay.engine.steps.line_noise import NEIGHBOUR_BAND_HZ, LineNoise, design_notches, line_harmonics_hz
 from tests.engine.conftest import random_epoch_set
-from worker.engine.epochs import EpochSet
-from worker.engine.errors import SpecError
-from worker.engine.steps.line_noise import NEIGHBOUR_BAND_HZ, LineNoise, design_notches, line_harmonics_hz
 
 SFREQ = 500.0
 
@@ -75,7 +75,7 @@ def test_spectrum_interpolation_sets_line_amplitude_to_neighbour_mean_keeping_ph
 
 
 def test_spectrum_interpolation_works_on_many_short_epochs() -> None:
-    times, data, alpha = _line_plus_alpha(1.2, n_trials=5)
+    _times, data, alpha = _line_plus_alpha(1.2, n_trials=5)
     cleaned, _ = LineNoise(freq_hz=50, method="spectrum_interpolation").apply(_epochs(data))
     residual = cleaned.data[:, 0] - alpha
     assert np.sqrt(np.mean(residual**2)) < 0.05

@@ -3,13 +3,13 @@
 import mne
 import numpy as np
 
-from tests.engine.conftest import random_epoch_set
-from worker.engine.montage import (
+from epoch_assay.engine.montage import (
     builtin_montage_name,
     eeg_channels_without_position,
     epoch_set_positions,
     montage_positions,
 )
+from tests.engine.conftest import random_epoch_set
 
 
 def test_positions_match_mne_montage_in_head_coordinates() -> None:

@@ -4,12 +4,12 @@ import mne
 import numpy as np
 import pytest
 
-from demo.simulate import CH_NAMES, SimulationConfig, simulate_subject
-from worker.engine.epochs import EpochSet
-from worker.engine.errors import SpecError
-from worker.engine.montage import epoch_set_positions
-from worker.engine.steps.reference import Reference
-from worker.engine.steps.rest import SOURCE_EXCLUDE_M, SOURCE_SPACING_M, rest_reference_weights
+from epoch_assay.demo.simulate import CH_NAMES, SimulationConfig, simulate_subject
+from epoch_assay.engine.epochs import EpochSet
+from epoch_assay.engine.errors import SpecError
+from epoch_assay.engine.montage import epoch_set_positions
+from epoch_assay.engine.steps.reference import Reference
+from epoch_assay.engine.steps.rest import SOURCE_EXCLUDE_M, SOURCE_SPACING_M, rest_reference_weights
 
 
 @pytest.fixture(scope="module")
@@ -24,7 +24,9 @@ def _mne_rest(epochs: EpochSet) -> np.ndarray:
     eeg = epochs.picks(("eeg",))
     names = [epochs.ch_names[i] for i in eeg]
     info = mne.create_info(names, epochs.sfreq, "eeg")
-    info.set_montage(mne.channels.make_dig_montage(dict(zip(names, epochs.positions[eeg])), coord_frame="head"))
+    info.set_montage(
+        mne.channels.make_dig_montage(dict(zip(names, epochs.positions[eeg], strict=False)), coord_frame="head")
+    )
     sphere = mne.make_sphere_model("auto", "auto", info, verbose="error")
     src = mne.setup_volume_source_space(
         sphere=sphere, pos=SOURCE_SPACING_M * 1000, exclude=SOURCE_EXCLUDE_M * 1000, verbose="error"
@@ -82,8 +84,10 @@ def test_none_reference_leaves_data_unchanged(subject: EpochSet) -> None:
 def test_channel_reference_dropped_earlier_is_refused_at_apply(subject: EpochSet) -> None:
     keep = [i for i, name in enumerate(subject.ch_names) if name != "TP9"]
     dropped = subject.with_changes(
-        data=subject.data[:, keep], ch_names=tuple(subject.ch_names[i] for i in keep),
-        ch_types=tuple(subject.ch_types[i] for i in keep), positions=subject.positions[keep],
+        data=subject.data[:, keep],
+        ch_names=tuple(subject.ch_names[i] for i in keep),
+        ch_types=tuple(subject.ch_types[i] for i in keep),
+        positions=subject.positions[keep],
     )
     with pytest.raises(SpecError, match="TP9"):
         Reference(kind="channels", channels=("TP9", "TP10")).apply(dropped)

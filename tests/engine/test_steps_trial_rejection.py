@@ -3,11 +3,11 @@
 import numpy as np
 import pytest
 
-from demo.simulate import CH_NAMES, SimulationConfig, simulate_subject
-from worker.engine.epochs import EpochSet
-from worker.engine.errors import SpecError
-from worker.engine.steps.trial_rejection import TrialCriteria, TrialRejection
-from worker.engine.units import uv_to_v
+from epoch_assay.demo.simulate import CH_NAMES, SimulationConfig, simulate_subject
+from epoch_assay.engine.epochs import EpochSet
+from epoch_assay.engine.errors import SpecError
+from epoch_assay.engine.steps.trial_rejection import TrialCriteria, TrialRejection
+from epoch_assay.engine.units import uv_to_v
 
 CONFIG = SimulationConfig(n_trials_per_condition=30, drift_uv=0.0, blink_rate=0.0, sfreq=250.0)
 JUMP, MUSCLE, SWEAT = 3, 11, 27
@@ -66,7 +66,7 @@ def test_removed_trials_counted_per_condition() -> None:
     epochs = _with_artifacts()
     kept, record = TrialRejection(criteria=TrialCriteria(peak_to_peak_uv=150.0)).apply(epochs)
     labels, counts = np.unique(epochs.labels[_peak_to_peak_rejects(epochs, 150.0)], return_counts=True)
-    assert record.trials_removed == dict(zip(labels.tolist(), counts.tolist()))
+    assert record.trials_removed == dict(zip(labels.tolist(), counts.tolist(), strict=False))
     assert kept.n_trials == epochs.n_trials - counts.sum()
 
 

@@ -2,15 +2,20 @@
 
 import numpy as np
 
-from worker.engine.subject_metrics import metric_table
+from epoch_assay.engine.subject_metrics import metric_table
 
 ENTRIES = [
     {"pipeline": "a", "subject": "s1", "significant_fraction": 0.2, "n_trials": {"x": 10, "y": 12}},
     {"pipeline": "a", "subject": "s1", "significant_fraction": 0.4, "n_trials": {"x": 8, "y": 8}},
     {"pipeline": "a", "subject": "s2", "error": "scoring: too few trials"},
     {"pipeline": "b", "subject": "s1", "significant_fraction": 0.1, "n_trials": {"x": 5, "y": 5}},
-    {"pipeline": "b", "subject": "s2", "significant_fraction": 0.3, "n_trials": {"x": 5, "y": 6},
-     "median_sme_uv": {"x": 1.0, "y": 3.0}},
+    {
+        "pipeline": "b",
+        "subject": "s2",
+        "significant_fraction": 0.3,
+        "n_trials": {"x": 5, "y": 6},
+        "median_sme_uv": {"x": 1.0, "y": 3.0},
+    },
 ]
 
 

@@ -3,19 +3,24 @@
 import numpy as np
 import pytest
 
-from worker.engine.epochs import EpochSet
-from worker.engine.grid import GridSpec, expand_grid
-from worker.engine.pipeline import PipelineSpec, apply_pipeline
-from worker.engine.steps.base import Step
-from worker.engine.tree import StepOutput, build_tree, execute_tree, prefix_cache_key
+from epoch_assay.engine.epochs import EpochSet
+from epoch_assay.engine.grid import GridSpec, expand_grid
+from epoch_assay.engine.pipeline import PipelineSpec, apply_pipeline
+from epoch_assay.engine.steps.base import Step
+from epoch_assay.engine.tree import StepOutput, build_tree, execute_tree, prefix_cache_key
 
 SHA = "0" * 64
-GRID = GridSpec(factors={
-    "highpass": {"none": [], "1": [{"step": "highpass", "cutoff_hz": 1.0}],
-                 "2": [{"step": "highpass", "cutoff_hz": 2.0}]},
-    "reference": {"none": [], "average": [{"step": "reference", "kind": "average"}]},
-    "baseline": {"none": [], "pre": [{"step": "baseline", "window_s": [-0.1, 0.0]}]},
-})
+GRID = GridSpec(
+    factors={
+        "highpass": {
+            "none": [],
+            "1": [{"step": "highpass", "cutoff_hz": 1.0}],
+            "2": [{"step": "highpass", "cutoff_hz": 2.0}],
+        },
+        "reference": {"none": [], "average": [{"step": "reference", "kind": "average"}]},
+        "baseline": {"none": [], "pre": [{"step": "baseline", "window_s": [-0.1, 0.0]}]},
+    }
+)
 
 
 class DictCache:
@@ -67,7 +72,8 @@ def test_shared_prefixes_are_applied_once(epochs, monkeypatch):
 
 def test_equal_steps_written_differently_share_a_node():
     explicit = PipelineSpec.model_validate(
-        {"name": "a", "steps": [{"step": "highpass", "cutoff_hz": 1.0, "method": "fir"}]})
+        {"name": "a", "steps": [{"step": "highpass", "cutoff_hz": 1.0, "method": "fir"}]}
+    )
     implicit = PipelineSpec.model_validate({"name": "b", "steps": [{"step": "highpass", "cutoff_hz": 1.0}]})
     assert build_tree([explicit, implicit]).count_steps() == 1
 

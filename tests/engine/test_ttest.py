@@ -5,8 +5,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from tests.engine.stats_fixtures import MICROVOLT, window_mean_pair
-from worker.engine.stats import (
+from epoch_assay.engine.stats import (
     label_permutation_test,
     mann_whitney_u,
     one_sample_t,
@@ -14,6 +13,7 @@ from worker.engine.stats import (
     student_t,
     welch_t,
 )
+from tests.engine.stats_fixtures import MICROVOLT, window_mean_pair
 
 
 def test_statistic_and_pvalue_match_scipy_for_many_channels():
@@ -168,8 +168,14 @@ def test_label_permutation_pvalue_matches_scipy_permutation_test_on_one_channel(
     # Reference: scipy.stats.permutation_test(permutation_type="independent") (Virtanen et al., 2020);
     # C(16, 8) = 12,870 partitions ≤ n_resamples, so SciPy enumerates them exactly. Equal group
     # sizes make the null of t symmetric, so SciPy's doubled one-sided p equals P(|t*| ≥ |t|).
-    expected = stats.permutation_test((a[:, 0], b[:, 0]), welch, permutation_type="independent",
-                                      n_resamples=20_000, vectorized=True, alternative="two-sided")
+    expected = stats.permutation_test(
+        (a[:, 0], b[:, 0]),
+        welch,
+        permutation_type="independent",
+        n_resamples=20_000,
+        vectorized=True,
+        alternative="two-sided",
+    )
     np.testing.assert_allclose(result.statistic[0], expected.statistic, rtol=1e-10)
     # Monte Carlo error of 20,000 permutations: sd ≤ √(0.25 / 20000) ≈ 0.0035; 4 sd (common practice).
     np.testing.assert_allclose(result.pvalue[0], expected.pvalue, atol=0.014)

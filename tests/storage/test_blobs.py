@@ -51,14 +51,20 @@ def s3_server(tmp_path_factory: pytest.TempPathFactory) -> Iterator[S3Server]:
 
 def _local(tmp_path: Path) -> StoreUnderTest:
     store = LocalBlobStore(tmp_path / "blobs")
-    return StoreUnderTest(store, lambda sha256, data: store.path(sha256).write_bytes(data),
-                          lambda: sorted(str(p) for p in store.root.rglob("*") if p.is_file()))
+    return StoreUnderTest(
+        store,
+        lambda sha256, data: store.path(sha256).write_bytes(data),
+        lambda: sorted(str(p) for p in store.root.rglob("*") if p.is_file()),
+    )
 
 
 def _fsspec(url: str, tmp_path: Path, cache_max_bytes: int = 10**9) -> StoreUnderTest:
     store = FsspecBlobStore.from_url(url, tmp_path / "blob-cache", cache_max_bytes)
-    return StoreUnderTest(store, lambda sha256, data: store.fs.pipe_file(store.key(sha256), data),
-                          lambda: sorted(store.fs.find(store.root)))
+    return StoreUnderTest(
+        store,
+        lambda sha256, data: store.fs.pipe_file(store.key(sha256), data),
+        lambda: sorted(store.fs.find(store.root)),
+    )
 
 
 @pytest.fixture(params=["local", "file", "memory", "s3"])
@@ -66,8 +72,11 @@ def under_test(request: pytest.FixtureRequest, tmp_path: Path) -> Iterator[Store
     if request.param == "local":
         yield _local(tmp_path)
         return
-    url = {"file": (tmp_path / "shared").as_uri(), "memory": f"memory://blobs-{uuid.uuid4().hex}",
-           "s3": f"s3://{BUCKET}/{uuid.uuid4().hex}"}[request.param]
+    url = {
+        "file": (tmp_path / "shared").as_uri(),
+        "memory": f"memory://blobs-{uuid.uuid4().hex}",
+        "s3": f"s3://{BUCKET}/{uuid.uuid4().hex}",
+    }[request.param]
     if request.param == "s3":
         request.getfixturevalue("s3_server")
     subject = _fsspec(url, tmp_path)
@@ -130,9 +139,8 @@ def test_a_staged_blob_that_is_not_committed_leaves_nothing(under_test):
 
 
 def test_an_interrupted_upload_leaves_no_blob_and_no_temporary_file(under_test):
-    with pytest.raises(ConnectionResetError):
-        with under_test.store.staged(_FailingUpload()) as staged:
-            staged.commit()
+    with pytest.raises(ConnectionResetError), under_test.store.staged(_FailingUpload()) as staged:
+        staged.commit()
     assert under_test.everything() == []
     assert list(under_test.store.staging_dir.iterdir()) == []
 
@@ -187,7 +195,7 @@ def test_discard_of_a_missing_blob_does_nothing(under_test):
 
 
 def test_reading_a_missing_blob_names_it(under_test):
-    with pytest.raises(FileNotFoundError, match="No such file for blob 0{64} in "):
+    with pytest.raises(FileNotFoundError, match=r"No such file for blob 0{64} in "):
         _read(under_test.store, "0" * 64)
 
 
@@ -197,8 +205,10 @@ def test_a_damaged_blob_is_refused_on_read_naming_it(under_test):
     with pytest.raises(BlobCorruptError) as caught:
         _read(under_test.store, sha256)
     # Reference: hashlib.sha256 (Python standard library) of the damaged bytes.
-    assert str(caught.value).startswith(f"blob {sha256} in {under_test.store.location} is damaged: its bytes hash "
-                                        f"to {hashlib.sha256(b'bad bytes!').hexdigest()}")
+    assert str(caught.value).startswith(
+        f"blob {sha256} in {under_test.store.location} is damaged: its bytes hash "
+        f"to {hashlib.sha256(b'bad bytes!').hexdigest()}"
+    )
 
 
 def test_a_name_that_is_not_a_sha256_is_refused(under_test):
@@ -251,14 +261,17 @@ def test_the_settings_choose_the_store(tmp_path):
     assert shared.cache.folder == tmp_path / "blob-cache"
 
 
-@pytest.mark.parametrize(("url", "said"), [
-    ("nosuch://bucket/blobs", "a protocol fsspec does not know ('nosuch')"),
-    ("https://example.org/blobs", "not a place to keep blobs (protocol 'https')"),
-    ("simplecache::s3://bucket", "not a place to keep blobs"),
-    ("memory://blobs", "not a place to keep blobs (protocol 'memory')"),
-    # gcsfs, fsspec's driver for gcs://, is not among the project's dependencies.
-    ("gcs://bucket/blobs", "the driver for gcs:// URLs is not installed"),
-])  # fmt: skip
+@pytest.mark.parametrize(
+    ("url", "said"),
+    [
+        ("nosuch://bucket/blobs", "a protocol fsspec does not know ('nosuch')"),
+        ("https://example.org/blobs", "not a place to keep blobs (protocol 'https')"),
+        ("simplecache::s3://bucket", "not a place to keep blobs"),
+        ("memory://blobs", "not a place to keep blobs (protocol 'memory')"),
+        # gcsfs, fsspec's driver for gcs://, is not among the project's dependencies.
+        ("gcs://bucket/blobs", "the driver for gcs:// URLs is not installed"),
+    ],
+)
 def test_a_blob_url_that_cannot_keep_blobs_is_refused_with_the_reason(tmp_path, url, said):
     with pytest.raises(ValidationError, match=re.escape(said)) as caught:
         Settings(data_dir=tmp_path, blob_url=url)

@@ -47,10 +47,15 @@ def test_a_key_can_be_revoked_by_its_token(database):
         assert keys.revoke_key(session, created.token).id == created.info.id
 
 
-@pytest.mark.parametrize(("role", "study", "needle"), [
-    ("admin", "KEYS-1", "every study"), ("read", None, "--study"), ("write", "NOPE", "no study"),
-    ("owner", None, "role must be"),
-])
+@pytest.mark.parametrize(
+    ("role", "study", "needle"),
+    [
+        ("admin", "KEYS-1", "every study"),
+        ("read", None, "--study"),
+        ("write", "NOPE", "no study"),
+        ("owner", None, "role must be"),
+    ],
+)
 def test_a_key_that_cannot_exist_is_refused_with_the_reason(database, study_code, role, study, needle):
     with database.session() as session, pytest.raises(keys.KeyProblem, match=needle):
         keys.create_key(session, role, study)

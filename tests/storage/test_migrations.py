@@ -13,9 +13,12 @@ def test_upgrading_to_0002_lists_the_pipelines_of_existing_runs(empty_database_u
     engine = sa.create_engine(url)
     with engine.begin() as connection:
         connection.execute(sa.text("INSERT INTO studies VALUES ('st_1', 'OLD', 't', '2026-01-01 00:00:00')"))
-        connection.execute(sa.text(
-            "INSERT INTO runs VALUES ('run_1', 'st_1', :spec, 'succeeded', 1.0, NULL, '2026-01-01 00:00:00', NULL, NULL)"
-        ), {"spec": '{"pipelines": [{"name": "raw", "steps": []}, {"name": "hp1", "steps": []}]}'})
+        connection.execute(
+            sa.text(
+                "INSERT INTO runs VALUES ('run_1', 'st_1', :spec, 'succeeded', 1.0, NULL, '2026-01-01 00:00:00', NULL, NULL)"
+            ),
+            {"spec": '{"pipelines": [{"name": "raw", "steps": []}, {"name": "hp1", "steps": []}]}'},
+        )
     command.upgrade(config, "0002")
     with engine.connect() as connection:
         rows = connection.execute(sa.text("SELECT run_id, position, name FROM run_pipelines ORDER BY position")).all()

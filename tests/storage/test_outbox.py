@@ -18,10 +18,19 @@ def _event(database: Database) -> str:
         study = Study(id=new_id("st"), code=new_id("code"), title="t")
         session.add(study)
         session.flush()
-        run = Run(id=new_id("run"), study_id=study.id, spec={"pipelines": [{"name": "raw"}], "epoch_sets": ["es_1"]},
-                  status="succeeded")
-        hook = Webhook(id=new_id("wh"), study_id=study.id, url="http://127.0.0.1:9/", secret="s3cret",
-                       events=["run.succeeded", "run.failed"])
+        run = Run(
+            id=new_id("run"),
+            study_id=study.id,
+            spec={"pipelines": [{"name": "raw"}], "epoch_sets": ["es_1"]},
+            status="succeeded",
+        )
+        hook = Webhook(
+            id=new_id("wh"),
+            study_id=study.id,
+            url="http://127.0.0.1:9/",
+            secret="s3cret",
+            events=["run.succeeded", "run.failed"],
+        )
         session.add_all([run, hook])
         session.flush()
         assert outbox.record_run_event(session, run.id, "succeeded", None, utc_now()) == 1

@@ -168,8 +168,13 @@ def test_a_job_failing_on_its_last_attempt_is_failed_with_the_last_reason(databa
 
 def _webhook(database: Database, run_id: str, events: list[str]) -> str:
     with database.session() as session:
-        hook = Webhook(id=new_id("wh"), study_id=session.get(Run, run_id).study_id, url="http://127.0.0.1:9/",
-                       secret="s", events=events)
+        hook = Webhook(
+            id=new_id("wh"),
+            study_id=session.get(Run, run_id).study_id,
+            url="http://127.0.0.1:9/",
+            secret="s",
+            events=events,
+        )
         session.add(hook)
     return hook.id
 

@@ -2,13 +2,14 @@
 
 from distributed import Client
 
-UNIT_PREFIX = "epoch-assay-unit"  # the name part of the keys worker.dask_units gives units
+UNIT_PREFIX = "epoch-assay-unit"  # the name part of the keys worker.execution.dask_units gives units
 
 
 def state_counts(client: Client, prefix: str = UNIT_PREFIX) -> dict[str, int]:
     """How many times the scheduler's tasks whose key starts with ``prefix`` entered each state
     (``processing`` once per attempt, ``memory`` once per result computed)."""
     return client.run_on_scheduler(
-        lambda dask_scheduler, name=prefix: dict(dask_scheduler.task_prefixes[name].state_counts)
-        if name in dask_scheduler.task_prefixes else {}
-    )  # fmt: skip
+        lambda dask_scheduler, name=prefix: (
+            dict(dask_scheduler.task_prefixes[name].state_counts) if name in dask_scheduler.task_prefixes else {}
+        )
+    )

@@ -6,8 +6,8 @@ from pathlib import Path
 
 import numpy as np
 
-from worker.engine.epochs import EpochSet
-from worker.engine.io.npz import write_npz
+from epoch_assay.engine.epochs import EpochSet
+from epoch_assay.engine.io.npz import write_npz
 
 CHANNELS = ("Fz", "Cz", "Pz", "C3", "C4", "TP9", "TP10", "Oz")
 
@@ -18,14 +18,15 @@ def small_epochs(seed: int = 0, n_per_condition: int = 30, effect_uv: float = 3.
     data : shape (2 * n_per_condition, 8, 81), in V, tmin −0.2 s.
     """
     rng = np.random.default_rng(seed)
-    n_trials, n_times = 2 * n_per_condition, int(round(0.8 * sfreq)) + 1
+    n_trials, n_times = 2 * n_per_condition, round(0.8 * sfreq) + 1
     times = -0.2 + np.arange(n_times) / sfreq
     data = rng.normal(0.0, 5e-6, size=(n_trials, len(CHANNELS), n_times))
     labels = np.array(["a"] * n_per_condition + ["b"] * n_per_condition)
     in_window = (times >= 0.3) & (times <= 0.5)
     data[:n_per_condition, 1:3, :] += effect_uv * 1e-6 * in_window
-    return EpochSet(data=data, sfreq=sfreq, tmin=-0.2, ch_names=CHANNELS, ch_types=("eeg",) * len(CHANNELS),
-                    labels=labels)
+    return EpochSet(
+        data=data, sfreq=sfreq, tmin=-0.2, ch_names=CHANNELS, ch_types=("eeg",) * len(CHANNELS), labels=labels
+    )
 
 
 def npz_bytes(epochs: EpochSet) -> bytes:

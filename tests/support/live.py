@@ -27,14 +27,21 @@ REPO_ROOT = Path(__file__).resolve().parents[2]
 
 def _spawn(args: list[str], env: dict[str, str], log_path: Path) -> subprocess.Popen:
     log = open(log_path, "ab")
-    return subprocess.Popen([sys.executable, "-m", "epoch_assay", *args], cwd=REPO_ROOT, env=env,
-                            stdout=log, stderr=subprocess.STDOUT)
+    return subprocess.Popen(
+        [sys.executable, "-m", "epoch_assay", *args], cwd=REPO_ROOT, env=env, stdout=log, stderr=subprocess.STDOUT
+    )
 
 
 def run_cli(args: list[str], env: dict[str, str], timeout_s: float = 120.0) -> subprocess.CompletedProcess:
     """``python -m epoch_assay ARGS``; the finished process, whatever its exit code."""
-    return subprocess.run([sys.executable, "-m", "epoch_assay", *args], cwd=REPO_ROOT, env=env, capture_output=True,
-                          text=True, timeout=timeout_s)
+    return subprocess.run(
+        [sys.executable, "-m", "epoch_assay", *args],
+        cwd=REPO_ROOT,
+        env=env,
+        capture_output=True,
+        text=True,
+        timeout=timeout_s,
+    )
 
 
 def stop(process: subprocess.Popen, timeout_s: float = 30.0) -> None:
@@ -70,7 +77,15 @@ class LiveService:
 
     def create_key(self, role: str, study: str | None = None) -> str:
         """A new key made with ``epoch-assay keys create``; returns its token."""
-        args = ["keys", "create", "--role", role, *(["--study", study] if study else []), "--data-dir", str(self.data_dir)]
+        args = [
+            "keys",
+            "create",
+            "--role",
+            role,
+            *(["--study", study] if study else []),
+            "--data-dir",
+            str(self.data_dir),
+        ]
         finished = run_cli(args, self.env)
         if finished.returncode != 0:
             raise RuntimeError(f"keys create failed: {finished.stderr[-2000:]}")
@@ -84,7 +99,9 @@ class LiveService:
     @property
     def database_url(self) -> str:
         """The SQLAlchemy URL of the service's database (its SQLite file, or its PostgreSQL database)."""
-        return self.env.get("EPOCH_ASSAY_DATABASE_URL") or f"sqlite:///{(self.data_dir / 'epoch-assay.sqlite3').resolve()}"
+        return (
+            self.env.get("EPOCH_ASSAY_DATABASE_URL") or f"sqlite:///{(self.data_dir / 'epoch-assay.sqlite3').resolve()}"
+        )
 
     def query(self, statement: str, parameters: Mapping[str, Any] | None = None) -> list[Row]:
         """The rows of one SQL statement run on the service's database (for checks of what is stored)."""
@@ -100,8 +117,11 @@ class LiveService:
         return self.data_dir / "processes.log"
 
     def start_api(self) -> None:
-        self.api = _spawn(["api", "--host", "127.0.0.1", "--port", str(self.port), "--data-dir", str(self.data_dir)],
-                          self.env, self.log_path)
+        self.api = _spawn(
+            ["api", "--host", "127.0.0.1", "--port", str(self.port), "--data-dir", str(self.data_dir)],
+            self.env,
+            self.log_path,
+        )
         self._wait_healthy()
 
     def start_worker(self, data_dir: Path | None = None) -> subprocess.Popen:
@@ -138,9 +158,15 @@ class LiveService:
 
 
 # Short waits so retries and redeliveries happen within a test.
-TEST_SETTINGS = {"LOG_LEVEL": "WARNING", "POLL_SECONDS": "0.1", "HEARTBEAT_SECONDS": "0.5",
-                 "RETRY_BACKOFF_SECONDS": "0.1", "WEBHOOK_BACKOFF_SECONDS": "0.2", "WEBHOOK_MAX_ATTEMPTS": "5",
-                 "WEBHOOK_TIMEOUT_SECONDS": "5"}
+TEST_SETTINGS = {
+    "LOG_LEVEL": "WARNING",
+    "POLL_SECONDS": "0.1",
+    "HEARTBEAT_SECONDS": "0.5",
+    "RETRY_BACKOFF_SECONDS": "0.1",
+    "WEBHOOK_BACKOFF_SECONDS": "0.2",
+    "WEBHOOK_MAX_ATTEMPTS": "5",
+    "WEBHOOK_TIMEOUT_SECONDS": "5",
+}
 
 
 def start_service(data_dir: Path, n_workers: int = 1, **settings: str) -> LiveService:

@@ -29,8 +29,9 @@ BIN_GLOB = "/usr/lib/postgresql/*/bin"
 SERVER_USER = "postgres"
 SUPERUSER = "postgres"
 # Durability is pointless for a throw-away server; connections: many live services run at once.
-SERVER_OPTIONS = ("-c fsync=off -c synchronous_commit=off -c full_page_writes=off -c max_connections=300 "
-                  "-c shared_buffers=64MB")
+SERVER_OPTIONS = (
+    "-c fsync=off -c synchronous_commit=off -c full_page_writes=off -c max_connections=300 -c shared_buffers=64MB"
+)
 START_TIMEOUT_S = 60
 
 
@@ -48,8 +49,11 @@ def database_mode() -> str:
 
 def newest_bin_dir() -> Path:
     """The bin folder of the newest PostgreSQL under /usr/lib/postgresql that has initdb, pg_ctl and postgres."""
-    candidates = [Path(folder) for folder in Path("/").glob(BIN_GLOB.lstrip("/"))
-                  if all((Path(folder) / program).is_file() for program in ("initdb", "pg_ctl", "postgres"))]
+    candidates = [
+        Path(folder)
+        for folder in Path("/").glob(BIN_GLOB.lstrip("/"))
+        if all((Path(folder) / program).is_file() for program in ("initdb", "pg_ctl", "postgres"))
+    ]
     if not candidates:
         raise PostgresUnavailable(
             f"{MODE_VARIABLE}=postgresql but no PostgreSQL server programs in {BIN_GLOB}: "
@@ -87,14 +91,21 @@ class PostgresServer:
     def create_database(self, prefix: str = "test") -> str:
         """A new empty database with a name unique in this session; its SQLAlchemy URL."""
         name = f"{prefix}_{os.getpid()}_{next(self._names)}"
-        with psycopg.connect(host="127.0.0.1", port=self.port, user=SUPERUSER, dbname="postgres",
-                             autocommit=True) as connection:
+        with psycopg.connect(
+            host="127.0.0.1", port=self.port, user=SUPERUSER, dbname="postgres", autocommit=True
+        ) as connection:
             connection.execute(sql.SQL("CREATE DATABASE {}").format(sql.Identifier(name)))
         return self.url(name)
 
     def _program(self, name: str, *args: str, timeout_s: float = START_TIMEOUT_S) -> None:
-        finished = subprocess.run([str(self.bin_dir / name), *args], cwd=self.folder, user=self.run_as,
-                                  capture_output=True, text=True, timeout=timeout_s)
+        finished = subprocess.run(
+            [str(self.bin_dir / name), *args],
+            cwd=self.folder,
+            user=self.run_as,
+            capture_output=True,
+            text=True,
+            timeout=timeout_s,
+        )
         if finished.returncode != 0:
             log = self.log_path.read_text()[-2000:] if self.log_path.is_file() else ""
             raise PostgresUnavailable(f"{name} {' '.join(args)} failed:\n{finished.stdout}{finished.stderr}{log}")
@@ -121,11 +132,29 @@ def start_server() -> PostgresServer:
         os.chown(folder, entry.pw_uid, entry.pw_gid)
     server = PostgresServer(folder=folder, port=free_port(), bin_dir=bin_dir, run_as=run_as)
     try:
-        server._program("initdb", "-D", str(server.data_dir), "--auth=trust", f"--username={SUPERUSER}",
-                        "--encoding=UTF8", "--locale=C", "--no-sync")
-        server._program("pg_ctl", "start", "-D", str(server.data_dir), "-l", str(server.log_path), "-w",
-                        "-t", str(START_TIMEOUT_S), "-o",
-                        f"-c listen_addresses=127.0.0.1 -p {server.port} -k {folder} {SERVER_OPTIONS}")
+        server._program(
+            "initdb",
+            "-D",
+            str(server.data_dir),
+            "--auth=trust",
+            f"--username={SUPERUSER}",
+            "--encoding=UTF8",
+            "--locale=C",
+            "--no-sync",
+        )
+        server._program(
+            "pg_ctl",
+            "start",
+            "-D",
+            str(server.data_dir),
+            "-l",
+            str(server.log_path),
+            "-w",
+            "-t",
+            str(START_TIMEOUT_S),
+            "-o",
+            f"-c listen_addresses=127.0.0.1 -p {server.port} -k {folder} {SERVER_OPTIONS}",
+        )
     except BaseException:
         server.stop()
         raise
@@ -155,8 +184,9 @@ def fresh_database_url(prefix: str = "test") -> str | None:
     if database_mode() == "sqlite":
         return None
     if _session_server is None:
-        raise PostgresUnavailable(f"{MODE_VARIABLE}=postgresql but the session's server was not started "
-                                  "(tests/conftest.py starts it)")
+        raise PostgresUnavailable(
+            f"{MODE_VARIABLE}=postgresql but the session's server was not started (tests/conftest.py starts it)"
+        )
     return _session_server.create_database(prefix)
 
 

@@ -22,11 +22,12 @@ class Receiver:
         receiver = self
 
         class Handler(BaseHTTPRequestHandler):
-            def do_POST(self) -> None:  # noqa: N802 - the name http.server calls
+            def do_POST(self) -> None:
                 body = self.rfile.read(int(self.headers.get("Content-Length", 0)))
                 with receiver._lock:
-                    receiver.received.append(Received(headers={k.lower(): v for k, v in self.headers.items()},
-                                                      body=body))
+                    receiver.received.append(
+                        Received(headers={k.lower(): v for k, v in self.headers.items()}, body=body)
+                    )
                     failing = len(receiver.received) <= receiver.fail_first
                 self.send_response(500 if failing else 200)
                 self.send_header("Content-Length", "0")

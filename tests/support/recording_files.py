@@ -12,7 +12,7 @@ import mne
 import numpy as np
 import pyedflib
 
-from worker.engine.epochs import EpochSet
+from epoch_assay.engine.epochs import EpochSet
 
 CHANNELS = ("EEG Fz", "EEG Cz", "EEG Pz", "EOG L")
 PHYSICAL_RANGE_UV = (-500.0, 500.0)
@@ -36,23 +36,25 @@ class KnownRecording:
     values: tuple[str, ...]
 
 
-def known_recording(seconds: float = 20.0, sfreq: float = 100.0, seed: int = 0, n_events: int = 16,
-                    effect_uv: float = 0.0) -> KnownRecording:
+def known_recording(
+    seconds: float = 20.0, sfreq: float = 100.0, seed: int = 0, n_events: int = 16, effect_uv: float = 0.0
+) -> KnownRecording:
     """Noise (10 µV) on four channels and events alternating 'a'/'b', 1 s apart from 2 s on.
 
     With ``effect_uv``, 'a' events are followed 0.3–0.5 s later by that shift on Cz and Pz.
     """
     rng = np.random.default_rng(seed)
-    n_samples = int(round(seconds * sfreq))
+    n_samples = round(seconds * sfreq)
     signal_uv = rng.normal(0.0, 10.0, size=(len(CHANNELS), n_samples))
     onsets = tuple(2.0 + i for i in range(n_events))
     values = tuple("a" if i % 2 == 0 else "b" for i in range(n_events))
-    for onset, value in zip(onsets, values):
+    for onset, value in zip(onsets, values, strict=False):
         if value == "a":
-            start = int(round((onset + 0.3) * sfreq))
-            signal_uv[1:3, start:start + int(round(0.2 * sfreq)) + 1] += effect_uv
-    return KnownRecording(signal_v=np.clip(signal_uv, *PHYSICAL_RANGE_UV) * 1e-6, sfreq=sfreq, onset_s=onsets,
-                          values=values)
+            start = round((onset + 0.3) * sfreq)
+            signal_uv[1:3, start : start + round(0.2 * sfreq) + 1] += effect_uv
+    return KnownRecording(
+        signal_v=np.clip(signal_uv, *PHYSICAL_RANGE_UV) * 1e-6, sfreq=sfreq, onset_s=onsets, values=values
+    )
 
 
 def recording_bytes(known: KnownRecording, kind: str, annotate: bool = True) -> bytes:
@@ -61,21 +63,32 @@ def recording_bytes(known: KnownRecording, kind: str, annotate: bool = True) -> 
     with tempfile.TemporaryDirectory() as folder:
         path = Path(folder) / f"recording.{kind}"
         writer = pyedflib.EdfWriter(str(path), len(CHANNELS), file_type=FILE_TYPES[kind])
-        writer.setSignalHeaders([
-            {"label": name, "dimension": "uV", "sample_frequency": known.sfreq, "physical_min": PHYSICAL_RANGE_UV[0],
-             "physical_max": PHYSICAL_RANGE_UV[1], "digital_min": low, "digital_max": high}
-            for name in CHANNELS
-        ])
+        writer.setSignalHeaders(
+            [
+                {
+                    "label": name,
+                    "dimension": "uV",
+                    "sample_frequency": known.sfreq,
+                    "physical_min": PHYSICAL_RANGE_UV[0],
+                    "physical_max": PHYSICAL_RANGE_UV[1],
+                    "digital_min": low,
+                    "digital_max": high,
+                }
+                for name in CHANNELS
+            ]
+        )
         writer.writeSamples(list(known.signal_v * 1e6))
         if annotate:
-            for onset, value in zip(known.onset_s, known.values):
+            for onset, value in zip(known.onset_s, known.values, strict=False):
                 writer.writeAnnotation(onset, -1, value)
         writer.close()
         return path.read_bytes()
 
 
 def events_tsv(onset_s: tuple[float, ...], values: tuple[str, ...]) -> bytes:
-    lines = ["onset\tduration\ttrial_type"] + [f"{onset}\t0\t{value}" for onset, value in zip(onset_s, values)]
+    lines = ["onset\tduration\ttrial_type"] + [
+        f"{onset}\t0\t{value}" for onset, value in zip(onset_s, values, strict=False)
+    ]
     return ("\n".join(lines) + "\n").encode()
 
 
@@ -86,6 +99,12 @@ def mne_epochs_bytes(epochs: EpochSet, folder: Path) -> bytes:
     events = np.column_stack([np.arange(epochs.n_trials) * 200, np.zeros(epochs.n_trials, int), codes])
     info = mne.create_info(list(epochs.ch_names), epochs.sfreq, list(epochs.ch_types))
     path = folder / "epochs-epo.fif"
-    mne.EpochsArray(epochs.data, info, events=events, event_id={name: i + 1 for i, name in enumerate(names)},
-                    tmin=epochs.tmin, verbose="error").save(path, overwrite=True, verbose="error")
+    mne.EpochsArray(
+        epochs.data,
+        info,
+        events=events,
+        event_id={name: i + 1 for i, name in enumerate(names)},
+        tmin=epochs.tmin,
+        verbose="error",
+    ).save(path, overwrite=True, verbose="error")
     return path.read_bytes()

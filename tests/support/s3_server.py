@@ -29,13 +29,20 @@ class S3Server:
     @property
     def env(self) -> dict[str, str]:
         """The variables that point an S3 client at this server (keys are moto's test keys)."""
-        return {"AWS_ENDPOINT_URL": self.endpoint_url, "AWS_ACCESS_KEY_ID": "testing",
-                "AWS_SECRET_ACCESS_KEY": "testing", "AWS_DEFAULT_REGION": "us-east-1"}
+        return {
+            "AWS_ENDPOINT_URL": self.endpoint_url,
+            "AWS_ACCESS_KEY_ID": "testing",
+            "AWS_SECRET_ACCESS_KEY": "testing",
+            "AWS_DEFAULT_REGION": "us-east-1",
+        }
 
     def start(self, timeout_s: float = 60.0) -> None:
         with open(self.log_path, "ab") as log:
-            self.process = subprocess.Popen([sys.executable, "-m", "moto.server", "-H", "127.0.0.1", "-p",
-                                             str(self.port)], stdout=log, stderr=subprocess.STDOUT)
+            self.process = subprocess.Popen(
+                [sys.executable, "-m", "moto.server", "-H", "127.0.0.1", "-p", str(self.port)],
+                stdout=log,
+                stderr=subprocess.STDOUT,
+            )
         deadline = time.monotonic() + timeout_s
         while time.monotonic() < deadline:
             if self.process.poll() is not None:
@@ -53,8 +60,13 @@ class S3Server:
 
     def client(self):  # type: ignore[no-untyped-def]
         """A boto3 S3 client of this server."""
-        return boto3.client("s3", endpoint_url=self.endpoint_url, aws_access_key_id="testing",
-                            aws_secret_access_key="testing", region_name="us-east-1")
+        return boto3.client(
+            "s3",
+            endpoint_url=self.endpoint_url,
+            aws_access_key_id="testing",
+            aws_secret_access_key="testing",
+            region_name="us-east-1",
+        )
 
     def stop(self) -> None:
         if self.process is not None:

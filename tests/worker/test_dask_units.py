@@ -18,30 +18,41 @@ import numpy as np
 import pytest
 from distributed import Client, LocalCluster
 
+from epoch_assay.engine.epochs import EpochSet
+from epoch_assay.engine.tree import build_tree
 from tests.api.helpers import without_timing
 from tests.support.dask_tasks import state_counts
 from tests.support.live import free_port
 from tests.worker.test_multiverse import GRID, PIPELINES
-from worker.dask_units import DaskSchedulerUnavailable, run_units_on_dask
-from worker.engine.epochs import EpochSet
-from worker.engine.tree import build_tree
-from worker.multiverse import ExecutionSettings
-from worker.parallel import Progress, SharedInputUnit
+from worker.execution.dask_units import DaskSchedulerUnavailable, run_units_on_dask
+from worker.execution.multiverse import ExecutionSettings
+from worker.execution.parallel import Progress, SharedInputUnit
 from worker.run_job import EpochSetRef, execute_run
 
 REFS = [EpochSetRef(id=f"es_{i}", subject=f"sub-{i}", session=None, sha256=f"{i:064x}") for i in range(4)]
 UNITS = len(REFS) * len(build_tree(PIPELINES).branches())
 # Label permutations make each unit take a few tenths of a second, so a worker can be killed while it holds one.
-SLOW_SCORING = {"conditions": ["a", "b"], "window_s": [0.2, 0.5], "test": "permutation", "n_permutations": 20000,
-                "time_course": None}
+SLOW_SCORING = {
+    "conditions": ["a", "b"],
+    "window_s": [0.2, 0.5],
+    "test": "permutation",
+    "n_permutations": 20000,
+    "time_course": None,
+}
 RUN_TIMEOUT_S = 180.0
 
 
 def load(ref: EpochSetRef) -> EpochSet:
     """Gaussian noise, 100 trials × 16 channels × 100 samples at 100 Hz from -0.1 s, in V; labels a, b alternating."""
     data = 1e-5 * np.random.default_rng(REFS.index(ref)).standard_normal((100, 16, 100))
-    return EpochSet(data=data, sfreq=100.0, tmin=-0.1, ch_names=tuple(f"E{i}" for i in range(16)),
-                    ch_types=("eeg",) * 16, labels=np.array(["a", "b"] * 50))
+    return EpochSet(
+        data=data,
+        sfreq=100.0,
+        tmin=-0.1,
+        ch_names=tuple(f"E{i}" for i in range(16)),
+        ch_types=("eeg",) * 16,
+        labels=np.array(["a", "b"] * 50),
+    )
 
 
 def run(execution: ExecutionSettings, on_detail=None) -> dict:
@@ -49,8 +60,9 @@ def run(execution: ExecutionSettings, on_detail=None) -> dict:
     spec = {"grid": GRID.model_dump(mode="json"), "scoring": SLOW_SCORING}
     pool = ThreadPoolExecutor(max_workers=1)
     try:
-        return pool.submit(execute_run, "run_dask", "DASK", spec, REFS, load, lambda _: None, execution=execution,
-                           on_detail=on_detail).result(timeout=RUN_TIMEOUT_S)
+        return pool.submit(
+            execute_run, "run_dask", "DASK", spec, REFS, load, lambda _: None, execution=execution, on_detail=on_detail
+        ).result(timeout=RUN_TIMEOUT_S)
     finally:
         pool.shutdown(wait=False, cancel_futures=True)
 
@@ -63,8 +75,9 @@ def canonical(document: dict, leave_out: tuple[str, ...] = ()) -> str:
 
 @pytest.fixture(scope="module")
 def cluster():
-    with LocalCluster(n_workers=3, processes=True, threads_per_worker=1, host="127.0.0.1",
-                      dashboard_address="127.0.0.1:0") as local_cluster:
+    with LocalCluster(
+        n_workers=3, processes=True, threads_per_worker=1, host="127.0.0.1", dashboard_address="127.0.0.1:0"
+    ) as local_cluster:
         yield local_cluster
 
 

@@ -2,21 +2,24 @@
 
 import functools
 
-import numpy as np
 import pytest
 
+from epoch_assay.engine.grid import GridSpec, expand_grid
+from epoch_assay.engine.pipeline import PipelineSpec, apply_pipeline
+from epoch_assay.engine.tree import LeafOutput, build_tree
 from tests.engine.conftest import random_epoch_set
-from worker.engine.grid import GridSpec, expand_grid
-from worker.engine.pipeline import PipelineSpec, apply_pipeline
-from worker.engine.tree import LeafOutput, build_tree
-from worker.multiverse import ExecutionSettings, SourceHandlers, execute_multiverse
+from worker.execution.multiverse import ExecutionSettings, SourceHandlers, execute_multiverse
 
-GRID = GridSpec(factors={
-    "highpass": {"none": [], "2": [{"step": "highpass", "cutoff_hz": 2.0}]},
-    "reference": {"average": [{"step": "reference", "kind": "average"}],
-                  "E0": [{"step": "reference", "kind": "channels", "channels": ["E0"]}]},
-    "baseline": {"none": [], "pre": [{"step": "baseline", "window_s": [-0.1, 0.0]}]},
-})
+GRID = GridSpec(
+    factors={
+        "highpass": {"none": [], "2": [{"step": "highpass", "cutoff_hz": 2.0}]},
+        "reference": {
+            "average": [{"step": "reference", "kind": "average"}],
+            "E0": [{"step": "reference", "kind": "channels", "channels": ["E0"]}],
+        },
+        "baseline": {"none": [], "pre": [{"step": "baseline", "window_s": [-0.1, 0.0]}]},
+    }
+)
 PIPELINES = [point.pipeline for point in expand_grid(GRID)]
 SOURCES = ["s0", "s1", "s2"]
 
@@ -35,15 +38,19 @@ def alone_entry(pipeline: PipelineSpec, loaded, source: str) -> dict:
 
 def handlers(window: int = 10) -> SourceHandlers:
     return SourceHandlers(
-        load=load, source_sha256=lambda source: source.encode().hex().ljust(64, "0"),
+        load=load,
+        source_sha256=lambda source: source.encode().hex().ljust(64, "0"),
         score_leaf=lambda source: functools.partial(leaf_entry, source=source, window=window),
         score_alone=lambda source: functools.partial(alone_entry, source=source),
     )
 
 
 def expected(window: int = 10) -> list[dict]:
-    return [{"pipeline": p.name, "subject": s, "value": float(apply_pipeline(p, load(s))[0].data[:, :, window].sum())}
-            for s in SOURCES for p in PIPELINES]
+    return [
+        {"pipeline": p.name, "subject": s, "value": float(apply_pipeline(p, load(s))[0].data[:, :, window].sum())}
+        for s in SOURCES
+        for p in PIPELINES
+    ]
 
 
 @pytest.mark.parametrize("workers", [1, 2])
@@ -69,8 +76,12 @@ def test_second_run_with_another_scoring_recomputes_no_step(tmp_path):
 
 
 def test_inputs_that_are_not_epoch_sets_are_scored_pipeline_by_pipeline():
-    other = SourceHandlers(load=lambda source: {"recording": source}, source_sha256=handlers().source_sha256,
-                           score_leaf=handlers().score_leaf, score_alone=handlers().score_alone)
+    other = SourceHandlers(
+        load=lambda source: {"recording": source},
+        source_sha256=handlers().source_sha256,
+        score_leaf=handlers().score_leaf,
+        score_alone=handlers().score_alone,
+    )
     outcome = execute_multiverse(PIPELINES, SOURCES, other, ExecutionSettings(workers=1), lambda _: None)
     assert [(e["pipeline"], e["subject"]) for e in outcome.results] == [(p.name, s) for s in SOURCES for p in PIPELINES]
     assert all(e["alone"] for e in outcome.results)

@@ -5,7 +5,7 @@ import operator
 
 import pytest
 
-from worker.parallel import Progress, run_units
+from worker.execution.parallel import Progress, run_units
 
 
 def squares(n: int) -> list:

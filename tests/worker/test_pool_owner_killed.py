@@ -13,7 +13,7 @@ from tests.support.live import REPO_ROOT
 PARENT = textwrap.dedent("""
     import functools, sys
     from tests.support.pool_units import report_pid_then_sleep
-    from worker.parallel import run_units
+    from worker.execution.parallel import run_units
 
     if __name__ == "__main__":
         units = [functools.partial(report_pid_then_sleep, sys.argv[1], index, 120.0) for index in range(2)]

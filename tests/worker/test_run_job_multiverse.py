@@ -1,15 +1,17 @@
 """execute_run with a grid: same entries as the listed pipelines, plus cache, ranking, factor effects, selection."""
 
+from epoch_assay.engine.grid import GridSpec, expand_grid
+from epoch_assay.engine.tree import build_tree
 from tests.engine.conftest import random_epoch_set
-from worker.engine.grid import GridSpec, expand_grid
-from worker.engine.tree import build_tree
-from worker.multiverse import ExecutionSettings
+from worker.execution.multiverse import ExecutionSettings
 from worker.run_job import EpochSetRef, execute_run
 
-GRID = {"factors": {
-    "highpass": {"none": [], "2": [{"step": "highpass", "cutoff_hz": 2.0}]},
-    "baseline": {"none": [], "pre": [{"step": "baseline", "window_s": [-0.1, 0.0]}]},
-}}
+GRID = {
+    "factors": {
+        "highpass": {"none": [], "2": [{"step": "highpass", "cutoff_hz": 2.0}]},
+        "baseline": {"none": [], "pre": [{"step": "baseline", "window_s": [-0.1, 0.0]}]},
+    }
+}
 SCORING = {"conditions": ["a", "b"], "window_s": [0.1, 0.3], "correction": "none"}
 PIPELINES = [point.pipeline for point in expand_grid(GridSpec.model_validate(GRID))]
 STEPS = build_tree(PIPELINES).count_steps() * 4  # 3 steps per epoch set: highpass, baseline after it, baseline alone
@@ -66,12 +68,21 @@ def test_selection_with_tuning_subjects_is_reported():
     selection = {"rule": "tuning_holdout", "tuning_subjects": ["sub-0", "sub-1"], "metric": "significant_fraction"}
     document = grid_run(selection=selection)["selection"]
     assert document["holdout_subjects"] == ["sub-2", "sub-3"] and document["winner"] in {
-        p["pipeline"] for p in grid_run()["group"]}
+        p["pipeline"] for p in grid_run()["group"]
+    }
 
 
 def test_progress_detail_counts_units_and_gives_an_eta():
     details = []
-    execute_run("run_x", "S", {"grid": GRID, "scoring": SCORING}, REFS, load, lambda _: None,
-                execution=ExecutionSettings(workers=1), on_detail=details.append)
+    execute_run(
+        "run_x",
+        "S",
+        {"grid": GRID, "scoring": SCORING},
+        REFS,
+        load,
+        lambda _: None,
+        execution=ExecutionSettings(workers=1),
+        on_detail=details.append,
+    )
     assert [d.done for d in details] == list(range(1, UNITS + 1))
     assert details[-1].total == UNITS and details[-1].eta_s == 0.0

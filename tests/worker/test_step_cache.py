@@ -5,10 +5,10 @@ import os
 import numpy as np
 import pytest
 
+from epoch_assay.engine.provenance import ComponentRemoved, StepRecord
+from epoch_assay.engine.tree import StepOutput
 from tests.engine.conftest import random_epoch_set
-from worker.engine.provenance import ComponentRemoved, StepRecord
-from worker.engine.tree import StepOutput
-from worker.step_cache import DiskStepCache
+from worker.execution.step_cache import DiskStepCache
 
 
 def output(seed: int, **record_fields) -> StepOutput:
@@ -38,7 +38,10 @@ def test_entry_round_trips_arrays_metadata_and_record(tmp_path):
     np.testing.assert_array_equal(loaded.epochs.positions, stored.epochs.positions)
     assert loaded.epochs.labels.tolist() == stored.epochs.labels.tolist()
     assert (loaded.epochs.ch_names, loaded.epochs.ch_types, loaded.epochs.bads) == (
-        stored.epochs.ch_names, stored.epochs.ch_types, stored.epochs.bads)
+        stored.epochs.ch_names,
+        stored.epochs.ch_types,
+        stored.epochs.bads,
+    )
     assert (loaded.epochs.sfreq, loaded.epochs.tmin) == (stored.epochs.sfreq, stored.epochs.tmin)
     assert loaded.record == stored.record
 

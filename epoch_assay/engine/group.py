@@ -1,0 +1,277 @@
+"""Group level across the subjects of a run: per-subject summaries, paired comparisons, group ERP test.
+
+Pure functions on the per-subject arrays and on the entries of a result document's
+``results`` (as ``epoch_assay.engine.scoring.PipelineScore.to_json`` writes them). Two epoch
+sets of one subject are averaged per subject before anything is compared, so that every
+subject weighs the same.
+"""
+
+import math
+from collections.abc import Iterable
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from scipy import stats
+
+from epoch_assay.engine.scoring_spec import ScoringSpec
+from epoch_assay.engine.stats import adjust_pvalues, one_sample_t, sign_flip_test
+from epoch_assay.engine.units import uv_to_v, v_to_uv
+
+CI_LEVEL = 0.95
+
+
+def _json_float(value: float) -> float | None:
+    value = float(value)
+    return value if math.isfinite(value) else None
+
+
+@dataclass(frozen=True)
+class Spread:
+    """Mean, median and standard error of the mean (SD with ddof 1 over √n; NaN for n < 2)."""
+
+    mean: float
+    median: float
+    se: float
+
+    @classmethod
+    def of(cls, values: np.ndarray) -> "Spread":
+        """values : array, shape (n_subjects,)"""
+        se = float(values.std(ddof=1) / np.sqrt(values.size)) if values.size >= 2 else float("nan")
+        return cls(mean=float(values.mean()), median=float(np.median(values)), se=se)
+
+
+@dataclass(frozen=True)
+class PairedComparison:
+    """A pipeline's per-subject values against the reference pipeline's, paired by subject.
+
+    mean_difference and its 95 % t interval are of pipeline minus reference; wilcoxon_p is
+    the two-sided Wilcoxon signed-rank p (NaN when every difference is zero), paired_t_p
+    the two-sided paired t-test p (NaN when the differences have no variance).
+    """
+
+    n_subjects: int
+    mean_difference: float
+    ci_low: float
+    ci_high: float
+    wilcoxon_p: float
+    paired_t_p: float
+
+    def to_json(self, reference: str) -> dict[str, Any]:
+        return {
+            "reference_pipeline": reference,
+            "n_subjects": self.n_subjects,
+            "mean_difference": _json_float(self.mean_difference),
+            "mean_difference_ci": [_json_float(self.ci_low), _json_float(self.ci_high)],
+            "wilcoxon_p": _json_float(self.wilcoxon_p),
+            "paired_t_p": _json_float(self.paired_t_p),
+        }
+
+
+def paired_comparison(values: np.ndarray, reference: np.ndarray) -> PairedComparison:
+    """Compare two arrays of shape (n_subjects,), paired by position; at least 2 subjects."""
+    differences = values - reference
+    n = differences.size
+    if n < 2:
+        raise ValueError(f"a paired comparison needs at least 2 subjects, got {n}")
+    mean = float(differences.mean())
+    half_width = stats.t.ppf(0.5 * (1 + CI_LEVEL), n - 1) * differences.std(ddof=1) / np.sqrt(n)
+    # Reference implementations: scipy.stats.wilcoxon and scipy.stats.ttest_rel (Virtanen et al., 2020).
+    wilcoxon_p = float(stats.wilcoxon(differences).pvalue) if np.any(differences != 0) else float("nan")
+    with np.errstate(divide="ignore", invalid="ignore"):
+        paired_t_p = float(stats.ttest_rel(values, reference).pvalue)
+    return PairedComparison(
+        n_subjects=n,
+        mean_difference=mean,
+        ci_low=mean - half_width,
+        ci_high=mean + half_width,
+        wilcoxon_p=wilcoxon_p,
+        paired_t_p=paired_t_p,
+    )
+
+
+@dataclass(frozen=True)
+class GroupTest:
+    """One-sample test across subjects of the per-subject condition difference, per channel.
+
+    names : the channels, in order of first appearance
+    mean_diff : array, shape (n_channels,), mean over subjects of the difference, in V
+    n_subjects : array of int, shape (n_channels,), subjects with a value for the channel
+    t, p, p_adjusted : arrays, shape (n_channels,); NaN where undefined
+    significant : array of bool, shape (n_channels,)
+    """
+
+    names: tuple[str, ...]
+    mean_diff: np.ndarray
+    n_subjects: np.ndarray
+    t: np.ndarray
+    p: np.ndarray
+    p_adjusted: np.ndarray
+    significant: np.ndarray
+
+    @property
+    def significant_fraction(self) -> float:
+        return float(self.significant.mean()) if self.significant.size else float("nan")
+
+    def to_json(self) -> dict[str, Any]:
+        return {
+            "channels": [
+                {
+                    "name": name,
+                    "t": _json_float(self.t[i]),
+                    "p": _json_float(self.p[i]),
+                    "p_adjusted": _json_float(self.p_adjusted[i]),
+                    "significant": bool(self.significant[i]),
+                    "mean_diff_uv": _json_float(v_to_uv(self.mean_diff[i])),
+                    "n_subjects": int(self.n_subjects[i]),
+                }
+                for i, name in enumerate(self.names)
+            ],
+            "significant_fraction": _json_float(self.significant_fraction),
+        }
+
+
+def group_channel_test(names: tuple[str, ...], differences: np.ndarray, spec: ScoringSpec) -> GroupTest:
+    """Test the per-subject condition differences against zero on every channel.
+
+    differences : array, shape (n_subjects, n_channels), in V; NaN where a subject has no
+        value for a channel (a channel its pipeline dropped or flagged)
+
+    With ``max_stat`` the p-values come from sign flips of whole subjects and the
+    family-wise p from the largest |t| across channels; otherwise from Student's t
+    distribution, adjusted across channels with the run's correction.
+    """
+    if spec.correction == "max_stat":
+        result = sign_flip_test(differences, n_permutations=spec.n_permutations, seed=spec.seed)
+        t, p, p_adjusted = result.statistic, result.pvalue, result.pvalue_max
+    else:
+        test = one_sample_t(differences)
+        t, p, p_adjusted = test.statistic, test.pvalue, adjust_pvalues(test.pvalue, spec.correction)
+    return GroupTest(
+        names=names,
+        mean_diff=_mean_of_present(differences),
+        n_subjects=(~np.isnan(differences)).sum(axis=0),
+        t=t,
+        p=p,
+        p_adjusted=p_adjusted,
+        significant=p_adjusted < spec.alpha,
+    )
+
+
+@dataclass(frozen=True)
+class SubjectScores:
+    """One pipeline's scores averaged per subject.
+
+    subjects : subject ids, in order of first appearance
+    significant_fraction : array, shape (n_subjects,)
+    median_sme_uv : per condition label, array, shape (n_subjects,), in µV
+    channel_names : union of the scored channels, in order of first appearance
+    mean_diff : array, shape (n_subjects, n_channels), condition difference in V, NaN where missing
+    """
+
+    subjects: tuple[str, ...]
+    significant_fraction: np.ndarray
+    median_sme_uv: dict[str, np.ndarray]
+    channel_names: tuple[str, ...]
+    mean_diff: np.ndarray
+
+
+def subject_scores(entries: Iterable[dict[str, Any]], conditions: tuple[str, str]) -> SubjectScores:
+    """Average the scored entries (no ``error``) of one pipeline per subject."""
+    by_subject: dict[str, list[dict[str, Any]]] = {}
+    for entry in entries:
+        by_subject.setdefault(entry["subject"], []).append(entry)
+    names = tuple(dict.fromkeys(ch["name"] for group in by_subject.values() for e in group for ch in e["channels"]))
+    column = {name: i for i, name in enumerate(names)}
+    fractions, smes, differences = [], {label: [] for label in conditions}, []
+    for group in by_subject.values():
+        fractions.append(np.mean([_number(e["significant_fraction"]) for e in group]))
+        for label in conditions:
+            smes[label].append(np.mean([_number(e["median_sme_uv"][label]) for e in group]))
+        per_set = np.full((len(group), len(names)), np.nan)
+        for row, e in enumerate(group):
+            for channel in e["channels"]:
+                per_set[row, column[channel["name"]]] = _number(channel["mean_diff_uv"])
+        # A channel one epoch set of the subject lacks is averaged over the others.
+        differences.append(_mean_of_present(per_set))
+    return SubjectScores(
+        subjects=tuple(by_subject),
+        significant_fraction=np.array(fractions),
+        median_sme_uv={label: np.array(values) for label, values in smes.items()},
+        channel_names=names,
+        mean_diff=uv_to_v(np.array(differences).reshape(len(by_subject), len(names))),
+    )
+
+
+def _mean_of_present(values: np.ndarray) -> np.ndarray:
+    """Mean over axis 0 of the values that are not NaN; NaN for a column with none."""
+    present = ~np.isnan(values)
+    count = present.sum(axis=0)
+    total = np.where(present, values, 0.0).sum(axis=0)
+    return np.where(count > 0, total / np.maximum(count, 1), np.nan)
+
+
+def _number(value: float | None) -> float:
+    return float("nan") if value is None else float(value)
+
+
+def group_summary(entries: list[dict[str, Any]], pipelines: list[str], spec: ScoringSpec) -> list[dict[str, Any]]:
+    """The result document's ``group``: one entry per pipeline, in run order.
+
+    entries : the result's ``results``; entries with an ``error`` are left out and counted
+    pipelines : the run's pipeline names; the reference is ``spec.reference_pipeline`` or
+        the first of them
+    """
+    reference = spec.reference_pipeline or pipelines[0]
+    scores = {}
+    errors = {}
+    for name in pipelines:
+        own = [entry for entry in entries if entry["pipeline"] == name]
+        errors[name] = sum("error" in entry for entry in own)
+        scores[name] = subject_scores([entry for entry in own if "error" not in entry], spec.conditions)
+    return [_pipeline_group(name, scores[name], errors[name], scores[reference], reference, spec) for name in pipelines]
+
+
+def _pipeline_group(
+    name: str, scores: SubjectScores, n_errors: int, reference: SubjectScores, reference_name: str, spec: ScoringSpec
+) -> dict[str, Any]:
+    n = len(scores.subjects)
+    document: dict[str, Any] = {
+        "pipeline": name,
+        "n_subjects": n,
+        "n_entries_with_error": n_errors,
+        "significant_fraction": None,
+        "median_sme_uv": None,
+        "vs_reference": None,
+        "group_test": None,
+    }
+    if n == 0:
+        return document
+    spread = Spread.of(scores.significant_fraction)
+    document["significant_fraction"] = {
+        "mean": _json_float(spread.mean),
+        "median": _json_float(spread.median),
+        "se": _json_float(spread.se),
+    }
+    document["median_sme_uv"] = {}
+    for label, values in scores.median_sme_uv.items():
+        sme = Spread.of(values)
+        document["median_sme_uv"][label] = {"mean": _json_float(sme.mean), "se": _json_float(sme.se)}
+    document["vs_reference"] = _versus_reference(name, scores, reference, reference_name)
+    if n >= 2:
+        document["group_test"] = group_channel_test(scores.channel_names, scores.mean_diff, spec).to_json()
+    return document
+
+
+def _versus_reference(
+    name: str, scores: SubjectScores, reference: SubjectScores, reference_name: str
+) -> dict[str, Any] | None:
+    if name == reference_name:
+        return None
+    position = {subject: i for i, subject in enumerate(reference.subjects)}
+    shared = [i for i, subject in enumerate(scores.subjects) if subject in position]
+    if len(shared) < 2:
+        return None
+    values = scores.significant_fraction[shared]
+    paired = reference.significant_fraction[[position[scores.subjects[i]] for i in shared]]
+    return paired_comparison(values, paired).to_json(reference_name)

@@ -1,0 +1,300 @@
+"""Zero-phase high-pass and low-pass filters: windowed-sinc FIR or Butterworth IIR.
+
+Filters act on the channels of type eeg and eog, bad ones included (a bad channel may be
+interpolated or restored later and must then have been filtered like its neighbours);
+stim and misc channels pass through unchanged. Filtering belongs on the continuous
+recording (``stage = "continuous"``); on epochs it works, with each epoch padded by
+reflection so that its edges are not filtered against zeros.
+
+FIR design
+    A windowed sinc (``scipy.signal.firwin``, Hamming window) whose half-amplitude
+    (-6 dB) point is the cutoff; the transition band is centred on the cutoff.
+
+    * Transition bandwidth ``min(max(0.25 * cutoff, 2 Hz), cutoff)``: a quarter of the
+      cutoff but at least 2 Hz (common practice), capped at the cutoff so that the
+      band, centred on the cutoff, stays above 0 Hz. The band must also end below the
+      Nyquist frequency; ``check`` refuses cutoffs for which it would not.
+    * Length ``3.3 / transition_bandwidth`` seconds, rounded up to an odd number of taps:
+      the transition width of a Hamming-windowed sinc is about 3.3 / N of the sampling
+      rate (Harris, 1978; Oppenheim & Schafer, Discrete-Time Signal Processing, Table 7.2).
+      The passband ripple is then about 0.02 dB and the stopband about -53 dB.
+
+    The symmetric odd-length kernel is applied once, by overlap-add convolution
+    (``scipy.signal.oaconvolve``) in "same" mode, which removes its (N - 1) / 2 sample
+    delay exactly: the result has zero phase and the designed magnitude response. A
+    forward-backward pass (``filtfilt``) is not used because it squares the magnitude,
+    doubling the attenuation and moving the -6 dB point away from the cutoff.
+
+IIR design
+    A Butterworth filter of ``order`` as second-order sections, run forward and backward
+    (``scipy.signal.sosfiltfilt``): zero phase, -3 dB at the cutoff per pass and so
+    -6 dB overall, with twice the roll-off of one pass.
+
+Band-pass
+    FIR: one windowed sinc with both cutoffs (``firwin`` with ``pass_zero="bandpass"``),
+    whose length follows the rule above for the narrower of the two transition bands,
+    so both edges get that width. IIR: a Butterworth band-pass of ``order`` (``order``
+    poles per edge), forward and backward.
+
+Padding
+    Each epoch is extended at both ends by even reflection (``numpy.pad`` mode
+    "reflect") and the padding is cut off after filtering. FIR: by the kernel length.
+    IIR: by the number of samples over which the impulse response of the slowest pole
+    decays to 1e-4 of its start, ``ceil(ln(1e4) / -ln|p|)`` for the pole ``p`` of
+    largest modulus; that leaves the whole impulse response below about 1e-3 of its peak.
+
+Memory
+    Rows (one channel of one trial) are filtered in blocks whose padded copy stays under
+    ``FILTER_BLOCK_BYTES``: many short epochs each padded by a long kernel (a 0.1 Hz
+    high-pass at 500 Hz has 16 501 taps) would otherwise need many times the data's size.
+"""
+
+import math
+from collections.abc import Callable
+from typing import ClassVar, Literal
+
+import numpy as np
+from pydantic import Field, model_validator
+from scipy import signal
+from scipy.optimize import brentq
+
+from epoch_assay.engine.epochs import EpochSet, EpochSetMeta
+from epoch_assay.engine.errors import SpecError
+from epoch_assay.engine.provenance import StepRecord
+from epoch_assay.engine.steps.base import Step
+
+FILTERED_CHANNEL_TYPES = ("eeg", "eog")
+
+# common practice: a quarter of the cutoff, but at least 2 Hz
+_TRANSITION_FRACTION = 0.25
+_MIN_TRANSITION_HZ = 2.0
+# Hamming window: transition width ~ 3.3 * sfreq / n_taps (Harris, 1978; Oppenheim & Schafer, Table 7.2)
+_HAMMING_TRANSITION_WIDTH = 3.3
+# The IIR padding outlasts the slowest pole's decay to this fraction of its start.
+_IIR_PADDING_DECAY = 1e-4
+# common practice: an epoch should hold about three periods of a high-pass cutoff
+_HIGHPASS_PERIODS_PER_EPOCH = 3.0
+
+# Padded rows filtered at once stay below this size (float64); see "Memory" above.
+FILTER_BLOCK_BYTES = 64 * 2**20
+
+FilterBand = Literal["highpass", "lowpass", "bandpass"]
+
+
+def fir_transition_hz(cutoff_hz: float) -> float:
+    """Width of the FIR transition band, in Hz, centred on ``cutoff_hz``."""
+    return min(max(_TRANSITION_FRACTION * cutoff_hz, _MIN_TRANSITION_HZ), cutoff_hz)
+
+
+def fir_max_cutoff_hz(nyquist_hz: float) -> float:
+    """Highest cutoff, in Hz, whose FIR transition band still ends at or below ``nyquist_hz``."""
+    return float(brentq(lambda cutoff: cutoff + fir_transition_hz(cutoff) / 2 - nyquist_hz, 0.0, nyquist_hz))
+
+
+def fir_n_taps(transition_hz: float, sfreq: float) -> int:
+    """Odd number of taps of a Hamming-windowed sinc with this transition width (in Hz)."""
+    n_taps = math.ceil(_HAMMING_TRANSITION_WIDTH * sfreq / transition_hz)
+    return n_taps + 1 - n_taps % 2
+
+
+def design_fir(band: FilterBand, cutoff_hz: float | tuple[float, float], sfreq: float) -> np.ndarray:
+    """Symmetric windowed-sinc kernel, shape (n_taps,), n_taps odd, -6 dB at each cutoff (in Hz).
+
+    ``cutoff_hz`` is one frequency, or (low, high) for ``band="bandpass"``.
+    """
+    n_taps = fir_n_taps(fir_transition_hz(float(np.min(cutoff_hz))), sfreq)
+    return signal.firwin(n_taps, cutoff_hz, window="hamming", pass_zero=band, fs=sfreq)
+
+
+def design_iir(band: FilterBand, cutoff_hz: float | tuple[float, float], order: int, sfreq: float) -> np.ndarray:
+    """Butterworth second-order sections, shape (n_sections, 6), -3 dB at each cutoff (in Hz) per pass."""
+    return signal.butter(order, cutoff_hz, btype=band, output="sos", fs=sfreq)
+
+
+def iir_padding_samples(sos: np.ndarray) -> int:
+    """Samples over which the envelope of the slowest pole of ``sos`` decays to 1e-4 of its start."""
+    # Poles straight from each section's denominator: sos2zpk would also factor the
+    # numerators, which are badly conditioned for low cutoffs.
+    poles = np.concatenate([np.roots(section[3:]) for section in sos])
+    slowest = float(np.max(np.abs(poles)))
+    return max(1, math.ceil(math.log(_IIR_PADDING_DECAY) / math.log(slowest)))
+
+
+def _reflect_pad(data: np.ndarray, n_pad: int) -> np.ndarray:
+    return np.pad(data, [(0, 0)] * (data.ndim - 1) + [(n_pad, n_pad)], mode="reflect")
+
+
+def filter_rows_in_blocks(
+    data: np.ndarray, n_pad: int, filter_padded: Callable[[np.ndarray], np.ndarray]
+) -> np.ndarray:
+    """Apply ``filter_padded`` to reflection-padded blocks of rows and cut the padding off.
+
+    data : array, shape (..., n_times); returned with the same shape, as float64.
+    filter_padded : filters an array of shape (n_rows, n_times + 2 * n_pad) along its last axis.
+    """
+    n_times = data.shape[-1]
+    rows = data.reshape(-1, n_times)
+    filtered = np.empty(rows.shape, dtype=np.float64)
+    rows_per_block = max(1, FILTER_BLOCK_BYTES // ((n_times + 2 * n_pad) * 8))
+    for start in range(0, rows.shape[0], rows_per_block):
+        block = _reflect_pad(np.asarray(rows[start : start + rows_per_block], dtype=np.float64), n_pad)
+        filtered[start : start + rows_per_block] = filter_padded(block)[:, n_pad : n_pad + n_times]
+    return filtered.reshape(data.shape)
+
+
+def fir_zero_phase(data: np.ndarray, kernel: np.ndarray) -> np.ndarray:
+    """Filter along the last axis with a symmetric odd-length kernel, delay removed.
+
+    data : array, shape (..., n_times); returned with the same shape, as float64.
+    """
+    kernel_2d = kernel.reshape(1, -1)
+    return filter_rows_in_blocks(
+        data, kernel.size, lambda padded: signal.oaconvolve(padded, kernel_2d, mode="same", axes=-1)
+    )
+
+
+def iir_zero_phase(data: np.ndarray, sos: np.ndarray) -> np.ndarray:
+    """Filter along the last axis forward and backward with ``sos``.
+
+    data : array, shape (..., n_times); returned with the same shape, as float64.
+    """
+    return filter_rows_in_blocks(
+        data, iir_padding_samples(sos), lambda padded: signal.sosfiltfilt(sos, padded, axis=-1, padtype=None)
+    )
+
+
+def _check_below_nyquist(loc: tuple[str, ...], cutoff_hz: float, meta: EpochSetMeta) -> None:
+    if cutoff_hz >= meta.nyquist:
+        raise SpecError(
+            loc,
+            f"cutoff {cutoff_hz:g} Hz is not below the Nyquist frequency: Nyquist is {meta.nyquist:g} Hz "
+            f"at this sampling rate ({meta.sfreq:g} Hz); choose a cutoff below it",
+        )
+
+
+def _check_fir_band_ends_below_nyquist(
+    loc: tuple[str, ...], cutoff_hz: float, transition_hz: float, meta: EpochSetMeta
+) -> None:
+    band_end_hz = cutoff_hz + transition_hz / 2
+    if band_end_hz > meta.nyquist:
+        raise SpecError(
+            loc,
+            f"the FIR transition band of a {cutoff_hz:g} Hz cutoff is {transition_hz:.3g} Hz wide and "
+            f"would end at {band_end_hz:.4g} Hz, above the Nyquist frequency of {meta.nyquist:g} Hz; "
+            f"choose a cutoff of at most {fir_max_cutoff_hz(meta.nyquist):.4g} Hz, or method 'iir'",
+        )
+
+
+def short_epoch_warnings(epochs: EpochSet, highpass_hz: float) -> list[str]:
+    """A warning when each epoch is shorter than three periods of a high-pass cutoff (in Hz)."""
+    duration_s = epochs.n_times / epochs.sfreq
+    needed_s = _HIGHPASS_PERIODS_PER_EPOCH / highpass_hz
+    if duration_s >= needed_s:
+        return []
+    return [
+        f"each epoch lasts {duration_s:.3g} s, shorter than three periods of the {highpass_hz:g} Hz "
+        f"high-pass cutoff ({needed_s:.3g} s), so the filtered epochs depend on the edge padding; "
+        "filtering the continuous recording before epoching is better"
+    ]
+
+
+class _ZeroPhaseFilter(Step):
+    """A zero-phase filter of EEG and EOG channels; subclasses set ``band``, ``step`` and the cutoffs."""
+
+    stage: ClassVar[str] = "continuous"
+    band: ClassVar[FilterBand]
+
+    method: Literal["fir", "iir"] = Field("fir", description="Windowed-sinc FIR or Butterworth IIR.")
+    order: int = Field(4, ge=1, le=10, description="Butterworth order of each pass (iir only).")
+
+    def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepRecord]:
+        picks = epochs.picks(FILTERED_CHANNEL_TYPES, exclude_bads=False)
+        data = epochs.data.astype(np.float64, copy=True)
+        if picks.size:
+            data[:, picks] = self._filter(epochs.data[:, picks], epochs.sfreq)
+        highpass_hz = self._highpass_hz()
+        warnings = [] if highpass_hz is None else short_epoch_warnings(epochs, highpass_hz)
+        return epochs.with_changes(data=data), self.record(warnings=warnings)
+
+    def _filter(self, data: np.ndarray, sfreq: float) -> np.ndarray:
+        if self.method == "fir":
+            return fir_zero_phase(data, design_fir(self.band, self._cutoffs(), sfreq))
+        return iir_zero_phase(data, design_iir(self.band, self._cutoffs(), self.order, sfreq))
+
+    def _cutoffs(self) -> float | tuple[float, float]:
+        raise NotImplementedError
+
+    def _highpass_hz(self) -> float | None:
+        """The cutoff below which the filter removes, in Hz; None for a low-pass."""
+        raise NotImplementedError
+
+
+class _CutoffFilter(_ZeroPhaseFilter):
+    """A zero-phase filter with one cutoff."""
+
+    cutoff_hz: float = Field(gt=0.0, allow_inf_nan=False, description="Cutoff frequency, in Hz (-6 dB point).")
+
+    def check(self, meta: EpochSetMeta) -> EpochSetMeta:
+        _check_below_nyquist(("cutoff_hz",), self.cutoff_hz, meta)
+        if self.method == "fir":
+            _check_fir_band_ends_below_nyquist(("cutoff_hz",), self.cutoff_hz, fir_transition_hz(self.cutoff_hz), meta)
+        return meta
+
+    def _cutoffs(self) -> float:
+        return self.cutoff_hz
+
+
+class HighPass(_CutoffFilter):
+    """Zero-phase high-pass filter of EEG and EOG channels."""
+
+    step: Literal["highpass"] = "highpass"
+    band: ClassVar[FilterBand] = "highpass"
+
+    def _highpass_hz(self) -> float | None:
+        return self.cutoff_hz
+
+
+class LowPass(_CutoffFilter):
+    """Zero-phase low-pass filter of EEG and EOG channels."""
+
+    step: Literal["lowpass"] = "lowpass"
+    band: ClassVar[FilterBand] = "lowpass"
+
+    def _highpass_hz(self) -> float | None:
+        return None
+
+
+class BandPass(_ZeroPhaseFilter):
+    """Zero-phase band-pass filter of EEG and EOG channels, -6 dB at ``low_hz`` and ``high_hz``."""
+
+    step: Literal["bandpass"] = "bandpass"
+    band: ClassVar[FilterBand] = "bandpass"
+
+    low_hz: float = Field(gt=0.0, allow_inf_nan=False, description="Lower cutoff, in Hz (-6 dB point).")
+    high_hz: float = Field(gt=0.0, allow_inf_nan=False, description="Upper cutoff, in Hz (-6 dB point).")
+
+    @model_validator(mode="after")
+    def _ordered_cutoffs(self) -> "BandPass":
+        if not self.low_hz < self.high_hz:
+            raise ValueError("low_hz must be below high_hz; for a band-stop use a line_noise step or two filters")
+        return self
+
+    def check(self, meta: EpochSetMeta) -> EpochSetMeta:
+        _check_below_nyquist(("high_hz",), self.high_hz, meta)
+        if self.method == "fir":
+            transition_hz = fir_transition_hz(self.low_hz)
+            _check_fir_band_ends_below_nyquist(("high_hz",), self.high_hz, transition_hz, meta)
+            if self.low_hz + transition_hz / 2 >= self.high_hz - transition_hz / 2:
+                raise SpecError(
+                    ("high_hz",),
+                    f"the passband [{self.low_hz:g}, {self.high_hz:g}] Hz is narrower than the FIR transition band "
+                    f"of {transition_hz:.3g} Hz at each edge; move high_hz to at least "
+                    f"{self.low_hz + transition_hz:.4g} Hz, or use method 'iir'",
+                )
+        return meta
+
+    def _cutoffs(self) -> tuple[float, float]:
+        return (self.low_hz, self.high_hz)
+
+    def _highpass_hz(self) -> float | None:
+        return self.low_hz

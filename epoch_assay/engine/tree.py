@@ -1,0 +1,171 @@
+"""Many pipelines on one epoch set as a prefix tree: a prefix of steps shared by several
+pipelines is computed once.
+
+Each node of the tree is one step, reached by the steps above it (its prefix); the
+pipelines ending at a node are its leaves. Nodes are keyed by the step's canonical JSON
+(defaults filled in, sorted keys), so ``{"step": "highpass", "cutoff_hz": 1}`` and the same
+step with ``"method": "fir"`` written out are one node. Execution is depth-first and holds
+only the epoch sets on the current path, so memory grows with the depth of the tree, not
+with the number of pipelines.
+
+Step outputs may be kept in a cache handed in by the caller (the engine itself touches no
+files); the key of a node is the SHA-256 of the source epoch set's SHA-256, the canonical
+JSON of the node's prefix and the engine version, so a different input, a different chain
+of steps or a new engine never reuses an output.
+"""
+
+import hashlib
+import json
+import time
+from collections.abc import Iterator, Sequence
+from dataclasses import dataclass
+from typing import Protocol
+
+from epoch_assay.engine import ENGINE_VERSION
+from epoch_assay.engine.epochs import EpochSet
+from epoch_assay.engine.pipeline import PipelineSpec
+from epoch_assay.engine.provenance import StepRecord
+from epoch_assay.engine.steps.base import Step
+
+
+@dataclass(frozen=True)
+class StepOutput:
+    """What one step made of its input: the new epoch set and its provenance record."""
+
+    epochs: EpochSet
+    record: StepRecord
+
+
+class StepCache(Protocol):
+    """Where step outputs are kept between pipelines, units and runs."""
+
+    def get(self, key: str) -> StepOutput | None:
+        """The output stored under ``key``, or None."""
+
+    def put(self, key: str, output: StepOutput) -> None:
+        """Store ``output`` under ``key``."""
+
+
+@dataclass(frozen=True)
+class TreeNode:
+    """The steps from the root to here (empty at the root), the pipelines ending here, and what follows."""
+
+    prefix: tuple[Step, ...]
+    pipelines: tuple[PipelineSpec, ...]
+    children: tuple["TreeNode", ...]
+
+    def count_steps(self) -> int:
+        """Steps applied when this node's subtree is executed (this node's own step excluded)."""
+        return sum(1 + child.count_steps() for child in self.children)
+
+
+@dataclass(frozen=True)
+class PipelineTree:
+    """The pipelines of a run arranged by shared prefixes."""
+
+    root: TreeNode
+
+    @property
+    def pipelines(self) -> tuple[PipelineSpec, ...]:
+        """Every pipeline of the tree, depth-first (the order leaves are produced in)."""
+        return tuple(_pipelines_below(self.root))
+
+    def count_steps(self) -> int:
+        """Steps applied to run the whole tree once (a pipeline run alone applies all of its own)."""
+        return self.root.count_steps()
+
+    def branches(self) -> list["PipelineTree"]:
+        """The tree split at its root: one tree per first step, and one for pipelines with no step.
+
+        Branches share nothing but the input, so they can run in separate processes.
+        """
+        trees = [PipelineTree(TreeNode((), (), (child,))) for child in self.root.children]
+        if self.root.pipelines:
+            trees.insert(0, PipelineTree(TreeNode((), self.root.pipelines, ())))
+        return trees
+
+
+@dataclass(frozen=True)
+class LeafOutput:
+    """A pipeline's processed epoch set and one provenance record per step, in order."""
+
+    pipeline: PipelineSpec
+    epochs: EpochSet
+    records: tuple[StepRecord, ...]
+
+
+def canonical_step_json(step: Step) -> str:
+    """The step as canonical JSON (defaults filled in, sorted keys, no spaces)."""
+    return json.dumps(step.model_dump(mode="json"), sort_keys=True, separators=(",", ":"))
+
+
+def prefix_cache_key(source_sha256: str, prefix: Sequence[Step]) -> str:
+    """SHA-256 (hex) of the source epoch set's SHA-256, the prefix's canonical spec and the engine version."""
+    canonical = PipelineSpec(name="prefix", steps=list(prefix)).canonical_json()
+    return hashlib.sha256("\n".join((source_sha256, canonical, ENGINE_VERSION)).encode()).hexdigest()
+
+
+def build_tree(pipelines: Sequence[PipelineSpec]) -> PipelineTree:
+    """Arrange ``pipelines`` by shared prefixes; children keep the order their first pipeline has."""
+    return PipelineTree(_build_node((), list(pipelines)))
+
+
+def execute_tree(
+    tree: PipelineTree, epochs: EpochSet, source_sha256: str, cache: StepCache | None = None
+) -> Iterator[LeafOutput]:
+    """Apply the tree to ``epochs`` depth-first, yielding each pipeline's output as it is reached.
+
+    ``source_sha256`` identifies ``epochs`` in cache keys (the SHA-256 of the stored file).
+    Errors raised by a step propagate, as when the pipeline is applied alone.
+    """
+    yield from _execute_node(tree.root, epochs, (), source_sha256, cache)
+
+
+def _build_node(prefix: tuple[Step, ...], pipelines: list[PipelineSpec]) -> TreeNode:
+    depth = len(prefix)
+    groups: dict[str, list[PipelineSpec]] = {}
+    for pipeline in pipelines:
+        if len(pipeline.steps) > depth:
+            groups.setdefault(canonical_step_json(pipeline.steps[depth]), []).append(pipeline)
+    children = tuple(_build_node((*prefix, group[0].steps[depth]), group) for group in groups.values())
+    ending = tuple(pipeline for pipeline in pipelines if len(pipeline.steps) == depth)
+    return TreeNode(prefix=prefix, pipelines=ending, children=children)
+
+
+def _pipelines_below(node: TreeNode) -> Iterator[PipelineSpec]:
+    yield from node.pipelines
+    for child in node.children:
+        yield from _pipelines_below(child)
+
+
+def _execute_node(
+    node: TreeNode,
+    epochs: EpochSet,
+    records: tuple[StepRecord, ...],
+    source_sha256: str,
+    cache: StepCache | None,
+) -> Iterator[LeafOutput]:
+    for pipeline in node.pipelines:
+        yield LeafOutput(pipeline=pipeline, epochs=epochs, records=records)
+    for child in node.children:
+        output = _apply_step(child, epochs, source_sha256, cache)
+        yield from _execute_node(child, output.epochs, (*records, output.record), source_sha256, cache)
+
+
+def _apply_step(node: TreeNode, epochs: EpochSet, source_sha256: str, cache: StepCache | None) -> StepOutput:
+    if cache is None:
+        return _run_step(node.prefix[-1], epochs)
+    key = prefix_cache_key(source_sha256, node.prefix)
+    cached = cache.get(key)
+    if cached is not None:
+        return cached
+    output = _run_step(node.prefix[-1], epochs)
+    cache.put(key, output)
+    return output
+
+
+def _run_step(step: Step, epochs: EpochSet) -> StepOutput:
+    started = time.perf_counter()
+    processed, record = step.apply(epochs)
+    record.seconds = round(time.perf_counter() - started, 6)
+    return StepOutput(epochs=processed, record=record)

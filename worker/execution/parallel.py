@@ -1,0 +1,218 @@
+"""Run a run's units (epoch set × tree branch) in local worker processes, reporting progress and an ETA.
+
+Units are taken from an iterable as room frees up, so the caller can load an epoch set only
+when its units are about to be submitted: at most ``2 × workers`` units are pending at once.
+Processes are started with the "forkserver" method, because the calling worker has threads
+(heartbeat, webhook delivery) that a forked child would inherit half-way through whatever
+they were doing. The fork server imports the ``preload`` modules once and forks each worker
+from there, so workers do not pay for importing the scientific stack themselves. With one
+worker the units run in the calling process, without pickling.
+If ``on_progress`` raises (the job is handed back, or its lease was lost), units not yet
+started are cancelled, the ones running finish, and the exception propagates.
+
+The submission loop (:func:`run_bounded`) is shared with the Dask cluster path
+(``worker.execution.dask_units``), which gives it another :class:`UnitBackend`.
+"""
+
+import multiprocessing
+import os
+import select
+import threading
+import time
+from collections.abc import Callable, Collection, Iterable, Sequence
+from concurrent.futures import FIRST_COMPLETED, Future, ProcessPoolExecutor, wait
+from dataclasses import dataclass
+from typing import Any, Generic, Protocol, TypeVar
+
+Result = TypeVar("Result")
+Handle = TypeVar("Handle")
+Unit = Callable[[], Result]
+PENDING_PER_WORKER = 2
+
+
+@dataclass(frozen=True)
+class Progress:
+    """Units done out of the total, the time since the first unit started and the time left, in s.
+
+    ``eta_s`` extrapolates the mean time per unit so far; None before the first unit is done.
+    """
+
+    done: int
+    total: int
+    elapsed_s: float
+    eta_s: float | None
+
+    @property
+    def fraction(self) -> float:
+        return self.done / self.total if self.total else 1.0
+
+
+@dataclass(frozen=True)
+class SharedInputUnit(Generic[Result]):
+    """A unit that computes ``function(shared, *args)``, where ``shared`` is a large input that
+    consecutive units have in common (one epoch set, for its tree branches).
+
+    Called with no argument it is an ordinary unit; a Dask cluster gets ``shared`` once for all
+    the units that carry the same object, not once per unit.
+    """
+
+    function: Callable[..., Result]
+    shared: Any
+    args: tuple[Any, ...] = ()
+
+    def __call__(self) -> Result:
+        return self.function(self.shared, *self.args)
+
+
+class UnitBackend(Protocol[Handle, Result]):
+    """Where :func:`run_bounded` sends units: ``capacity`` units may be pending at once."""
+
+    capacity: int
+
+    def submit(self, unit: Unit[Result], index: int) -> Handle:
+        """Start unit number ``index``; a handle to wait on."""
+
+    def wait_first(self, pending: Collection[Handle]) -> Iterable[Handle]:
+        """Block until at least one pending unit is finished; the finished ones."""
+
+    def collect(self, handle: Handle) -> Result:
+        """The result of a finished unit (raising what the unit raised)."""
+
+    def cancel(self, pending: Collection[Handle]) -> None:
+        """Drop units still pending when the run stops early."""
+
+
+def default_workers() -> int:
+    """All cores this process may use."""
+    return len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count() or 1
+
+
+def run_units(
+    units: Iterable[Unit[Result]],
+    total: int,
+    on_progress: Callable[[Progress], None],
+    workers: int | None = None,
+    preload: Sequence[str] = (),
+) -> list[Result]:
+    """Run every unit and return their results in the order the units came.
+
+    ``units`` are argument-free callables; with more than one worker they must pickle (a
+    module-level function wrapped in ``functools.partial`` or a :class:`SharedInputUnit`).
+    ``total`` is the number of units, for progress. ``workers`` defaults to
+    :func:`default_workers`; a single unit runs in this process, since starting a pool would only
+    add to its time. ``preload`` names the modules the units need (taken into account when the
+    first pool of the process starts).
+    """
+    workers = default_workers() if workers is None else workers
+    if workers < 1:
+        raise ValueError("workers must be at least 1")
+    clock = ProgressClock(total, on_progress)
+    if min(workers, total) <= 1:
+        results = []
+        for unit in units:
+            results.append(unit())
+            clock.unit_done()
+        return results
+    context = multiprocessing.get_context("forkserver")
+    context.set_forkserver_preload(list(preload))
+    executor = ProcessPoolExecutor(
+        max_workers=workers, mp_context=context, initializer=exit_with, initargs=(os.getpid(),)
+    )
+    try:
+        return run_bounded(units, _PoolBackend(executor, PENDING_PER_WORKER * workers), clock)
+    finally:
+        executor.shutdown(wait=True, cancel_futures=True)
+
+
+def exit_with(owner_pid: int) -> None:
+    """Make this pool process exit as soon as the process ``owner_pid`` (the one that started the pool) ends.
+
+    A pool process waits on a queue it holds both ends of, so it would outlive an owner killed outright
+    (SIGKILL, the OOM killer), and keep the fork server alive with it. A daemon thread waits on a pidfd
+    of the owner (exact, even if its pid is reused), or polls it each second where pidfds are missing.
+    """
+    threading.Thread(target=_wait_for_exit, args=(owner_pid,), name="exit-with-owner", daemon=True).start()
+
+
+def _wait_for_exit(owner_pid: int) -> None:
+    try:
+        handle = os.pidfd_open(owner_pid)
+    except (AttributeError, OSError):
+        while _is_running(owner_pid):
+            time.sleep(1.0)
+    else:
+        select.select([handle], [], [])
+    os._exit(0)
+
+
+def _is_running(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
+
+
+class ProgressClock:
+    """Calls ``on_progress`` with a :class:`Progress` each time a unit is done."""
+
+    def __init__(self, total: int, on_progress: Callable[[Progress], None]) -> None:
+        self._total, self._on_progress = total, on_progress
+        self._started = time.monotonic()
+        self._done = 0
+
+    def unit_done(self) -> None:
+        self._done += 1
+        elapsed = time.monotonic() - self._started
+        eta = elapsed / self._done * max(self._total - self._done, 0)
+        self._on_progress(Progress(done=self._done, total=self._total, elapsed_s=elapsed, eta_s=eta))
+
+
+def run_bounded(
+    units: Iterable[Unit[Result]], backend: UnitBackend[Handle, Result], clock: ProgressClock
+) -> list[Result]:
+    """Submit units while fewer than ``backend.capacity`` are pending, collect each as it finishes
+    and return the results in unit order; on any exception the pending units are cancelled."""
+    results: dict[int, Result] = {}
+    pending: dict[Handle, int] = {}
+    iterator = enumerate(units)
+    try:
+        exhausted = False
+        while True:
+            while not exhausted and len(pending) < backend.capacity:
+                item = next(iterator, None)
+                if item is None:
+                    exhausted = True
+                    break
+                index, unit = item
+                pending[backend.submit(unit, index)] = index
+            if not pending:
+                break
+            for handle in backend.wait_first(list(pending)):
+                results[pending.pop(handle)] = backend.collect(handle)
+                clock.unit_done()
+    finally:
+        if pending:
+            backend.cancel(list(pending))
+    return [results[index] for index in range(len(results))]
+
+
+@dataclass
+class _PoolBackend:
+    executor: ProcessPoolExecutor
+    capacity: int
+
+    def submit(self, unit: Unit[Result], index: int) -> Future:
+        return self.executor.submit(unit)
+
+    def wait_first(self, pending: Collection[Future]) -> Iterable[Future]:
+        return wait(pending, return_when=FIRST_COMPLETED).done
+
+    def collect(self, handle: Future) -> Result:
+        return handle.result()
+
+    def cancel(self, pending: Collection[Future]) -> None:
+        for future in pending:
+            future.cancel()
