@@ -4,10 +4,14 @@ import numpy as np
 import pytest
 from scipy import stats
 
+from epoch_assay.engine.document import RunResultDocument
+from epoch_assay.engine.document.multiverse import SubjectSpread
+from epoch_assay.engine.document.run import RunProvenance
 from service.report import summary
 from service.report.figures import PIPELINES_LABEL, REFERENCE_LABEL, figure_bytes, kept_figure, ranking_figure
 from service.report.palette import INK, PIPELINE_COLOURS
 from service.report.summary import KeptCounts, RankingRow
+from tests.support.result_documents import result_document, scored_entry
 
 ROWS = [
     RankingRow("hp0.1-avg", 0.62, 0.48, 0.74, False),
@@ -56,13 +60,23 @@ def test_ranking_plot_draws_the_reference_apart_in_ink():
     assert containers[PIPELINES_LABEL].lines[0].get_color() == PIPELINE_COLOURS[0]
 
 
+def _hashes(*names: str) -> RunProvenance:
+    provenance = result_document().provenance
+    return provenance.model_copy(update={"pipeline_hashes": {name: "h" for name in names}})
+
+
+def _document(*names: str, **changes) -> RunResultDocument:
+    """A document of the pipelines ``names`` with no ranking or group unless given in ``changes``."""
+    return result_document(**({"provenance": _hashes(*names), "ranking": None, "group": None} | changes))
+
+
 def test_ranking_from_entries_orders_by_mean_and_gives_a_t_interval():
-    document = {
-        "scoring": {},
-        "provenance": {"pipeline_hashes": {"raw": "h1", "avg": "h2"}},
-        "results": [{"pipeline": "raw", "significant_fraction": f} for f in (0.2, 0.3, 0.4)]
-        + [{"pipeline": "avg", "significant_fraction": f} for f in (0.5, 0.7, 0.6)],
-    }
+    document = _document(
+        "raw",
+        "avg",
+        results=[scored_entry(pipeline="raw", significant_fraction=f) for f in (0.2, 0.3, 0.4)]
+        + [scored_entry(pipeline="avg", significant_fraction=f) for f in (0.5, 0.7, 0.6)],
+    )
     rows = summary.ranking(document).rows
     assert [row.name for row in rows] == ["avg", "raw"]
     # Reference: scipy.stats.t.interval (Virtanen et al., 2020, SciPy 1.0) for the mean of 0.5, 0.7, 0.6.
@@ -72,30 +86,24 @@ def test_ranking_from_entries_orders_by_mean_and_gives_a_t_interval():
 
 
 def test_ranking_of_one_epoch_set_uses_its_bootstrap_interval():
-    document = {
-        "scoring": {},
-        "provenance": {"pipeline_hashes": {"raw": "h1"}},
-        "results": [
-            {
-                "pipeline": "raw",
-                "significant_fraction": 0.5,
-                "bootstrap": {"median": 0.45, "ci_low": 0.25, "ci_high": 0.625},
-            }
-        ],
-    }
+    bootstrap = scored_entry().bootstrap.model_copy(update={"median": 0.45, "ci_low": 0.25, "ci_high": 0.625})
+    document = _document("raw", results=[scored_entry(pipeline="raw", significant_fraction=0.5, bootstrap=bootstrap)])
     assert summary.ranking(document).rows == [RankingRow("raw", 0.45, 0.25, 0.625, True)]
 
 
 def test_ranking_of_the_document_is_used_as_it_stands_with_the_reference_from_vs_reference():
-    document = {
-        "scoring": {},
-        "provenance": {"pipeline_hashes": {"raw": "h1", "avg": "h2"}},
-        "results": [],
-        "ranking": [
-            {"rank": 2, "pipeline": "raw", "mean": 0.3, "ci_low": 0.2, "ci_high": 0.4, "vs_reference": None},
-            {"rank": 1, "pipeline": "avg", "mean": 0.5, "ci_low": None, "ci_high": None, "vs_reference": {"mean": 0.2}},
+    compared = next(entry for entry in result_document().ranking if entry.vs_reference is not None)
+    document = _document(
+        "raw",
+        "avg",
+        results=[],
+        ranking=[
+            compared.model_copy(
+                update={"rank": 2, "pipeline": "raw", "mean": 0.3, "ci_low": 0.2, "ci_high": 0.4, "vs_reference": None}
+            ),
+            compared.model_copy(update={"rank": 1, "pipeline": "avg", "mean": 0.5, "ci_low": None, "ci_high": None}),
         ],
-    }
+    )
     assert summary.ranking(document).rows == [
         RankingRow("avg", 0.5, 0.5, 0.5, False),
         RankingRow("raw", 0.3, 0.2, 0.4, True),
@@ -103,15 +111,29 @@ def test_ranking_of_the_document_is_used_as_it_stands_with_the_reference_from_vs
 
 
 def test_ranking_from_the_group_summary_gives_a_t_interval_from_the_standard_error():
-    document = {
-        "scoring": {"reference_pipeline": "avg"},
-        "provenance": {"pipeline_hashes": {"raw": "h1", "avg": "h2"}},
-        "results": [],
-        "group": [
-            {"pipeline": "raw", "n_subjects": 5, "significant_fraction": {"mean": 0.4, "median": 0.4, "se": 0.05}},
-            {"pipeline": "avg", "n_subjects": 5, "significant_fraction": {"mean": 0.3, "median": 0.3, "se": 0.1}},
+    base = result_document().group[0]
+    document = _document(
+        "raw",
+        "avg",
+        scoring=result_document().scoring.model_copy(update={"reference_pipeline": "avg"}),
+        results=[],
+        group=[
+            base.model_copy(
+                update={
+                    "pipeline": "raw",
+                    "n_subjects": 5,
+                    "significant_fraction": SubjectSpread(mean=0.4, median=0.4, se=0.05),
+                }
+            ),
+            base.model_copy(
+                update={
+                    "pipeline": "avg",
+                    "n_subjects": 5,
+                    "significant_fraction": SubjectSpread(mean=0.3, median=0.3, se=0.1),
+                }
+            ),
         ],
-    }
+    )
     rows = summary.ranking(document).rows
     # Reference: scipy.stats.t.interval (Virtanen et al., 2020, SciPy 1.0), 4 degrees of freedom.
     assert rows[0][:4] == pytest.approx(("raw", 0.4, *stats.t.interval(0.95, 4, loc=0.4, scale=0.05)))
@@ -127,16 +149,18 @@ def test_kept_figure_bars_carry_the_mean_trial_and_channel_counts():
 
 
 def test_channel_map_averages_t_and_marks_channels_significant_in_half_the_sets():
-    def entry(t, s):
-        return {
-            "pipeline": "raw",
-            "channels": [
-                {"name": "Cz", "t": t, "significant": s},
-                {"name": "Pz", "t": 1.0, "significant": False},
-            ],
-        }
+    channel = scored_entry().channels[0]
 
-    document = {"provenance": {"pipeline_hashes": {"raw": "h"}}, "results": [entry(4.0, True), entry(2.0, False)]}
+    def entry(t, s):
+        return scored_entry(
+            pipeline="raw",
+            channels=[
+                channel.model_copy(update={"name": "Cz", "t": t, "significant": s}),
+                channel.model_copy(update={"name": "Pz", "t": 1.0, "significant": False}),
+            ],
+        )
+
+    document = _document("raw", results=[entry(4.0, True), entry(2.0, False)])
     channel_map = summary.channel_map(document, "raw")
     assert channel_map.ch_names == ("Cz", "Pz")
     np.testing.assert_allclose(channel_map.t, [3.0, 1.0])

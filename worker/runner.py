@@ -22,6 +22,7 @@ from pydantic import ValidationError
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
+from epoch_assay.engine.document import RunResultDocument
 from epoch_assay.engine.epochs import EpochSet as EngineEpochSet
 from epoch_assay.engine.errors import EpochSetFormatError, EpochSetTooLargeError, SpecError
 from epoch_assay.engine.io import read_epoch_set_file
@@ -181,7 +182,9 @@ class Worker:
                 return True
         with self.database.session() as session:
             if queue.complete(session, job, self.worker_id):
-                session.add(RunResult(run_id=job.run_id, document=json.dumps(document, allow_nan=False)))
+                session.add(
+                    RunResult(run_id=job.run_id, document=json.dumps(document.model_dump(mode="json"), allow_nan=False))
+                )
                 log.info("job succeeded", extra=context)
         return True
 
@@ -202,7 +205,7 @@ class Worker:
             queue.record_worker_seen(session, self.worker_id)
             self._last_seen_recorded = now
 
-    def _execute(self, job: queue.ClaimedJob, beat: Heartbeat) -> dict:
+    def _execute(self, job: queue.ClaimedJob, beat: Heartbeat) -> RunResultDocument:
         with self.database.session() as session:
             run = session.get(Run, job.run_id)
             if run is None:

@@ -1,13 +1,14 @@
 """Reports: a run's results as a self-contained HTML page and as single figures; a study's page."""
 
 import json
-from typing import Annotated, Any, Literal
+from typing import Annotated, Literal
 
 from fastapi import APIRouter, Path, Response
 from fastapi.responses import HTMLResponse
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
+from epoch_assay.engine.document import RunResultDocument, upgrade_document
 from service.api.access import CallerDep
 from service.api.deps import SessionDep
 from service.api.locked_pipelines import ORIGIN as ARRIVAL_ORIGIN
@@ -36,7 +37,7 @@ HTML_CONTENT = {"text/html": {"schema": {"type": "string"}}}
 IMAGE_CONTENT = {media: {"schema": {"type": "string", "format": "binary"}} for media in MEDIA_TYPES.values()}
 
 
-def _document(session: Session, run: Run) -> dict[str, Any]:
+def _document(session: Session, run: Run) -> RunResultDocument:
     result = session.get(RunResult, run.id)
     if run.status != queue.SUCCEEDED or result is None:
         hint = (
@@ -45,7 +46,7 @@ def _document(session: Session, run: Run) -> dict[str, Any]:
             else f"poll GET /v1/runs/{run.id} until status is succeeded"
         )
         raise Conflict(f"run {run.id} is {run.status}, so it has no report yet; {hint}")
-    return json.loads(result.document)
+    return upgrade_document(json.loads(result.document))
 
 
 def _epoch_set_facts(row: EpochSet) -> EpochSetFacts:
@@ -203,19 +204,19 @@ def _quality_on_arrival(session: Session, study: Study) -> list[ArrivalQuality]:
     for run, document in scored:
         if run.spec.get("origin") != ARRIVAL_ORIGIN:
             continue
-        for entry in json.loads(document)["results"]:
+        for entry in upgrade_document(json.loads(document)).results:
             quality.append(
                 ArrivalQuality(
-                    epoch_set=entry["epoch_set"],
-                    subject=entry["subject"],
-                    session=entry.get("session"),
+                    epoch_set=entry.epoch_set,
+                    subject=entry.subject,
+                    session=entry.session,
                     scored_at=run.created_at,
-                    pipeline=entry["pipeline"],
-                    n_trials=entry.get("n_trials") or {},
-                    median_sme_uv=entry.get("median_sme_uv") or {},
-                    channels_kept=entry.get("channels_kept"),
-                    channels_uploaded=entry.get("channels_uploaded"),
-                    error=entry.get("error"),
+                    pipeline=entry.pipeline,
+                    n_trials=entry.n_trials or {},
+                    median_sme_uv=entry.median_sme_uv or {},
+                    channels_kept=entry.channels_kept,
+                    channels_uploaded=entry.channels_uploaded,
+                    error=entry.error,
                 )
             )
     return quality

@@ -4,6 +4,8 @@ import csv
 import io
 from typing import Any
 
+from epoch_assay.engine.document import RunResultDocument
+
 COLUMNS = (
     "run",
     "study",
@@ -45,47 +47,47 @@ def _cell(column: str, value: Any) -> Any:
     return value
 
 
-def _rows(document: dict[str, Any]) -> list[dict[str, Any]]:
-    condition_a, condition_b = document["scoring"]["conditions"]
+def _rows(document: RunResultDocument) -> list[dict[str, Any]]:
+    condition_a, condition_b = document.scoring.conditions
     rows = []
-    for entry in document["results"]:
-        bootstrap = entry.get("bootstrap") or {}
-        n_trials = entry.get("n_trials") or {}
+    for entry in document.results:
+        bootstrap = entry.bootstrap
+        n_trials = entry.n_trials or {}
         shared = {
-            "run": document["run"],
-            "study": document["study"],
-            "pipeline": entry["pipeline"],
-            "pipeline_hash": entry["pipeline_hash"],
-            "epoch_set": entry["epoch_set"],
-            "subject": entry["subject"],
-            "session": entry.get("session"),
-            "significant_fraction": entry.get("significant_fraction"),
-            "bootstrap_median": bootstrap.get("median"),
-            "bootstrap_ci_low": bootstrap.get("ci_low"),
-            "bootstrap_ci_high": bootstrap.get("ci_high"),
+            "run": document.run,
+            "study": document.study,
+            "pipeline": entry.pipeline,
+            "pipeline_hash": entry.pipeline_hash,
+            "epoch_set": entry.epoch_set,
+            "subject": entry.subject,
+            "session": entry.session,
+            "significant_fraction": entry.significant_fraction,
+            "bootstrap_median": None if bootstrap is None else bootstrap.median,
+            "bootstrap_ci_low": None if bootstrap is None else bootstrap.ci_low,
+            "bootstrap_ci_high": None if bootstrap is None else bootstrap.ci_high,
             "condition_a": condition_a,
             "n_trials_a": n_trials.get(condition_a),
             "condition_b": condition_b,
             "n_trials_b": n_trials.get(condition_b),
-            "error": entry.get("error"),
+            "error": entry.error,
         }
-        channels = entry.get("channels") or [{}]
-        for channel in channels:
-            significant = channel.get("significant")
+        if not entry.channels:
+            rows.append(shared)  # an entry that could not be scored: one row with its error
+        for channel in entry.channels or ():
             rows.append(
                 shared
                 | {
-                    "channel": channel.get("name"),
-                    "t": channel.get("t"),
-                    "p": channel.get("p"),
-                    "p_adjusted": channel.get("p_adjusted"),
-                    "significant": None if significant is None else str(significant).lower(),
+                    "channel": channel.name,
+                    "t": channel.t,
+                    "p": channel.p,
+                    "p_adjusted": channel.p_adjusted,
+                    "significant": str(channel.significant).lower(),
                 }
             )
     return rows
 
 
-def result_csv(document: dict[str, Any]) -> str:
+def result_csv(document: RunResultDocument) -> str:
     """The CSV text of ``document``; an entry that could not be scored is one row carrying its ``error``."""
     out = io.StringIO()
     writer = csv.DictWriter(out, fieldnames=COLUMNS, lineterminator="\r\n")

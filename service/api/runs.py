@@ -9,6 +9,7 @@ from sqlalchemy import and_, or_, select
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
+from epoch_assay.engine.document import RunResultDocument, upgrade_document
 from epoch_assay.engine.epochs import EpochSetMeta
 from epoch_assay.engine.errors import SpecError
 from epoch_assay.engine.pipeline import PipelineSpec
@@ -21,7 +22,7 @@ from service.api.responses import errors
 from service.api.result_csv import CSV_EXAMPLE, preferred_media_type, result_csv
 from service.errors import Conflict, NotAcceptable, Unprocessable, spec_error_to_unprocessable
 from service.schemas.epoch_sets import SUBJECT_PATTERN
-from service.schemas.runs import RunAccepted, RunCreate, RunOut, RunPage, RunResultDocument, RunStatus
+from service.schemas.runs import RunAccepted, RunCreate, RunOut, RunPage, RunStatus
 from service.storage import queue
 from service.storage.ids import new_id
 from service.storage.models import EpochSet, Run, RunEpochSet, RunPipeline, RunResult, Study
@@ -237,9 +238,9 @@ MEDIA_TYPES = ("application/json", "text/csv")
 
 @router.get(
     "/{run_id}/result",
+    response_model=RunResultDocument,
     responses={
         200: {
-            "model": RunResultDocument,
             "description": "The result document, or its CSV table.",
             "content": {"text/csv": {"schema": {"type": "string"}, "example": CSV_EXAMPLE}},
         },
@@ -255,8 +256,11 @@ def get_run_result(
         Query(alias="format", description="csv: one row per pipeline × epoch set × channel. Overrides Accept."),
     ] = None,
     accept: Annotated[str | None, Header(include_in_schema=False)] = None,
-) -> Response:
-    """The result document of a succeeded run, as JSON or (``Accept: text/csv`` or ``?format=csv``) CSV."""
+) -> RunResultDocument | Response:
+    """The result document of a succeeded run, as JSON or (``Accept: text/csv`` or ``?format=csv``) CSV.
+
+    A document stored under an earlier schema_version is converted to the current one on the way out.
+    """
     run = run_by_id(session, run_id, caller, "read")
     media_type = _result_media_type(result_format, accept)
     result = session.get(RunResult, run.id)
@@ -267,13 +271,14 @@ def get_run_result(
             else f"poll GET /v1/runs/{run.id} until status is succeeded"
         )
         raise Conflict(f"run {run.id} is {run.status}, so it has no result; {hint}")
+    document = upgrade_document(json.loads(result.document))
     if media_type == "text/csv":
         return Response(
-            content=result_csv(json.loads(result.document)),
+            content=result_csv(document),
             media_type="text/csv; charset=utf-8",
             headers={"Content-Disposition": f'attachment; filename="{run.id}.csv"'},
         )
-    return Response(content=result.document, media_type="application/json")
+    return document
 
 
 def _result_media_type(result_format: str | None, accept: str | None) -> str:

@@ -6,9 +6,11 @@ from datetime import UTC, datetime
 
 import pytest
 
+from epoch_assay.engine.document import RunResultDocument
 from service.api.pagination import decode_cursor, encode_cursor
 from service.api.result_csv import COLUMNS, preferred_media_type, result_csv
 from service.errors import Unprocessable
+from tests.support.result_documents import result_document, scored_entry
 
 OFFERED = ("application/json", "text/csv")
 
@@ -31,27 +33,20 @@ def test_the_accept_header_picks_the_media_type_it_rates_highest(accept, chosen)
     assert preferred_media_type(accept, OFFERED) == chosen
 
 
-def _document(**entry_changes) -> dict:
-    entry = {
-        "pipeline": "raw",
-        "pipeline_hash": "h",
-        "epoch_set": "es_1",
-        "subject": "sub-01",
-        "session": None,
-        "n_trials": {"a": 30, "b": 29},
-        "significant_fraction": 0.5,
-        "channels": [
-            {"name": "Cz", "t": 2.5, "p": 0.01, "p_adjusted": 0.02, "significant": True},
-            {"name": "Pz", "t": -0.1, "p": 0.9, "p_adjusted": 0.9, "significant": False},
-        ],
-        "bootstrap": None,
-        "provenance": [],
-        "warnings": [],
-    }
-    return {"run": "run_1", "study": "S", "scoring": {"conditions": ["a", "b"]}, "results": [entry | entry_changes]}
+def _document(**entry_changes) -> RunResultDocument:
+    """The fixture document with one entry of two channels, Cz and Pz, changed by ``entry_changes``."""
+    channel = scored_entry().channels[0]
+    channels = [
+        channel.model_copy(update={"name": "Cz", "t": 2.5, "p": 0.01, "p_adjusted": 0.02, "significant": True}),
+        channel.model_copy(update={"name": "Pz", "t": -0.1, "p": 0.9, "p_adjusted": 0.9, "significant": False}),
+    ]
+    entry = scored_entry(
+        session=None, n_trials={"a": 30, "b": 29}, significant_fraction=0.5, channels=channels, bootstrap=None
+    )
+    return result_document(results=[entry.model_copy(update=entry_changes)])
 
 
-def _rows(document: dict) -> list[dict[str, str]]:
+def _rows(document: RunResultDocument) -> list[dict[str, str]]:
     return list(csv.DictReader(io.StringIO(result_csv(document))))
 
 
@@ -71,8 +66,9 @@ def test_an_entry_that_could_not_be_scored_is_one_row_carrying_its_error():
 
 def test_text_a_spreadsheet_would_run_as_a_formula_is_quoted():
     document = _document()
-    document["results"][0]["channels"][0]["name"] = "=HYPERLINK(1)"
-    rows = _rows(document)
+    channels = document.results[0].channels
+    renamed = [channels[0].model_copy(update={"name": "=HYPERLINK(1)"}), channels[1]]
+    rows = _rows(_document(channels=renamed))
     assert rows[0]["channel"] == "'=HYPERLINK(1)" and rows[1]["t"] == "-0.1"
 
 
