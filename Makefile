@@ -35,7 +35,7 @@ postgres:
 # Everything on SQLite, then the API and storage tests again on PostgreSQL.
 test: $(STAMP) browser postgres
 	$(BIN)/python -m pytest
-	EPOCH_ASSAY_TEST_DATABASE=postgresql $(BIN)/python -m pytest tests/api tests/storage
+	EPOCH_ASSAY_TEST_DATABASE=postgresql $(BIN)/python -m pytest tests/service/api tests/service/storage
 
 bench: $(STAMP)
 	for script in tests/benchmarks/bench_*.py; do $(BIN)/python $$script || exit 1; done

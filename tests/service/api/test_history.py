@@ -5,7 +5,7 @@ import io
 
 import pytest
 
-from tests.api.helpers import SCORING, run_and_wait, upload
+from tests.service.api.helpers import SCORING, run_and_wait, upload
 from tests.support.epoch_files import CHANNELS, npz_bytes, small_epochs
 from tests.support.live import wait_for_run
 

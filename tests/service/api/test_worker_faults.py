@@ -7,7 +7,7 @@ import time
 
 import pytest
 
-from tests.api.helpers import upload, without_timing
+from tests.service.api.helpers import upload, without_timing
 from tests.support.epoch_files import npz_bytes, small_epochs
 from tests.support.live import LiveService, start_service, stop, wait_for_run
 from tests.support.receiver import Receiver

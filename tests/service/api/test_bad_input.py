@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from tests.api.helpers import SCORING, upload
+from tests.service.api.helpers import SCORING, upload
 from tests.support.epoch_files import CHANNELS, npz_bytes, raw_npz_bytes, small_epochs
 from tests.support.live import start_service
 

@@ -1,6 +1,6 @@
 """Grid runs through real processes: expansion, validation, the cap, and the multiverse result parts."""
 
-from tests.api.helpers import SCORING, run_and_wait, upload
+from tests.service.api.helpers import SCORING, run_and_wait, upload
 from tests.support.epoch_files import npz_bytes, small_epochs
 
 GRID = {

@@ -3,7 +3,7 @@
 import numpy as np
 from scipy import stats
 
-from tests.api.helpers import SCORING, run_and_wait, upload
+from tests.service.api.helpers import SCORING, run_and_wait, upload
 from tests.support.epoch_files import npz_bytes, small_epochs
 
 

@@ -1,7 +1,7 @@
 """Locking a study's pipeline: stored with its hash, then every new epoch set is scored with it."""
 
 from epoch_assay.engine.pipeline import PipelineSpec
-from tests.api.helpers import SCORING, run_and_wait, upload
+from tests.service.api.helpers import SCORING, run_and_wait, upload
 from tests.support.epoch_files import npz_bytes, small_epochs
 from tests.support.live import wait_for_run
 

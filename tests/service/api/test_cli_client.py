@@ -4,7 +4,7 @@ import json
 
 import pytest
 
-from tests.api.helpers import SCORING
+from tests.service.api.helpers import SCORING
 from tests.support.epoch_files import npz_bytes, small_epochs
 from tests.support.live import run_cli
 

@@ -17,7 +17,7 @@ from pathlib import Path
 
 import pytest
 
-from tests.api.helpers import SCORING, upload, without_timing
+from tests.service.api.helpers import SCORING, upload, without_timing
 from tests.support.epoch_files import npz_bytes, small_epochs
 from tests.support.live import LiveService, start_service
 

@@ -6,7 +6,7 @@ from concurrent.futures import ThreadPoolExecutor
 
 import pytest
 
-from tests.api.helpers import SCORING
+from tests.service.api.helpers import SCORING
 from tests.support.epoch_files import npz_bytes, small_epochs
 from tests.support.live import LiveService, start_service, wait_for_run
 

@@ -1,6 +1,6 @@
 """A job that raises ends as failed with a readable error, and the worker goes on."""
 
-from tests.api.helpers import SCORING, run_and_wait, upload
+from tests.service.api.helpers import SCORING, run_and_wait, upload
 from tests.support.epoch_files import npz_bytes, small_epochs
 from tests.support.live import wait_for_run
 

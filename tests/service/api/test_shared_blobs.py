@@ -15,7 +15,7 @@ from pathlib import Path
 import httpx
 import pytest
 
-from tests.api.helpers import SCORING, run_and_wait, upload, without_timing
+from tests.service.api.helpers import SCORING, run_and_wait, upload, without_timing
 from tests.support.epoch_files import npz_bytes, small_epochs
 from tests.support.live import LiveService, free_port, run_cli, start_service, wait_for_run
 from tests.support.s3_server import S3Server

@@ -9,7 +9,7 @@ import time
 import httpx
 import pytest
 
-from tests.api.helpers import SCORING
+from tests.service.api.helpers import SCORING
 from tests.support.epoch_files import npz_bytes, small_epochs
 from tests.support.live import REPO_ROOT, free_port, wait_for_run
 

@@ -10,7 +10,7 @@ import pytest
 from alembic import command
 
 from service.storage.migrate import alembic_config
-from tests.api.helpers import SCORING, run_and_wait, upload
+from tests.service.api.helpers import SCORING, run_and_wait, upload
 from tests.support.epoch_files import npz_bytes, small_epochs
 from tests.support.live import REPO_ROOT, LiveService, run_cli, start_service
 from tests.support.postgres import database_mode, fresh_database_url

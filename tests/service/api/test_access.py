@@ -9,7 +9,7 @@ from dataclasses import dataclass
 import httpx
 import pytest
 
-from tests.api.helpers import SCORING, upload
+from tests.service.api.helpers import SCORING, upload
 from tests.support.epoch_files import npz_bytes, small_epochs
 from tests.support.live import LiveService, free_port, run_cli, start_service, wait_for_run
 

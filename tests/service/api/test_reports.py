@@ -5,7 +5,7 @@ import re
 
 import pytest
 
-from tests.api.helpers import upload
+from tests.service.api.helpers import upload
 from tests.support.epoch_files import npz_bytes, small_epochs
 from tests.support.live import wait_for_run
 

@@ -5,7 +5,7 @@ import time
 
 from prometheus_client.parser import text_string_to_metric_families
 
-from tests.api.helpers import SCORING, run_and_wait, upload
+from tests.service.api.helpers import SCORING, run_and_wait, upload
 from tests.support.epoch_files import npz_bytes, small_epochs
 from tests.support.live import wait_for_run
 

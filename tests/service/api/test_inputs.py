@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from tests.api.helpers import SCORING, run_and_wait, upload
+from tests.service.api.helpers import SCORING, run_and_wait, upload
 from tests.support.epoch_files import small_epochs
 from tests.support.recording_files import events_tsv, known_recording, mne_epochs_bytes, recording_bytes
 

@@ -15,7 +15,7 @@ from pathlib import Path
 import pytest
 from distributed import Client
 
-from tests.api.helpers import SCORING, run_and_wait, upload, without_timing
+from tests.service.api.helpers import SCORING, run_and_wait, upload, without_timing
 from tests.support.dask_tasks import state_counts
 from tests.support.epoch_files import npz_bytes, small_epochs
 from tests.support.live import REPO_ROOT, LiveService, free_port, run_cli, start_service, stop

@@ -15,7 +15,7 @@ from pathlib import Path
 
 import pytest
 
-from tests.api.test_reports import scored  # noqa: F401 - the module's run, reused
+from tests.service.api.test_reports import scored  # noqa: F401 - the module's run, reused
 from tests.support.live import REPO_ROOT
 
 ARTIFACTS = REPO_ROOT / "test-artifacts"

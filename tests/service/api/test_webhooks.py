@@ -5,7 +5,7 @@ import hmac
 import json
 import time
 
-from tests.api.helpers import SCORING, upload
+from tests.service.api.helpers import SCORING, upload
 from tests.support.epoch_files import npz_bytes, small_epochs
 from tests.support.live import free_port, wait_for_run
 from tests.support.receiver import Received, Receiver

@@ -4,7 +4,7 @@ import threading
 import uuid
 from concurrent.futures import ThreadPoolExecutor
 
-from tests.api.helpers import SCORING, upload
+from tests.service.api.helpers import SCORING, upload
 from tests.support.epoch_files import npz_bytes, small_epochs
 
 REPLAYED = "idempotent-replayed"
