@@ -3,7 +3,7 @@
 from collections.abc import Iterator
 from contextlib import contextmanager
 
-from sqlalchemy import Engine, create_engine, event
+from sqlalchemy import Engine, create_engine, event, text
 from sqlalchemy.orm import Session, sessionmaker
 
 SQLITE_BUSY_TIMEOUT_MS = 30_000
@@ -50,3 +50,8 @@ class Database:
 
     def dispose(self) -> None:
         self.engine.dispose()
+
+
+def ping(session: Session) -> None:
+    """Ask the database a trivial question; SQLAlchemyError when it does not answer."""
+    session.execute(text("SELECT 1"))

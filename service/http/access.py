@@ -16,8 +16,8 @@ from fastapi import Depends, Request
 from fastapi.security import HTTPAuthorizationCredentials, HTTPBearer
 from sqlalchemy import ColumnElement, true
 
-from service.api.deps import SessionDep
 from service.errors import Forbidden, NotFound, Unauthorized
+from service.http.deps import SessionDep
 from service.storage.keys import find_active_key
 from service.storage.models import Study
 

@@ -4,16 +4,16 @@ Each lookup also asks the caller: a study (or a run of a study) the caller's key
 cover is answered exactly like one that does not exist.
 """
 
-from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from service.api.access import Action, Caller, study_not_found
 from service.errors import NotFound
+from service.http.access import Action, Caller, study_not_found
 from service.storage.models import Run, Study
+from service.storage.studies import study_with_code
 
 
 def study_by_code(session: Session, code: str, caller: Caller, action: Action) -> Study:
-    study = session.scalar(select(Study).where(Study.code == code))
+    study = study_with_code(session, code)
     if study is None:
         raise study_not_found(code)
     caller.require(study, action)

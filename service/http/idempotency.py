@@ -27,9 +27,9 @@ from sqlalchemy import delete
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
-from service.api.access import CallerDep
-from service.api.deps import SessionDep, SettingsDep
 from service.errors import Conflict
+from service.http.access import CallerDep
+from service.http.deps import SessionDep, SettingsDep
 from service.storage.ids import utc_now
 from service.storage.models import IdempotencyRecord
 

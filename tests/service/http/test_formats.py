@@ -6,9 +6,9 @@ from datetime import UTC, datetime
 
 import pytest
 
-from service.api.pagination import decode_cursor, encode_cursor
-from service.api.result_csv import COLUMNS, preferred_media_type, result_csv
 from service.errors import Unprocessable
+from service.http.pagination import decode_cursor, encode_cursor
+from service.http.result_csv import COLUMNS, preferred_media_type, result_csv
 
 OFFERED = ("application/json", "text/csv")
 
