@@ -57,10 +57,6 @@ class PayloadTooLarge(ApiError):
     status, slug, title = 413, "payload-too-large", "Payload too large"
 
 
-class UnsupportedMediaType(ApiError):
-    status, slug, title = 415, "unsupported-media-type", "Unsupported media type"
-
-
 class Unprocessable(ApiError):
     status, slug, title = 422, "unprocessable", "Unprocessable content"
 

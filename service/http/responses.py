@@ -16,7 +16,6 @@ DESCRIPTIONS = {
     406: "None of the media types in Accept can be produced.",
     409: "Conflicts with the current state, or the Idempotency-Key was used for another request.",
     413: "The request body is too large.",
-    415: "The body has a media type this route does not take.",
     422: "The request does not match the schema or cannot be carried out; the detail names the field.",
     503: "The service is not ready.",
 }

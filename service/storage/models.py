@@ -137,7 +137,7 @@ class RunPipeline(Base):
 
 
 class RunResult(Base):
-    """The result document of a succeeded run (JSON text, see worker.result_document)."""
+    """The result document of a succeeded run: JSON text built by worker.run_job, shaped as service.schemas.runs."""
 
     __tablename__ = "run_results"
 
