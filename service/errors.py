@@ -147,7 +147,7 @@ def install_problem_handlers(app: FastAPI) -> None:
                 "the request body could not be parsed: send JSON (UTF-8) with Content-Type: "
                 "application/json, or a multipart form for uploads",
             )
-        headers = error.headers
+        headers = dict(error.headers) if error.headers else None
         if error.status_code == 405:
             headers = {**(headers or {}), "Allow": ", ".join(_allowed_methods(request))}
         slug = {404: "not-found", 405: "method-not-allowed"}.get(error.status_code, "http-error")

@@ -102,7 +102,7 @@ class Deliverer:
         if answer.is_success:
             return AttemptOutcome(True, answer.status_code, None, seconds)
         if answer.is_redirect:
-            error = f"answered {answer.status_code} (redirects are not followed; register the final URL)"
+            refused = f"answered {answer.status_code} (redirects are not followed; register the final URL)"
         else:
-            error = f"answered {answer.status_code} {answer.reason_phrase}".rstrip()
-        return AttemptOutcome(False, answer.status_code, error, seconds)
+            refused = f"answered {answer.status_code} {answer.reason_phrase}".rstrip()
+        return AttemptOutcome(False, answer.status_code, refused, seconds)

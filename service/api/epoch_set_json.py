@@ -71,21 +71,22 @@ def post_json_epoch_set(
             parsed = parse_json_epochs(body)
         except EpochSetFormatError as error:
             raise format_error_to_unprocessable(error) from None
-        _check_label("subject", parsed.subject, required=True)
-        _check_label("session", parsed.session, required=False)
-        row = new_epoch_set_row(study, parsed.subject, parsed.session, staged.sha256, staged.size, parsed.epochs)
+        subject = _checked_label("subject", parsed.subject)
+        if parsed.session is not None:
+            _checked_label("session", parsed.session)
+        row = new_epoch_set_row(study, subject, parsed.session, staged.sha256, staged.size, parsed.epochs)
         row.file_format = FileFormat.JSON.value
         return answer_upload(
             session, study, row, [staged], idempotency, lambda r: epoch_set_out(r, study.code), settings.max_attempts
         )
 
 
-def _check_label(key: str, value: str | None, *, required: bool) -> None:
-    if value is None and not required:
-        return
+def _checked_label(key: str, value: str | None) -> str:
+    """``value`` when it is a valid subject or session label; else 422 naming ``key``."""
     if value is None or not _SUBJECT.match(value):
         shown = "missing" if value is None else f"{value!r}, which does not match {SUBJECT_PATTERN}"
         raise Unprocessable(
             f"{key} is {shown}; give it as a short id such as sub-01",
             errors=[{"loc": ["body", key], "msg": f"{key} must match {SUBJECT_PATTERN}"}],
         )
+    return value

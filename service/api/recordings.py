@@ -9,7 +9,7 @@ import hashlib
 import json
 from collections.abc import Iterator
 from contextlib import contextmanager
-from typing import Annotated
+from typing import Annotated, TypeVar
 
 from fastapi import APIRouter, File, Form, Response, UploadFile, status
 from pydantic import BaseModel, Field, ValidationError
@@ -31,6 +31,7 @@ from service.storage.models import EpochSet
 
 router = APIRouter(prefix="/v1/studies/{code}/recordings", tags=["recordings"])
 RECORDING_SOURCE = "recording"
+Spec = TypeVar("Spec", bound=BaseModel)
 
 
 class RecordingOut(EpochSetOut):
@@ -57,7 +58,7 @@ def recording_out(row: EpochSet, study_code: str) -> RecordingOut:
     )
 
 
-def _parsed(model: type[BaseModel], text: str, field: str) -> BaseModel:
+def _parsed(model: type[Spec], text: str, field: str) -> Spec:
     try:
         return model.model_validate_json(text)
     except ValidationError as error:

@@ -2,6 +2,7 @@
 locked pipeline) and deleting one (refused while a run scores it; its blobs go once nothing names them)."""
 
 from collections.abc import Sequence
+from functools import partial
 
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
@@ -92,7 +93,7 @@ def delete_epoch_set(session: Session, blobs: BlobStore, row: EpochSet) -> None:
         raise _scored_conflict(epoch_set_id, []) from None
     session.commit()
     for name in blob_names:
-        blobs.discard(name, lambda name=name: blob_in_use(session, name))
+        blobs.discard(name, partial(blob_in_use, session, name))
 
 
 def _scored_conflict(epoch_set_id: str, run_ids: list[str]) -> Conflict:

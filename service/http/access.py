@@ -15,6 +15,7 @@ from typing import Annotated, Literal
 from fastapi import Depends, Request
 from fastapi.security import HTTPAuthorizationCredentials, HTTPBearer
 from sqlalchemy import ColumnElement, true
+from sqlalchemy.orm import InstrumentedAttribute
 
 from service.errors import Forbidden, NotFound, Unauthorized
 from service.http.deps import SessionDep
@@ -61,7 +62,7 @@ class Caller:
         if not self.is_admin:
             raise Forbidden("only an admin key may do this; ask the operator (epoch-assay keys create --role admin)")
 
-    def study_filter(self, study_id_column: ColumnElement[str]) -> ColumnElement[bool]:
+    def study_filter(self, study_id_column: InstrumentedAttribute[str]) -> ColumnElement[bool]:
         """A WHERE clause keeping only rows of the studies this caller covers."""
         return true() if self.study_id is None else study_id_column == self.study_id
 

@@ -4,6 +4,7 @@ from datetime import datetime
 from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
+from pydantic.config import JsonDict
 
 from epoch_assay.engine.errors import SpecError
 from epoch_assay.engine.grid import GridSpec, expand_grid
@@ -13,7 +14,7 @@ from epoch_assay.engine.selection import SelectionSpec
 
 RunStatus = Literal["queued", "running", "succeeded", "failed"]
 
-RUN_EXAMPLE = {
+RUN_EXAMPLE: JsonDict = {
     "study": "READ-01",
     "epoch_sets": ["es_3f9c0a1b7d2e4f60"],
     "pipelines": [
@@ -104,7 +105,7 @@ class ProgressDetail(BaseModel):
     eta_s: float | None = Field(description="Time left if the rest goes at the pace so far, in s.")
 
 
-RUN_OUT_EXAMPLE = {
+RUN_OUT_EXAMPLE: JsonDict = {
     "id": "run_0123456789abcdef",
     "study": "READ-01",
     "status": "running",
@@ -172,7 +173,7 @@ class PipelineResult(BaseModel):
     error: str | None = Field(None, description="Why this epoch set could not be scored with this pipeline.")
 
 
-RESULT_EXAMPLE = {
+RESULT_EXAMPLE: JsonDict = {
     "schema_version": 1,
     "run": "run_0123456789abcdef",
     "study": "READ-01",

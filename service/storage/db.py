@@ -2,6 +2,7 @@
 
 from collections.abc import Iterator
 from contextlib import contextmanager
+from typing import Any
 
 from sqlalchemy import Engine, create_engine, event, text
 from sqlalchemy.orm import Session, sessionmaker
@@ -18,7 +19,7 @@ def make_engine(url: str) -> Engine:
     return create_engine(url, pool_pre_ping=True)
 
 
-def _configure_sqlite_connection(dbapi_connection, _record) -> None:  # type: ignore[no-untyped-def]
+def _configure_sqlite_connection(dbapi_connection: Any, _record: Any) -> None:
     # WAL lets readers go on while a worker writes; the busy timeout makes concurrent
     # writers wait for the lock instead of failing with "database is locked".
     cursor = dbapi_connection.cursor()

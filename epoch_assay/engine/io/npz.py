@@ -71,6 +71,7 @@ def write_npz(epochs: EpochSet, path: Path) -> None:
     with open(path, "wb") as handle:
         np.savez(
             handle,
+            allow_pickle=False,
             data=epochs.data,
             sfreq=np.float64(epochs.sfreq),
             tmin=np.float64(epochs.tmin),
