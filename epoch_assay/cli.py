@@ -244,7 +244,7 @@ def cmd_copy_database(args: argparse.Namespace) -> int:
         print(f"{table.name:<24} {table.rows:>8} rows")
     print(
         f"copied {sum(t.rows for t in copied)} rows into {_without_password(args.to)}; blobs are copied apart "
-        "(see the README, Deployment)"
+        "(see docs/operations.md, Deployment)"
     )
     return 0
 

@@ -50,7 +50,8 @@ router = APIRouter(prefix="/v1/studies/{code}/epoch-sets", tags=["epoch sets"])
 def upload_epoch_set(
     code: str,
     file: Annotated[
-        UploadFile, File(description="An NPZ or MNE epochs (-epo.fif) file, told apart by content (see the README).")
+        UploadFile,
+        File(description="An NPZ or MNE epochs (-epo.fif) file, told apart by content (see docs/inputs.md)."),
     ],
     subject: Annotated[str, Form(pattern=SUBJECT_PATTERN, description="Subject id, e.g. sub-01.", examples=["sub-01"])],
     session: SessionDep,

@@ -65,7 +65,7 @@ def _parsed(model: type[Spec], text: str, field: str) -> Spec:
         problems = [{"loc": ["body", field, *item["loc"]], "msg": item["msg"]} for item in error.errors()]
         shown = "; ".join(f"{'.'.join(str(p) for p in item['loc'][1:])}: {item['msg']}" for item in problems[:5])
         raise Unprocessable(
-            f"{shown}. Give {field} as JSON, see the README's recordings section", errors=problems
+            f"{shown}. Give {field} as JSON, see docs/inputs.md, Continuous recordings", errors=problems
         ) from None
 
 

@@ -42,7 +42,9 @@ class RunCreate(BaseModel):
     pipelines: list[PipelineSpec] | None = Field(
         None, min_length=1, max_length=512, description="The pipelines to score; or give a grid instead."
     )
-    grid: GridSpec | None = Field(None, description="Factors whose levels combine into the pipelines (see README).")
+    grid: GridSpec | None = Field(
+        None, description="Factors whose levels combine into the pipelines (see docs/steps.md, Grids)."
+    )
     scoring: ScoringSpec
     selection: SelectionSpec | None = Field(None, description="How to choose a winner without circularity.")
 

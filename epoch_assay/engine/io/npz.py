@@ -1,4 +1,4 @@
-"""The NPZ epoch-set file: see the README section "Epoch-set file (NPZ)".
+"""The NPZ epoch-set file: see "Epoch-set file (NPZ)" in docs/inputs.md.
 
 An NPZ file is a zip archive of ``.npy`` members, one per key:
 

@@ -66,7 +66,7 @@ def test_a_json_epoch_set_without_a_subject_is_422(client, study):
 
 
 def test_a_json_body_over_the_size_cap_is_413(client, study):
-    # The default JSON body cap is 8 MiB (README settings table).
+    # The default JSON body cap is 8 MiB (settings table in docs/operations.md).
     answer = client.post(
         f"/v1/studies/{study}/epoch-sets",
         content=b'{"data": [' + b"0.0," * (3 * 1024 * 1024) + b"0]}",
