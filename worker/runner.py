@@ -144,6 +144,7 @@ class Worker:
             stop_delivery.set()
             delivery.join(timeout=self.settings.webhook_timeout_seconds + 5)
             self.store.forget_worker(self.worker_id)
+            self.store.close()
             log.info("worker %s stopped", self.worker_id)
 
     def run_one(self) -> bool:

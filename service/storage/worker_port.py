@@ -81,6 +81,10 @@ class WorkerStore:
         self._database = Database(settings.resolved_database_url)
         self._blobs = open_blob_store(settings)
 
+    def close(self) -> None:
+        """Close the database connections (the worker stops)."""
+        self._database.dispose()
+
     def schema_is_current(self) -> bool:
         """Whether the database has the schema this code expects (migrated to head)."""
         return is_at_head(self._database.engine, self._database.url)
