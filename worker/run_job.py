@@ -19,7 +19,6 @@ from typing import Any
 
 from pydantic import TypeAdapter
 
-from epoch_assay.engine import ENGINE_VERSION
 from epoch_assay.engine.epochs import EpochSet
 from epoch_assay.engine.errors import SpecError
 from epoch_assay.engine.grid import GridSpec, expand_grid
@@ -31,7 +30,7 @@ from epoch_assay.engine.multiverse_report import (
     selection_document,
 )
 from epoch_assay.engine.pipeline import PipelineSpec, apply_pipeline
-from epoch_assay.engine.provenance import StepRecord
+from epoch_assay.engine.provenance import StepProvenanceBase
 from epoch_assay.engine.recording import ContinuousInput, apply_two_stage
 from epoch_assay.engine.scoring import eeg_channel_names, score_epochs
 from epoch_assay.engine.scoring_spec import ScoringSpec
@@ -62,7 +61,6 @@ def _hash_json(value: Any) -> str:
 def software_versions() -> dict[str, str]:
     versions = {name: version(name) for name in REPORTED_PACKAGES}
     versions["python"] = platform.python_version()
-    versions["engine"] = ENGINE_VERSION
     return versions
 
 
@@ -92,7 +90,7 @@ def score_leaf(leaf: LeafOutput, source: EpochSet, scoring: ScoringSpec, ref: Ep
 def _scored_entry(
     pipeline: PipelineSpec,
     processed: EpochSet,
-    records: list[StepRecord],
+    records: list[StepProvenanceBase],
     uploaded: tuple[str, ...],
     scoring: ScoringSpec,
     ref: EpochSetRef,
