@@ -25,6 +25,7 @@ class EpochSetMeta:
     ch_types: tuple[str, ...]
     condition_counts: dict[str, int]
     has_positions: bool = False
+    # Channels marked bad; empty where unknown (the service does not store them with an epoch set).
     bads: frozenset[str] = frozenset()
 
     @property

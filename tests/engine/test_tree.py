@@ -9,6 +9,7 @@ from epoch_assay.engine.grid import GridSpec, expand_grid
 from epoch_assay.engine.pipeline import PipelineSpec, apply_pipeline
 from epoch_assay.engine.steps.base import Step
 from epoch_assay.engine.steps.baseline import Baseline
+from epoch_assay.engine.steps.ica import Ica
 from epoch_assay.engine.tree import StepOutput, build_tree, execute_tree, prefix_cache_key
 
 SHA = "0" * 64
@@ -139,3 +140,14 @@ def test_record_names_the_step_version_that_made_it(epochs, monkeypatch):
     pipeline = PipelineSpec.model_validate({"name": "p", "steps": [{"step": "baseline", "window_s": [-0.1, 0.0]}]})
     (leaf,) = execute_tree(build_tree([pipeline]), epochs, SHA)
     assert leaf.records[0].version == 7
+
+
+def test_scikit_learn_is_in_the_key_of_fastica_only(monkeypatch):
+    fastica, infomax = Ica(method="fastica"), Ica(method="infomax")
+    before = prefix_cache_key(SHA, [fastica]), prefix_cache_key(SHA, [infomax])
+    installed = provenance.installed_version
+    monkeypatch.setattr(
+        provenance, "installed_version", lambda name: "99.0" if name == "scikit-learn" else installed(name)
+    )
+    assert prefix_cache_key(SHA, [fastica]) != before[0]
+    assert prefix_cache_key(SHA, [infomax]) == before[1]
