@@ -21,6 +21,7 @@ import time
 import zipfile
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 from pydantic import TypeAdapter
@@ -87,7 +88,7 @@ class DiskStepCache:
     def put(self, key: str, output: StepOutput) -> None:
         if output.record.seconds < self.min_step_seconds:
             return
-        arrays = _arrays_from_output(output)
+        arrays: dict[str, Any] = _arrays_from_output(output)  # Any: savez takes the names as keywords
         if sum(array.nbytes for array in arrays.values()) > self.max_bytes:
             return
         handle, temporary = tempfile.mkstemp(dir=self.folder, prefix=f".{key}.", suffix=".tmp")
