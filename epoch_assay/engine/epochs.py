@@ -25,6 +25,8 @@ class EpochSetMeta:
     ch_types: tuple[str, ...]
     condition_counts: dict[str, int]
     has_positions: bool = False
+    # Channels marked bad; empty where unknown (the service does not store them with an epoch set).
+    bads: frozenset[str] = frozenset()
 
     @property
     def tmax(self) -> float:
@@ -116,6 +118,7 @@ class EpochSet:
             ch_types=self.ch_types,
             condition_counts=self.condition_counts(),
             has_positions=self.positions is not None and bool(np.isfinite(self.positions).all(axis=1).any()),
+            bads=self.bads,
         )
 
     def with_changes(self, **changes: Any) -> "EpochSet":

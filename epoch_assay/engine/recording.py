@@ -21,10 +21,8 @@ from epoch_assay.engine.io.detect import RECORDING_FORMATS, FileFormat, detect_f
 from epoch_assay.engine.io.edf import read_continuous
 from epoch_assay.engine.io.events import Events, read_events_tsv
 from epoch_assay.engine.pipeline import PipelineSpec, apply_pipeline
-from epoch_assay.engine.provenance import StepRecord
+from epoch_assay.engine.provenance import Stage, StepProvenanceBase
 
-CONTINUOUS_STAGE = "continuous"
-EPOCHS_STAGE = "epochs"
 ChannelType = Literal["eeg", "eog", "misc", "stim"]
 
 
@@ -220,17 +218,17 @@ def load_recording(
     return ContinuousInput(recording=recording, events=events, epoching=epoching, file_format=continuous.file_format)
 
 
-def apply_two_stage(pipeline: PipelineSpec, source: ContinuousInput) -> tuple[EpochSet, list[StepRecord]]:
+def apply_two_stage(pipeline: PipelineSpec, source: ContinuousInput) -> tuple[EpochSet, list[StepProvenanceBase]]:
     """Run the continuous-stage steps on the recording, epoch it, then run the epochs-stage steps."""
-    continuous_steps = [step for step in pipeline.steps if step.stage == CONTINUOUS_STAGE]
-    epochs_steps = [step for step in pipeline.steps if step.stage != CONTINUOUS_STAGE]
+    continuous_steps = [step for step in pipeline.steps if step.stage == Stage.CONTINUOUS]
+    epochs_steps = [step for step in pipeline.steps if step.stage != Stage.CONTINUOUS]
     recording, continuous_records = apply_pipeline(
         pipeline.model_copy(update={"steps": continuous_steps}), source.recording
     )
     for record in continuous_records:
-        record.stage = CONTINUOUS_STAGE
+        record.stage = Stage.CONTINUOUS
     epochs = epoch_recording(recording, source.events, source.epoching)
     epochs, epochs_records = apply_pipeline(pipeline.model_copy(update={"steps": epochs_steps}), epochs)
     for record in epochs_records:
-        record.stage = EPOCHS_STAGE
+        record.stage = Stage.EPOCHS
     return epochs, continuous_records + epochs_records

@@ -17,7 +17,7 @@ muscle
 """
 
 import importlib.util
-from typing import ClassVar, Literal
+from typing import Any, ClassVar, Literal
 
 import mne
 import numpy as np
@@ -25,7 +25,7 @@ from pydantic import BaseModel, ConfigDict, Field, field_validator
 
 from epoch_assay.engine.epochs import SCORED_CHANNEL_TYPES, EpochSet, EpochSetMeta
 from epoch_assay.engine.errors import SpecError
-from epoch_assay.engine.provenance import ComponentRemoved, StepRecord
+from epoch_assay.engine.provenance import NUMERICAL_PACKAGES, Stage, StepOutputs, StepProvenanceBase
 from epoch_assay.engine.steps.base import Step
 from epoch_assay.engine.steps.filters import design_iir, iir_zero_phase
 from epoch_assay.engine.steps.mne_bridge import MNE_QUIET, to_mne_epochs
@@ -54,6 +54,27 @@ class OcularCriterion(_Threshold):
 
 class MuscleCriterion(_Threshold):
     threshold: float = Field(-0.5, gt=-5.0, lt=5.0, description="Lowest log-log spectral slope over 7-45 Hz removed.")
+
+
+class ComponentRemoved(BaseModel):
+    """An ICA component taken out of the data."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+    index: int = Field(ge=0, description="Index of the component in the decomposition.")
+    kind: Literal["ocular", "muscle"] = Field(description="Which criterion removed it.")
+    score: float = Field(
+        description="The criterion's score: |r| with an EOG (or frontal) channel for ocular, the log-log spectral "
+        "slope for muscle."
+    )
+
+
+class IcaOutputs(StepOutputs):
+    """What ICA reports."""
+
+    components_removed: list[ComponentRemoved] = Field(
+        default_factory=list, description="Components removed, by index."
+    )
 
 
 def data_rank(data: np.ndarray) -> int:
@@ -90,7 +111,12 @@ class Ica(Step):
     """Decompose the good EEG channels by ICA and remove ocular and muscle components."""
 
     step: Literal["ica"] = "ica"
-    stage: ClassVar[str] = "continuous"
+    stage: ClassVar[Stage] = Stage.CONTINUOUS
+    Outputs: ClassVar[type[StepOutputs]] = IcaOutputs
+    examples: ClassVar[tuple[dict[str, Any], ...]] = (
+        {"n_components": 6, "seed": 1},
+        {"n_components": 0.9, "seed": 2, "ocular": None, "muscle": {"threshold": -0.5}},
+    )
 
     method: IcaMethod = Field("infomax", description="Which MNE ICA algorithm fits the decomposition.")
     n_components: int | float = Field(
@@ -132,7 +158,11 @@ class Ica(Step):
             )
         return meta
 
-    def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepRecord]:
+    def dependencies(self) -> tuple[str, ...]:
+        package = _METHOD_PACKAGES.get(self.method)
+        return NUMERICAL_PACKAGES if package is None else (*NUMERICAL_PACKAGES, _PACKAGE_NAMES[package])
+
+    def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepProvenanceBase]:
         picks = epochs.picks(SCORED_CHANNEL_TYPES, exclude_bads=True)
         mne_epochs = to_mne_epochs(epochs, picks)
         rank = data_rank(mne_epochs.get_data())
