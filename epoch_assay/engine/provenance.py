@@ -18,7 +18,8 @@ class StepRecord:
     """One record per applied step; fields stay empty where nothing changed.
 
     ``seconds`` is the wall time the step took; ``stage`` is ``"epochs"`` for steps run on
-    epoched data and ``"continuous"`` for steps run on a recording before epoching.
+    epoched data and ``"continuous"`` for steps run on a recording before epoching; ``run`` is
+    the run (1-based) a continuous-stage record belongs to when a session has several runs.
     """
 
     step: str
@@ -31,6 +32,7 @@ class StepRecord:
     warnings: list[str] = field(default_factory=list)
     seconds: float = 0.0
     stage: str = "epochs"
+    run: int | None = None
 
     def to_json(self) -> dict[str, Any]:
         return asdict(self)
