@@ -17,7 +17,8 @@ class ComponentRemoved:
 class StepRecord:
     """One record per applied step; fields stay empty where nothing changed.
 
-    ``seconds`` is the wall time the step took; ``stage`` is ``"epochs"`` for steps run on
+    ``trials_removed_ids`` lists the ``trial_id`` of each removed trial when the upload gave trial
+    ids. ``seconds`` is the wall time the step took; ``stage`` is ``"epochs"`` for steps run on
     epoched data and ``"continuous"`` for steps run on a recording before epoching; ``run`` is
     the run (1-based) a continuous-stage record belongs to when a session has several runs.
     """
@@ -28,6 +29,7 @@ class StepRecord:
     channels_dropped: list[str] = field(default_factory=list)
     channels_interpolated: list[str] = field(default_factory=list)
     trials_removed: dict[str, int] = field(default_factory=dict)
+    trials_removed_ids: list[str] = field(default_factory=list)
     components_removed: list[ComponentRemoved] = field(default_factory=list)
     warnings: list[str] = field(default_factory=list)
     seconds: float = 0.0

@@ -110,3 +110,12 @@ def test_no_temporary_files_are_left_after_a_put(tmp_path):
 def test_keys_that_are_not_digests_are_refused(tmp_path):
     with pytest.raises(ValueError):
         DiskStepCache(tmp_path, max_bytes=10**9).get("../escape")
+
+
+def test_an_entry_keeps_the_per_trial_arrays(tmp_path):
+    cache = DiskStepCache(tmp_path, max_bytes=10**9)
+    stored = output(3)
+    ids = np.array([f"t{i}" for i in range(stored.epochs.n_trials)])
+    stored = StepOutput(epochs=stored.epochs.with_changes(trial_arrays={"trial_id": ids}), record=stored.record)
+    cache.put(key(3), stored)
+    assert cache.get(key(3)).epochs.trial_arrays["trial_id"].tolist() == ids.tolist()

@@ -24,7 +24,7 @@ from pathlib import Path
 
 import numpy as np
 
-from epoch_assay.engine.epochs import EpochSet
+from epoch_assay.engine.epochs import TRIAL_ARRAY_PREFIX, EpochSet
 from epoch_assay.engine.provenance import ComponentRemoved, StepRecord
 from epoch_assay.engine.tree import StepOutput
 
@@ -148,7 +148,7 @@ def _arrays_from_output(output: StepOutput) -> dict[str, np.ndarray]:
     }
     if epochs.positions is not None:
         arrays["positions"] = epochs.positions
-    return arrays
+    return arrays | epochs.trial_arrays
 
 
 def _output_from_arrays(arrays: dict[str, np.ndarray]) -> StepOutput:
@@ -161,6 +161,7 @@ def _output_from_arrays(arrays: dict[str, np.ndarray]) -> StepOutput:
         labels=arrays["labels"],
         positions=arrays.get("positions"),
         bads=frozenset(arrays["bads"].tolist()),
+        trial_arrays={key: array for key, array in arrays.items() if key.startswith(TRIAL_ARRAY_PREFIX)},
     )
     fields = json.loads(str(arrays["record"]))
     fields["components_removed"] = [ComponentRemoved(**item) for item in fields["components_removed"]]

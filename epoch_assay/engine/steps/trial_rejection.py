@@ -22,7 +22,7 @@ import numpy as np
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 from scipy import fft, signal
 
-from epoch_assay.engine.epochs import EpochSet, EpochSetMeta
+from epoch_assay.engine.epochs import TRIAL_ID_KEY, EpochSet, EpochSetMeta
 from epoch_assay.engine.errors import SpecError
 from epoch_assay.engine.provenance import StepRecord
 from epoch_assay.engine.steps.base import Step
@@ -130,6 +130,8 @@ class TrialRejection(Step):
             for label, count in removed.items()
             if count > WARN_REMOVED_FRACTION * before[label]
         ]
-        keep = ~rejected
-        result = epochs.with_changes(data=epochs.data[keep], labels=epochs.labels[keep])
-        return result, self.record(trials_removed=removed, warnings=warnings)
+        ids = epochs.trial_arrays.get(TRIAL_ID_KEY)
+        removed_ids = [] if ids is None else [str(value) for value in ids[rejected].tolist()]
+        return epochs.select_trials(~rejected), self.record(
+            trials_removed=removed, trials_removed_ids=removed_ids, warnings=warnings
+        )
