@@ -20,14 +20,13 @@ from pathlib import Path
 
 import mne
 
-from epoch_assay.engine.errors import EpochSetFormatError, EpochSetTooLargeError
+from epoch_assay.engine.errors import EpochSetFormatError
 from epoch_assay.engine.io.detect import FileFormat
-from epoch_assay.engine.io.raw_mne import ContinuousFile, continuous_from_raw
+from epoch_assay.engine.io.raw_mne import ContinuousFile, continuous_from_raw, load_within
 
 HEADER_NAME, DATA_NAME, MARKERS_NAME = "recording.vhdr", "recording.eeg", "recording.vmrk"
 MAX_REFERENCE_CHARS = 255
 _REFERENCE = re.compile(rb"^(DataFile|MarkerFile)=([^\r\n]*)", re.MULTILINE)
-_BYTES_PER_SAMPLE = 8
 _WRITE_AGAIN = "Export the recording again as BrainVision and upload its .vhdr, .eeg and .vmrk files unchanged"
 
 
@@ -83,13 +82,7 @@ def read_brainvision(
         raw = mne.io.read_raw_brainvision(folder / HEADER_NAME, preload=False, verbose="error")
     except Exception:
         raise EpochSetFormatError("file", "MNE cannot read the BrainVision header or markers", _WRITE_AGAIN) from None
-    declared = len(raw.ch_names) * raw.n_times * _BYTES_PER_SAMPLE
-    if declared > max_array_bytes:
-        raise EpochSetTooLargeError(declared, max_array_bytes)
-    try:
-        raw.load_data(verbose="error")
-    except Exception:
-        raise EpochSetFormatError(
-            "file", "the BrainVision data file is shorter or other than its header declares", _WRITE_AGAIN
-        ) from None
+    load_within(
+        raw, max_array_bytes, "the BrainVision data file is shorter or other than its header declares", _WRITE_AGAIN
+    )
     return continuous_from_raw(raw, FileFormat.BRAINVISION)

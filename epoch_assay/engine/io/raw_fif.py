@@ -12,13 +12,12 @@ from pathlib import Path
 
 import mne
 
-from epoch_assay.engine.errors import EpochSetFormatError, EpochSetTooLargeError
+from epoch_assay.engine.errors import EpochSetFormatError
 from epoch_assay.engine.io.detect import FileFormat, named_for_reader
 from epoch_assay.engine.io.fif_safety import refuse_file_references
-from epoch_assay.engine.io.raw_mne import ContinuousFile, continuous_from_raw
+from epoch_assay.engine.io.raw_mne import ContinuousFile, continuous_from_raw, load_within
 
 READER_NAME = "recording_raw.fif"
-_BYTES_PER_SAMPLE = 8
 _SAVE_AGAIN = "Save the recording again with mne.io.Raw.save (a file ending in _raw.fif) and upload that file"
 
 
@@ -34,13 +33,5 @@ def read_raw_fif(path: Path, *, max_array_bytes: int) -> ContinuousFile:
             raise EpochSetFormatError(
                 "file", "the file starts like FIF but MNE cannot read it as a continuous recording", _SAVE_AGAIN
             ) from None
-        declared = len(raw.ch_names) * raw.n_times * _BYTES_PER_SAMPLE
-        if declared > max_array_bytes:
-            raise EpochSetTooLargeError(declared, max_array_bytes)
-        try:
-            raw.load_data(verbose="error")
-        except Exception:
-            raise EpochSetFormatError(
-                "file", "the recording's data could not be read: the file is shorter than it declares", _SAVE_AGAIN
-            ) from None
+        load_within(raw, max_array_bytes, "the recording's data end before the file says they do", _SAVE_AGAIN)
     return continuous_from_raw(raw, FileFormat.FIF)

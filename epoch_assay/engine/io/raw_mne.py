@@ -15,12 +15,14 @@ import mne
 import numpy as np
 
 from epoch_assay.engine.epochs import EpochSet
+from epoch_assay.engine.errors import EpochSetFormatError, EpochSetTooLargeError
 from epoch_assay.engine.io.detect import FileFormat
 from epoch_assay.engine.io.events import Events, events_from_lists
 from epoch_assay.engine.io.npz import epoch_set_from_arrays
 
 RECORDING_LABEL = "recording"
 KEPT_CHANNEL_TYPES = ("eeg", "eog", "stim")
+_FLOAT64_BYTES = 8
 
 
 @dataclass(frozen=True)
@@ -34,6 +36,22 @@ class ContinuousFile:
     recording: EpochSet
     annotations: Events
     file_format: FileFormat
+
+
+def load_within(raw: mne.io.BaseRaw, max_array_bytes: int, problem: str, fix: str) -> None:
+    """Load an opened, not yet loaded ``raw``, refusing it first when its samples would exceed the limit.
+
+    A failure to load (a data file shorter or other than its header says) is refused with
+    ``problem`` and ``fix``; MNE's own message is not passed on (it can hold a server path).
+    """
+    declared = len(raw.ch_names) * raw.n_times * _FLOAT64_BYTES
+    if declared > max_array_bytes:
+        raise EpochSetTooLargeError(declared, max_array_bytes)
+    # The data are untrusted; MNE raises many types on damaged input, each meaning "unreadable".
+    try:
+        raw.load_data(verbose="error")
+    except Exception:
+        raise EpochSetFormatError("file", problem, fix) from None
 
 
 def continuous_from_raw(raw: mne.io.BaseRaw, file_format: FileFormat) -> ContinuousFile:
