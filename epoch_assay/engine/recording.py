@@ -362,7 +362,9 @@ def apply_channel_spec(recording: EpochSet, channels: ChannelSpec, sidecars: Ses
 
 def read_sidecars(session: SessionFiles) -> SessionSidecars:
     """The channel types, bad channels and positions that a session's BIDS sidecars give."""
-    types, bads, positions = {}, (), {}
+    types: dict[str, str] = {}
+    bads: tuple[str, ...] = ()
+    positions: dict[str, tuple[float, float, float]] = {}
     if session.channels_tsv is not None:
         described = read_channels_tsv(session.channels_tsv)
         types, bads = described.types, described.bads
@@ -441,7 +443,8 @@ def load_session(
             "Take the events from the events.tsv files (leave events_from out) or from the recordings (send none)",
         )
     sidecars = read_sidecars(session)
-    runs, total_bytes = [], 0
+    runs: list[RecordingRun] = []
+    total_bytes = 0
     for number, files in enumerate(session.runs, start=1):
         continuous = read_run_file(files, max_array_bytes=max_array_bytes)
         recording = apply_channel_spec(continuous.recording, channels, sidecars)

@@ -19,7 +19,7 @@ import json
 import tempfile
 from contextlib import ExitStack
 from pathlib import Path
-from typing import Annotated
+from typing import Annotated, TypeVar
 
 from fastapi import APIRouter, Depends, File, Form, Request, Response, UploadFile, status
 from pydantic import BaseModel, Field, ValidationError
@@ -48,6 +48,7 @@ from service.errors import Unprocessable, format_error_to_unprocessable, too_lar
 from service.schemas.epoch_sets import SUBJECT_PATTERN, EpochSetOut
 from service.storage.models import EpochSet
 
+Spec = TypeVar("Spec", bound=BaseModel)
 router = APIRouter(prefix="/v1/studies/{code}/recordings", tags=["recordings"])
 RECORDING_SOURCE = "recording"
 MIXED_FORMATS = "mixed"
@@ -125,7 +126,7 @@ def _found_in_runs(source: ContinuousInput) -> dict:
     }
 
 
-def _parsed(model: type[BaseModel], text: str, field: str) -> BaseModel:
+def _parsed(model: type[Spec], text: str, field: str) -> Spec:
     try:
         return model.model_validate_json(text)
     except ValidationError as error:

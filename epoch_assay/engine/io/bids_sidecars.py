@@ -95,12 +95,13 @@ def read_electrodes_tsv(path: Path, metres_per_unit: float) -> dict[str, tuple[f
     table = read_tsv(path, "electrodes", ("name", "x", "y", "z"), _ELECTRODES_FIX)
     names = _unique_names(table.column("name"), table.line_numbers, "electrodes", _ELECTRODES_FIX)
     columns = [table.column(axis) for axis in ("x", "y", "z")]
-    positions = {}
+    positions: dict[str, tuple[float, float, float]] = {}
     for index, (name, line) in enumerate(zip(names, table.line_numbers, strict=True)):
         texts = [column[index] for column in columns]
         if all(text == MISSING for text in texts):
             continue
-        positions[name] = tuple(_coordinate(text, name, line) * metres_per_unit for text in texts)
+        x, y, z = (_coordinate(text, name, line) * metres_per_unit for text in texts)
+        positions[name] = (x, y, z)
     return positions
 
 

@@ -72,9 +72,7 @@ def unpacked_bundle(path: Path) -> Iterator[SessionFiles]:
             )
         root = Path(folder)
 
-        def extracted(member: str | None) -> Path | None:
-            if member is None:
-                return None
+        def extracted(member: str) -> Path:
             target = root / member.replace("/", "_")
             with archive.open(member) as source, open(target, "wb") as out:
                 while chunk := source.read(_CHUNK_BYTES):
@@ -85,11 +83,12 @@ def unpacked_bundle(path: Path) -> Iterator[SessionFiles]:
             RunFiles(
                 file_format=FileFormat(run["format"]),
                 files={role: extracted(member) for role, member in run["files"].items()},
-                events=extracted(run["events"]),
+                events=None if run["events"] is None else extracted(run["events"]),
             )
             for run in manifest["runs"]
         )
-        yield SessionFiles(runs=runs, **{role: extracted(manifest.get(role)) for role in SIDECARS})
+        sidecars = {role: extracted(manifest[role]) for role in SIDECARS if manifest.get(role) is not None}
+        yield SessionFiles(runs=runs, **sidecars)
 
 
 def _add(archive: zipfile.ZipFile, member: str, path: Path) -> None:
