@@ -52,6 +52,8 @@ Spec = TypeVar("Spec", bound=BaseModel)
 router = APIRouter(prefix="/v1/studies/{code}/recordings", tags=["recordings"])
 RECORDING_SOURCE = "recording"
 MIXED_FORMATS = "mixed"
+# common practice: a channel spec with renames, types and positions of a few hundred channels is tens of kB
+MAX_SPEC_BYTES = 1 << 20
 # Optional file parts: multipart field → (role in SessionFiles, file name reported back).
 SIDECAR_FIELDS = {
     "channels": ("channels_tsv", "channels.tsv"),
@@ -158,9 +160,22 @@ def _sidecar_parts(form: FormData) -> tuple[str, dict[str, StarletteUpload]]:
             raise Unprocessable(f"{field} must be a file part. Send it as -F {field}=@{name}")
         if texts:
             spec_text = texts[0]
-        if uploads:
+        if uploads and field == "channels" and _is_json(uploads[0]):
+            if texts:
+                raise Unprocessable("channels was sent twice as a JSON spec. Send the spec once, see docs/inputs.md")
+            spec_text = uploads[0].file.read(MAX_SPEC_BYTES + 1).decode("utf-8", errors="replace")
+            if len(spec_text) > MAX_SPEC_BYTES:
+                raise Unprocessable(f"the channels spec is larger than {MAX_SPEC_BYTES} bytes. Send a smaller spec")
+        elif uploads:
             uploads_by_role[role] = uploads[0]
     return spec_text, uploads_by_role
+
+
+def _is_json(upload: StarletteUpload) -> bool:
+    """Whether a file part holds a JSON document (a channel spec sent as a file) rather than a TSV."""
+    head = upload.file.read(64)
+    upload.file.seek(0)
+    return head.lstrip().startswith(b"{")
 
 
 def _identity(bundle_sha256: str, epoching: EpochingSpec, channels: ChannelSpec) -> str:

@@ -9,7 +9,8 @@ import pytest
 from scipy import stats
 
 from tests.api.helpers import SCORING, run_and_wait
-from tests.support.recording_files import events_tsv, known_recording, recording_bytes
+from tests.support.epoch_files import small_epochs
+from tests.support.recording_files import events_tsv, known_recording, mne_epochs_bytes, recording_bytes
 from tests.support.session_files import bdf_bytes, status_words, write_brainvision, write_raw_fif
 
 EPOCHING = {"tmin": -0.2, "tmax": 0.6, "conditions": {"a": ["1"], "b": ["2"]}}
@@ -217,3 +218,16 @@ def test_a_bad_session_input_is_refused_with_422_saying_what_to_fix_and_no_serve
     detail = answer.json()["detail"]
     assert fragment in detail, (case, detail)
     assert "/tmp" not in detail and "epoch-assay-" not in detail, (case, detail)
+
+
+def test_a_channel_spec_sent_as_a_json_file_part_is_read_as_the_spec(client, study, tmp_path):
+    spec = json.dumps({"rename": {"Pz": "POz"}, "types": {"Fz": "eog"}}).encode()
+    files = [*_brainvision_parts(tmp_path, 60), ("channels", "channels.json", spec)]
+    answer = post_session(client, study, files, BRAINVISION_EPOCHING)
+    assert answer.status_code == 201, answer.text
+    assert answer.json()["ch_names"] == ["Fz", "Cz", "POz"] and answer.json()["sidecars"] == []
+
+
+def test_an_epochs_file_sent_as_a_recording_is_refused_pointing_to_the_epoch_sets_route(client, study, tmp_path):
+    answer = post_session(client, study, [("file", "x-epo.fif", mne_epochs_bytes(small_epochs(seed=61), tmp_path))])
+    assert answer.status_code == 422 and "epoch-sets" in answer.json()["detail"]

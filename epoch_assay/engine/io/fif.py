@@ -18,7 +18,10 @@ from epoch_assay.engine.io.npz import epoch_set_from_arrays
 from epoch_assay.engine.io.raw_mne import KEPT_CHANNEL_TYPES, channel_positions
 
 _BYTES_PER_SAMPLE = 8
-_SAVE_AGAIN = "Save the epochs again with mne.Epochs.save (a file ending in -epo.fif) and upload that file"
+_SAVE_AGAIN = (
+    "Save the epochs again with mne.Epochs.save (a file ending in -epo.fif) and upload that file; a continuous "
+    "recording (_raw.fif) goes to POST /v1/studies/{code}/recordings with an epoching spec"
+)
 
 
 def read_fif_epochs(path: Path, *, max_array_bytes: int) -> EpochSet:

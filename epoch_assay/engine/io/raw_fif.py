@@ -18,7 +18,10 @@ from epoch_assay.engine.io.fif_safety import refuse_file_references
 from epoch_assay.engine.io.raw_mne import ContinuousFile, continuous_from_raw, load_within
 
 READER_NAME = "recording_raw.fif"
-_SAVE_AGAIN = "Save the recording again with mne.io.Raw.save (a file ending in _raw.fif) and upload that file"
+_SAVE_AGAIN = (
+    "Save the recording again with mne.io.Raw.save (a file ending in _raw.fif) and upload that file; "
+    "an epochs file (-epo.fif) goes to POST /v1/studies/{code}/epoch-sets"
+)
 
 
 def read_raw_fif(path: Path, *, max_array_bytes: int) -> ContinuousFile:
