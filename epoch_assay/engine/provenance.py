@@ -55,6 +55,11 @@ class StepProvenanceBase(BaseModel):
         description="Wall time the step took, in s (for an output taken from the step cache: when computed).",
     )
     stage: Stage = Field(Stage.EPOCHS, description="Whether the step ran on the recording or on the epochs.")
+    run: int | None = Field(
+        None,
+        ge=1,
+        description="The run (1-based) of a session a continuous-stage record belongs to; null for one run.",
+    )
 
     def to_json(self) -> dict[str, Any]:
         """The record as JSON-compatible Python values."""

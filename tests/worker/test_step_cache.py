@@ -139,3 +139,12 @@ def test_an_entry_whose_record_no_step_has_is_a_miss(tmp_path):
     with path.open("wb") as stream:
         np.savez(stream, **arrays)
     assert cache.get(key(1)) is None and not path.exists()
+
+
+def test_an_entry_keeps_the_per_trial_arrays(tmp_path):
+    cache = DiskStepCache(tmp_path, max_bytes=10**9)
+    stored = output(3)
+    ids = np.array([f"t{i}" for i in range(stored.epochs.n_trials)])
+    stored = StepOutput(epochs=stored.epochs.with_changes(trial_arrays={"trial_id": ids}), record=stored.record)
+    cache.put(key(3), stored)
+    assert cache.get(key(3)).epochs.trial_arrays["trial_id"].tolist() == ids.tolist()

@@ -26,7 +26,7 @@ from typing import Any
 import numpy as np
 from pydantic import TypeAdapter
 
-from epoch_assay.engine.epochs import EpochSet
+from epoch_assay.engine.epochs import TRIAL_ARRAY_PREFIX, EpochSet
 from epoch_assay.engine.steps import StepProvenance
 from epoch_assay.engine.tree import StepOutput
 
@@ -152,7 +152,7 @@ def _arrays_from_output(output: StepOutput) -> dict[str, np.ndarray]:
     }
     if epochs.positions is not None:
         arrays["positions"] = epochs.positions
-    return arrays
+    return arrays | epochs.trial_arrays
 
 
 def _output_from_arrays(arrays: dict[str, np.ndarray]) -> StepOutput:
@@ -165,5 +165,6 @@ def _output_from_arrays(arrays: dict[str, np.ndarray]) -> StepOutput:
         labels=arrays["labels"],
         positions=arrays.get("positions"),
         bads=frozenset(arrays["bads"].tolist()),
+        trial_arrays={key: array for key, array in arrays.items() if key.startswith(TRIAL_ARRAY_PREFIX)},
     )
     return StepOutput(epochs=epochs, record=_RECORD.validate_json(str(arrays["record"])))

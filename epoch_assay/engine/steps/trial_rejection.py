@@ -22,7 +22,7 @@ import numpy as np
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 from scipy import fft, signal
 
-from epoch_assay.engine.epochs import EpochSet, EpochSetMeta
+from epoch_assay.engine.epochs import TRIAL_ID_KEY, EpochSet, EpochSetMeta
 from epoch_assay.engine.errors import SpecError
 from epoch_assay.engine.provenance import StepOutputs, StepProvenanceBase
 from epoch_assay.engine.steps.base import DataDependentField, Step
@@ -101,6 +101,10 @@ class TrialRejectionOutputs(StepOutputs):
     trials_removed: dict[str, int] = Field(
         default_factory=dict, description="Trials removed, by condition label; conditions that lost none are left out."
     )
+    trials_removed_ids: list[str] = Field(
+        default_factory=list,
+        description="The trial_id of each removed trial, when the upload gave trial ids (NPZ trial_id); else empty.",
+    )
 
 
 class TrialRejection(Step):
@@ -146,6 +150,8 @@ class TrialRejection(Step):
             for label, count in removed.items()
             if count > WARN_REMOVED_FRACTION * before[label]
         ]
-        keep = ~rejected
-        result = epochs.with_changes(data=epochs.data[keep], labels=epochs.labels[keep])
-        return result, self.record(trials_removed=removed, warnings=warnings)
+        ids = epochs.trial_arrays.get(TRIAL_ID_KEY)
+        removed_ids = [] if ids is None else [str(value) for value in ids[rejected].tolist()]
+        return epochs.select_trials(~rejected), self.record(
+            trials_removed=removed, trials_removed_ids=removed_ids, warnings=warnings
+        )
