@@ -15,7 +15,7 @@ import numpy as np
 from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
 
 from epoch_assay.engine.epochs import EpochSet
-from epoch_assay.engine.errors import EpochSetFormatError
+from epoch_assay.engine.errors import EpochSetFormatError, EpochSetTooLargeError
 from epoch_assay.engine.io.channels import checked_positions, merged_positions, positions_from_montage
 from epoch_assay.engine.io.detect import RECORDING_FORMATS, FileFormat, detect_format
 from epoch_assay.engine.io.edf import read_continuous
@@ -163,6 +163,16 @@ def plan_epochs(recording: EpochSet, events: Events, epoching: EpochingSpec) -> 
     )
 
 
+_EPOCH_BYTES_PER_SAMPLE = 8  # float64
+
+
+def check_epochs_size(plan: EpochPlan, n_channels: int, max_array_bytes: int) -> None:
+    """Refuse a cut whose epochs (float64, n_trials × n_channels × n_times) would exceed ``max_array_bytes``."""
+    declared = plan.first_samples.shape[0] * n_channels * plan.n_times * _EPOCH_BYTES_PER_SAMPLE
+    if declared > max_array_bytes:
+        raise EpochSetTooLargeError(declared, max_array_bytes)
+
+
 def epoch_recording(recording: EpochSet, events: Events, epoching: EpochingSpec) -> EpochSet:
     """Cut a one-trial recording into epochs, shape (n_trials, n_channels, n_times), in V.
 
@@ -206,6 +216,7 @@ def load_recording(
     """Read a recording file (EDF/BDF, told apart by content) and its events; check that it can be epoched.
 
     Events come from ``events_path`` (an events.tsv) when given, else from the file's annotations.
+    The epochs the cut would make are bounded by ``max_array_bytes`` before any is made.
     """
     continuous = read_continuous(path, detect_format(path, RECORDING_FORMATS), max_array_bytes=max_array_bytes)
     events = read_events_tsv(events_path) if events_path is not None else continuous.annotations
@@ -216,7 +227,7 @@ def load_recording(
             "Send the events as an events.tsv in the 'events' field",
         )
     recording = apply_channel_spec(continuous.recording, channels)
-    plan_epochs(recording, events, epoching)
+    check_epochs_size(plan_epochs(recording, events, epoching), recording.n_channels, max_array_bytes)
     return ContinuousInput(recording=recording, events=events, epoching=epoching, file_format=continuous.file_format)
 
 

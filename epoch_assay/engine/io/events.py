@@ -54,7 +54,13 @@ class Events:
 
 
 def events_from_lists(onset_s: list[float], duration_s: list[float], values: list[str]) -> Events:
-    """Events from parallel lists (e.g. a file's annotations), in the order given."""
+    """Events from parallel lists (e.g. a file's annotations), in the order given; at most MAX_EVENTS."""
+    if len(values) > MAX_EVENTS:
+        raise EpochSetFormatError(
+            "events",
+            f"the recording has {len(values)} annotations, more than {MAX_EVENTS}",
+            "Keep only this recording's events, or send them as an events.tsv in the 'events' field",
+        )
     return Events(
         onset_s=np.asarray(onset_s, dtype=np.float64).reshape(-1),
         duration_s=np.asarray(duration_s, dtype=np.float64).reshape(-1),
