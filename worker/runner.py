@@ -250,4 +250,8 @@ class Worker:
                     max_array_bytes=self.settings.max_array_bytes,
                 )
         with self.blobs.local_copy(ref.sha256) as path:
-            return read_epoch_set_file(path, max_array_bytes=self.settings.max_array_bytes)[0]
+            return read_epoch_set_file(
+                path,
+                max_array_bytes=self.settings.max_array_bytes,
+                max_compression_ratio=self.settings.max_compression_ratio,
+            )[0]
