@@ -10,6 +10,14 @@ A receiver recomputes the HMAC over the timestamp, a dot and the raw body with t
 was shown when the webhook was made, compares in constant time, and refuses timestamps far
 from its clock (a replayed old request). Any 2xx answer counts as delivered; anything else, a
 redirect included (redirects are not followed), is retried with backoff.
+
+Before each attempt the URL's host is resolved and checked (``service.webhook_targets``); the
+request goes to the checked address itself, with the host name in the Host header and TLS's
+server name, so the address checked is the address connected to. The delivery log records only
+generic classes of failure ("timed out", "could not connect", ...), never a library's message,
+so it cannot be used to map hosts. Several sender threads share the outbox, never two on one
+study at a time, so one study's slow receiver holds one sender for at most the timeout and the
+other studies' deliveries go on.
 """
 
 import hashlib
@@ -24,6 +32,7 @@ from epoch_assay import __version__
 from service.settings import Settings
 from service.storage import outbox
 from service.storage.db import Database
+from service.webhook_targets import TargetRefused, resolve
 
 SIGNATURE_HEADER = "Epoch-Assay-Signature"
 EVENT_HEADER = "Epoch-Assay-Event"
@@ -37,8 +46,19 @@ def signature(secret: str, timestamp: int, body: str) -> str:
     return f"t={timestamp},v1={digest}"
 
 
+def failure_class(error: httpx.HTTPError) -> str:
+    """A generic description of a failed request, in our own words (no addresses, no library text)."""
+    if isinstance(error, httpx.TimeoutException):
+        return "timed out"
+    if isinstance(error, httpx.ConnectError):
+        return "could not connect (refused, unreachable or TLS failed)"
+    if isinstance(error, httpx.RemoteProtocolError):
+        return "the answer was not valid HTTP"
+    return "the request failed"
+
+
 class Deliverer:
-    """Claims due deliveries one at a time and sends them until told to stop."""
+    """Sender threads that claim due deliveries, one study at a time each, and send them until told to stop."""
 
     def __init__(self, database: Database, settings: Settings) -> None:
         self.database, self.settings = database, settings
@@ -50,8 +70,21 @@ class Deliverer:
             headers={"User-Agent": f"epoch-assay/{__version__}"},
         )
         self._lease_seconds = settings.webhook_timeout_seconds + 30.0
+        self._claiming = threading.Lock()
+        self._busy_studies: set[str] = set()
 
     def run_until(self, stop: threading.Event) -> None:
+        senders = [
+            threading.Thread(target=self._send_until, args=(stop,), name=f"webhook-sender-{index}", daemon=True)
+            for index in range(self.settings.webhook_senders)
+        ]
+        for sender in senders:
+            sender.start()
+        for sender in senders:
+            sender.join()
+        self.client.close()
+
+    def _send_until(self, stop: threading.Event) -> None:
         while not stop.is_set():
             try:
                 sent = self.deliver_one()
@@ -60,14 +93,23 @@ class Deliverer:
                 sent = False
             if not sent:
                 stop.wait(self.settings.poll_seconds)
-        self.client.close()
 
     def deliver_one(self) -> bool:
-        """Send one due delivery; False when none was due."""
-        with self.database.session() as session:
-            due = outbox.claim_delivery(session, self._lease_seconds)
-        if due is None:
-            return False
+        """Send one due delivery of a study no other sender of this worker is serving; False when none was due."""
+        with self._claiming:
+            with self.database.session() as session:
+                due = outbox.claim_delivery(session, self._lease_seconds, busy_studies=frozenset(self._busy_studies))
+            if due is None:
+                return False
+            self._busy_studies.add(due.study_id)
+        try:
+            self._deliver(due)
+        finally:
+            with self._claiming:
+                self._busy_studies.discard(due.study_id)
+        return True
+
+    def _deliver(self, due: outbox.DueDelivery) -> None:
         outcome = self._send(due)
         with self.database.session() as session:
             status = outbox.record_attempt(
@@ -86,9 +128,9 @@ class Deliverer:
                 "attempt": due.attempt,
                 "status_code": outcome.status_code,
                 "outcome": status,
+                "error": outcome.error,
             },
         )
-        return True
 
     def _send(self, due: outbox.DueDelivery) -> outbox.AttemptOutcome:
         headers = {
@@ -99,9 +141,19 @@ class Deliverer:
         }
         started = time.perf_counter()
         try:
-            answer = self.client.post(due.url, content=due.payload.encode(), headers=headers)
+            target = resolve(due.url, self.settings.allowed_webhook_networks)
+        except TargetRefused as refused:
+            error = f"not sent: the URL's host is {refused.category}"
+            return outbox.AttemptOutcome(False, None, error, time.perf_counter() - started)
+        try:
+            answer = self.client.post(
+                target.connect_url,
+                content=due.payload.encode(),
+                headers=headers | {"Host": target.host_header},
+                extensions={"sni_hostname": target.server_name},
+            )
         except httpx.HTTPError as error:
-            return outbox.AttemptOutcome(False, None, f"{type(error).__name__}: {error}", time.perf_counter() - started)
+            return outbox.AttemptOutcome(False, None, failure_class(error), time.perf_counter() - started)
         seconds = time.perf_counter() - started
         if answer.is_success:
             return outbox.AttemptOutcome(True, answer.status_code, None, seconds)

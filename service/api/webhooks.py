@@ -4,25 +4,27 @@ import secrets
 from typing import Annotated
 
 from fastapi import APIRouter, Query, Response, status
-from sqlalchemy import select
+from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from service.api.access import CallerDep
-from service.api.deps import SessionDep
+from service.api.deps import SessionDep, SettingsDep
 from service.api.idempotency import IdempotencyDep, canonical_fingerprint
 from service.api.lookups import study_by_code
 from service.api.responses import errors
-from service.errors import NotFound
+from service.errors import Conflict, NotFound, Unprocessable
 from service.schemas.webhooks import DeliveryOut, DeliveryPage, WebhookCreate, WebhookCreated, WebhookOut
 from service.storage import outbox
 from service.storage.ids import new_id
 from service.storage.models import Study, Webhook, WebhookDelivery
+from service.webhook_targets import TargetRefused, resolve
 
 router = APIRouter(prefix="/v1/studies/{code}/webhooks", tags=["webhooks"])
 SIGNING = (
     " Each event is a POST with the JSON event as body and the header "
     '`Epoch-Assay-Signature: t=<unix seconds>,v1=<hex HMAC-SHA256(secret, "<t>.<body>")>`; '
-    "failed deliveries are retried with exponential backoff."
+    "failed deliveries are retried with exponential backoff. The URL's host must resolve to public addresses "
+    "only (not loopback, private, link-local, multicast or reserved) unless the operator allows its network."
 )
 
 
@@ -54,11 +56,27 @@ def _webhook_of(session: Session, study: Study, webhook_id: str) -> Webhook:
     description="Register a webhook (write keys)." + SIGNING,
 )
 def create_webhook(
-    code: str, body: WebhookCreate, session: SessionDep, caller: CallerDep, idempotency: IdempotencyDep
+    code: str,
+    body: WebhookCreate,
+    session: SessionDep,
+    settings: SettingsDep,
+    caller: CallerDep,
+    idempotency: IdempotencyDep,
 ) -> Response:
     study = study_by_code(session, code, caller, "write")
     if (replayed := idempotency.replay(canonical_fingerprint(body.model_dump(mode="json")))) is not None:
         return replayed
+    try:
+        resolve(str(body.url), settings.allowed_webhook_networks)
+    except TargetRefused as refused:
+        raise Unprocessable(f"url: {refused}", errors=[{"loc": ["body", "url"], "msg": str(refused)}]) from None
+    registered = session.scalar(select(func.count()).select_from(Webhook).where(Webhook.study_id == study.id))
+    if registered >= settings.max_webhooks_per_study:
+        raise Conflict(
+            f"study {study.code!r} already has {registered} webhooks, the most allowed; delete one "
+            f"(DELETE /v1/studies/{study.code}/webhooks/{{id}}) or ask the operator to raise "
+            "EPOCH_ASSAY_MAX_WEBHOOKS_PER_STUDY"
+        )
     hook = Webhook(
         id=new_id("wh"),
         study_id=study.id,
