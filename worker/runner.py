@@ -6,6 +6,10 @@ attempt, so a deploy does not wait for a long run and loses nothing but the unit
 attempt raises is retried with backoff up to ``max_attempts``, except when retrying cannot
 help (the stored file is gone or malformed, the spec cannot run). Each worker also sends the
 webhook events in a thread (``worker.delivery``).
+
+A database error (SQLite "locked" after its wait, a dropped PostgreSQL connection) does not end
+the worker: the loop waits with backoff and goes on, and a computed result whose storing fails is
+kept and stored again (the lease is renewed meanwhile), so the run is not computed twice.
 """
 
 import json
@@ -20,6 +24,7 @@ from types import FrameType
 
 from pydantic import ValidationError
 from sqlalchemy import select
+from sqlalchemy.exc import SQLAlchemyError
 from sqlalchemy.orm import Session
 
 from epoch_assay.engine.epochs import EpochSet as EngineEpochSet
@@ -47,6 +52,34 @@ PERMANENT_ERRORS = (
     SpecError,
     ValidationError,
 )
+
+
+# Waits after consecutive database errors: 0.5 s doubled each time, at most 30 s (common practice for
+# retrying a shared resource: exponential backoff with a cap). A result is stored up to this many times.
+DATABASE_BACKOFF_SECONDS = (0.5, 30.0)
+STORE_ATTEMPTS = 20
+
+
+def database_backoff(failures: int) -> float:
+    """The wait after ``failures`` consecutive database errors, in s."""
+    first, longest = DATABASE_BACKOFF_SECONDS
+    return min(first * 2 ** (failures - 1), longest)
+
+
+def failure_reason(error: Exception) -> str:
+    """A failed attempt in our own words for the run's ``error``: no server paths, no library text."""
+    if isinstance(error, EpochSetFormatError | EpochSetTooLargeError | SpecError):
+        return str(error)  # written by the engine, about the user's input
+    if isinstance(error, FileNotFoundError):
+        return "a file of this run is no longer stored; upload the epoch set again and start a new run"
+    if isinstance(error, BlobCorruptError):
+        return "a stored file of this run failed its integrity check; upload it again and start a new run"
+    if isinstance(error, ValidationError):
+        return "the run's stored spec is not valid for this version of the service; start a new run"
+    return (
+        f"the worker hit an internal error ({type(error).__name__}); the operator finds the details in the "
+        "worker's log under this run's id"
+    )
 
 
 class LeaseLost(Exception):
@@ -145,15 +178,27 @@ class Worker:
         )
         delivery.start()
         log.info("worker %s ready", self.worker_id)
+        failures = 0
         try:
             while not self._stopping.is_set():
-                if not self.run_one():
+                try:
+                    busy = self.run_one()
+                    failures = 0
+                except SQLAlchemyError:
+                    failures += 1
+                    log.exception("the database failed; waiting before the next try", extra={"failures": failures})
+                    self._stopping.wait(database_backoff(failures))
+                    continue
+                if not busy:
                     self._stopping.wait(self.settings.poll_seconds)
         finally:
             stop_delivery.set()
             delivery.join(timeout=self.settings.webhook_timeout_seconds + 5)
-            with self.database.session() as session:
-                queue.forget_worker(session, self.worker_id)
+            try:
+                with self.database.session() as session:
+                    queue.forget_worker(session, self.worker_id)
+            except SQLAlchemyError:
+                log.warning("could not remove this worker from the list of live workers; it ages out")
             log.info("worker %s stopped", self.worker_id)
 
     def run_one(self) -> bool:
@@ -179,14 +224,30 @@ class Worker:
             except Exception as error:
                 self._record_failure(job, error, context)
                 return True
-        with self.database.session() as session:
-            if queue.complete(session, job, self.worker_id):
-                session.add(RunResult(run_id=job.run_id, document=json.dumps(document, allow_nan=False)))
-                log.info("job succeeded", extra=context)
+            self._store_result(job, json.dumps(document, allow_nan=False), beat, context)
         return True
 
+    def _store_result(self, job: queue.ClaimedJob, document: str, beat: Heartbeat, context: dict[str, object]) -> None:
+        """Store a computed result, trying again with backoff on database errors while the lease is held."""
+        for attempt in range(1, STORE_ATTEMPTS + 1):
+            try:
+                with self.database.session() as session:
+                    if queue.complete(session, job, self.worker_id):
+                        session.add(RunResult(run_id=job.run_id, document=document))
+                        log.info("job succeeded", extra=context)
+                return
+            except SQLAlchemyError:
+                log.warning(
+                    "storing the result failed; keeping it and trying again",
+                    exc_info=True,
+                    extra=context | {"store_attempt": attempt},
+                )
+                if beat.lost or self._stopping.wait(database_backoff(attempt)):
+                    break
+        log.error("the result could not be stored; the job is left to be taken up again", extra=context)
+
     def _record_failure(self, job: queue.ClaimedJob, error: Exception, context: dict[str, object]) -> None:
-        reason = f"{type(error).__name__}: {error}"
+        reason = failure_reason(error)
         with self.database.session() as session:
             if isinstance(error, PERMANENT_ERRORS):
                 queue.fail(session, job, self.worker_id, reason)

@@ -19,6 +19,7 @@ from service.api.lookups import run_by_id, study_by_code
 from service.api.pagination import as_utc, decode_cursor, encode_cursor
 from service.api.responses import errors
 from service.api.result_csv import CSV_EXAMPLE, preferred_media_type, result_csv
+from service.api.run_limits import check_run_size
 from service.errors import Conflict, NotAcceptable, Unprocessable, spec_error_to_unprocessable
 from service.schemas.epoch_sets import SUBJECT_PATTERN
 from service.schemas.runs import RunAccepted, RunCreate, RunOut, RunPage, RunResultDocument, RunStatus
@@ -126,6 +127,7 @@ def create_run(
         pipelines = body.resolved_pipelines(settings.max_pipelines)
     except SpecError as error:
         raise spec_error_to_unprocessable(error) from None
+    check_run_size(pipelines, len(epoch_sets), settings)
     check_run_spec(body, pipelines, epoch_sets)
     # A grid run also stores its expanded pipelines, so that readers of the spec see every name.
     spec = body.model_dump(mode="json") | {"pipelines": [pipeline.model_dump(mode="json") for pipeline in pipelines]}
