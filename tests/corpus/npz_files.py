@@ -1,6 +1,7 @@
 """Hostile NPZ (zip) files: many members, arrays declaring far more than the file holds, odd member names."""
 
 import io
+import warnings
 import zipfile
 
 import numpy as np
@@ -10,7 +11,8 @@ from numpy.lib import format as npy_format
 def many_members(n_members: int = 16_000, name: str | None = None) -> bytes:
     """A zip of ``n_members`` empty members, named ``m<i>.npy`` or all ``name`` (repeated keys)."""
     buffer = io.BytesIO()
-    with zipfile.ZipFile(buffer, "w", zipfile.ZIP_STORED) as archive:
+    with warnings.catch_warnings(), zipfile.ZipFile(buffer, "w", zipfile.ZIP_STORED) as archive:
+        warnings.simplefilter("ignore", UserWarning)  # zipfile warns of each repeated name: that is the point
         for index in range(n_members):
             archive.writestr(name or f"m{index}.npy", b"")
     return buffer.getvalue()
