@@ -73,7 +73,11 @@ def failure_reason(error: Exception) -> str:
     if isinstance(error, FileNotFoundError):
         return "a file of this run is no longer stored; upload the epoch set again and start a new run"
     if isinstance(error, BlobCorruptError):
-        return "a stored file of this run failed its integrity check; upload it again and start a new run"
+        return (
+            f"the stored file {error.sha256} failed its integrity check (it is damaged); restore it from a backup "
+            "of the blob store, or delete the runs that use its epoch set, delete the epoch set and upload the "
+            "file again"
+        )
     if isinstance(error, ValidationError):
         return "the run's stored spec is not valid for this version of the service; start a new run"
     return (
@@ -184,9 +188,11 @@ class Worker:
                 try:
                     busy = self.run_one()
                     failures = 0
-                except SQLAlchemyError:
+                except Exception:  # a database error most often; whatever it was, the loop goes on
                     failures += 1
-                    log.exception("the database failed; waiting before the next try", extra={"failures": failures})
+                    log.exception(
+                        "the worker loop hit an error; waiting before the next try", extra={"failures": failures}
+                    )
                     self._stopping.wait(database_backoff(failures))
                     continue
                 if not busy:
@@ -212,7 +218,7 @@ class Worker:
         log.info("claimed a job", extra=context)
         with Heartbeat(self.database, job, self.worker_id, self.settings, self._stopping) as beat:
             try:
-                document = self._execute(job, beat)
+                document = json.dumps(self._execute(job, beat), allow_nan=False)
             except LeaseLost:
                 log.warning("lost the lease (or the run was deleted); dropping the work", extra=context)
                 return True
@@ -224,7 +230,7 @@ class Worker:
             except Exception as error:
                 self._record_failure(job, error, context)
                 return True
-            self._store_result(job, json.dumps(document, allow_nan=False), beat, context)
+            self._store_result(job, document, beat, context)
         return True
 
     def _store_result(self, job: queue.ClaimedJob, document: str, beat: Heartbeat, context: dict[str, object]) -> None:
