@@ -10,11 +10,13 @@ from pathlib import Path
 import httpx
 import pytest
 
-from tests.api.helpers import SCORING, upload
+from tests.api.helpers import SCORING, run_and_wait, upload
 from tests.support.epoch_files import npz_bytes, small_epochs
-from tests.support.live import REPO_ROOT, TEST_SETTINGS, run_cli, stop, wait_for_run
+from tests.support.live import REPO_ROOT, TEST_SETTINGS, run_cli, stop
 from tests.support.ports import free_port
 from tests.support.postgres import fresh_database_url
+
+RAW_ONLY = [{"name": "raw", "steps": []}]
 
 
 def _children(pid: int) -> set[int]:
@@ -88,11 +90,5 @@ def test_serve_starts_its_worker_again_when_it_dies(served):
     with httpx.Client(base_url=base_url, headers={"Authorization": f"Bearer {token}"}, timeout=30) as http:
         assert http.post("/v1/studies", json={"code": "RESTART", "title": "restart"}).status_code == 201
         epoch_set = upload(http, "RESTART", npz_bytes(small_epochs(seed=81))).json()["id"]
-        body = {
-            "study": "RESTART",
-            "epoch_sets": [epoch_set],
-            "scoring": SCORING,
-            "pipelines": [{"name": "raw", "steps": []}],
-        }
-        run = http.post("/v1/runs", json=body).json()["id"]
-        assert wait_for_run(http, run)["status"] == "succeeded"
+        body = {"study": "RESTART", "epoch_sets": [epoch_set], "scoring": SCORING, "pipelines": RAW_ONLY}
+        run_and_wait(http, body)  # the restarted worker runs it
