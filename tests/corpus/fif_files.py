@@ -6,6 +6,7 @@ does), so the references are exactly those MNE itself would follow.
 """
 
 import tempfile
+from functools import cache
 from pathlib import Path
 
 import mne
@@ -18,6 +19,7 @@ SELF_NAME = b"upload-epo.fif"
 MISSING_NAME = b"../nofile-.fif"
 
 
+@cache
 def split_first_part() -> bytes:
     """The first file of an epochs file saved in parts: it names the next part (abcd-epo-1.fif)."""
     rng = np.random.default_rng(15)
