@@ -81,7 +81,7 @@ def resolve(url: str, allowed: Sequence[Network]) -> Target:
         infos = socket.getaddrinfo(host, port, type=socket.SOCK_STREAM)
     except (OSError, UnicodeError):
         raise TargetRefused(f"the host {host!r} cannot be resolved", "unresolvable") from None
-    addresses = list(dict.fromkeys(ipaddress.ip_address(info[4][0].split("%")[0]) for info in infos))
+    addresses = list(dict.fromkeys(ipaddress.ip_address(str(info[4][0]).split("%")[0]) for info in infos))
     if not addresses:
         raise TargetRefused(f"the host {host!r} cannot be resolved", "unresolvable")
     for address in addresses:

@@ -138,9 +138,9 @@ class Deliverer:
         started = time.perf_counter()
         try:
             target = resolve(due.url, self.settings.allowed_webhook_networks)
-        except TargetRefused as refused:
-            error = f"not sent: the URL's host is {refused.category}"
-            return AttemptOutcome(False, None, error, time.perf_counter() - started)
+        except TargetRefused as not_allowed:
+            reason = f"not sent: the URL's host is {not_allowed.category}"
+            return AttemptOutcome(False, None, reason, time.perf_counter() - started)
         try:
             answer = self.client.post(
                 target.connect_url,
@@ -154,7 +154,7 @@ class Deliverer:
         if answer.is_success:
             return AttemptOutcome(True, answer.status_code, None, seconds)
         if answer.is_redirect:
-            error = f"answered {answer.status_code} (redirects are not followed; register the final URL)"
+            refused = f"answered {answer.status_code} (redirects are not followed; register the final URL)"
         else:
-            error = f"answered {answer.status_code} {answer.reason_phrase}".rstrip()
-        return AttemptOutcome(False, answer.status_code, error, seconds)
+            refused = f"answered {answer.status_code} {answer.reason_phrase}".rstrip()
+        return AttemptOutcome(False, answer.status_code, refused, seconds)

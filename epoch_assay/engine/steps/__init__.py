@@ -7,7 +7,7 @@ union, the record union and the contract test (``tests/engine/test_step_contract
 from the tuple.
 """
 
-from typing import Annotated, Union
+from typing import TYPE_CHECKING, Annotated, Union
 
 from pydantic import Field
 
@@ -36,8 +36,12 @@ STEP_CLASSES: tuple[type[Step], ...] = (
     Baseline,
 )
 
-# Unions built from the tuple (the `X | Y` spelling cannot take a tuple).
-StepSpec = Annotated[Union[STEP_CLASSES], Field(discriminator="step")]  # type: ignore[valid-type]  # noqa: UP007
+# Unions built from the tuple (the `X | Y` spelling cannot take a tuple). A type checker cannot follow a
+# union built at run time, so it sees what every member is: a Step.
+if TYPE_CHECKING:
+    StepSpec = Step
+else:
+    StepSpec = Annotated[Union[STEP_CLASSES], Field(discriminator="step")]  # noqa: UP007
 """One step of a pipeline spec, told apart by ``step``."""
 
 _PROVENANCE_MODELS = tuple(cls.provenance_model for cls in STEP_CLASSES)
