@@ -185,7 +185,9 @@ def subject_scores(entries: Iterable[dict[str, Any]], conditions: tuple[str, str
         by_subject.setdefault(entry["subject"], []).append(entry)
     names = tuple(dict.fromkeys(ch["name"] for group in by_subject.values() for e in group for ch in e["channels"]))
     column = {name: i for i, name in enumerate(names)}
-    fractions, smes, differences = [], {label: [] for label in conditions}, []
+    fractions: list[np.floating] = []
+    smes: dict[str, list[np.floating]] = {label: [] for label in conditions}
+    differences: list[np.ndarray] = []
     for group in by_subject.values():
         fractions.append(np.mean([_number(e["significant_fraction"]) for e in group]))
         for label in conditions:

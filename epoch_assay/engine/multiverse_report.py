@@ -74,7 +74,12 @@ def selection_document(
     try:
         if isinstance(selection, ContrastBlindSpec):
             return contrast_blind(table).to_document()
-        tuning = selection.tuning_subjects or list(split_subjects(table.subjects, selection.split)[0])
+        if selection.tuning_subjects is not None:
+            tuning = selection.tuning_subjects
+        else:
+            # TuningHoldoutSpec's validator lets no spec through without tuning_subjects or a split.
+            assert selection.split is not None
+            tuning = list(split_subjects(table.subjects, selection.split)[0])
         return tuning_holdout(table, reference, tuning).to_document()
     except SpecError as error:
         return SelectionOutcome(

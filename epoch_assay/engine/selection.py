@@ -70,7 +70,7 @@ class SelectionResult:
     winner: str
     tuning_subjects: tuple[str, ...]
     holdout_subjects: tuple[str, ...]
-    winner_tuning_score: float
+    winner_tuning_score: float | None
     winner_holdout_score: float | None
     reference_holdout_score: float | None
 
