@@ -37,9 +37,9 @@ class StepProvenance(DocumentModel):
     trials_removed: dict[str, int] = Field(default_factory=dict, description="Trials removed, per condition label.")
     components_removed: list[RemovedComponent] = Field(default_factory=list, description="ICA components removed.")
     warnings: list[str] = Field(default_factory=list, description="What the step found worth checking.")
-    seconds: float = Field(0.0, description="Wall time the step took, in s.")
+    seconds: float = Field(default=0.0, description="Wall time the step took, in s.")
     stage: Literal["epochs", "continuous"] = Field(
-        "epochs", description="epochs: run on epoched data; continuous: run on a recording before epoching."
+        default="epochs", description="epochs: run on epoched data; continuous: run on a recording before epoching."
     )
 
     @classmethod
