@@ -3,6 +3,7 @@
 
 from collections.abc import Callable
 from dataclasses import dataclass
+from functools import partial
 
 from matplotlib.figure import Figure
 
@@ -97,7 +98,7 @@ def _topomaps(document: RunResultDocument, reference: str) -> list[ReportFigure]
                 f"Welch t per channel, mean over {located.map.n_epoch_sets} epoch set(s); white dots: significant after "
                 f"correction in at least half of them. All maps of this run share the colour scale ±{limit:.1f}."
                 + left_out,
-                lambda located=located: topomaps.topomap_figure(located, reference, limit),
+                partial(topomaps.topomap_figure, located, reference, limit),
             )
         )
     return found

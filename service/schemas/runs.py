@@ -4,6 +4,7 @@ from datetime import datetime
 from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
+from pydantic.config import JsonDict
 
 from epoch_assay.engine.errors import SpecError
 from epoch_assay.engine.grid import GridSpec, expand_grid
@@ -13,7 +14,7 @@ from epoch_assay.engine.selection import SelectionSpec
 
 RunStatus = Literal["queued", "running", "succeeded", "failed"]
 
-RUN_EXAMPLE = {
+RUN_EXAMPLE: JsonDict = {
     "study": "READ-01",
     "epoch_sets": ["es_3f9c0a1b7d2e4f60"],
     "pipelines": [
@@ -41,7 +42,9 @@ class RunCreate(BaseModel):
     pipelines: list[PipelineSpec] | None = Field(
         None, min_length=1, max_length=512, description="The pipelines to score; or give a grid instead."
     )
-    grid: GridSpec | None = Field(None, description="Factors whose levels combine into the pipelines (see README).")
+    grid: GridSpec | None = Field(
+        None, description="Factors whose levels combine into the pipelines (see docs/steps.md, Grids)."
+    )
     scoring: ScoringSpec
     selection: SelectionSpec | None = Field(None, description="How to choose a winner without circularity.")
 
@@ -104,7 +107,7 @@ class ProgressDetail(BaseModel):
     eta_s: float | None = Field(description="Time left if the rest goes at the pace so far, in s.")
 
 
-RUN_OUT_EXAMPLE = {
+RUN_OUT_EXAMPLE: JsonDict = {
     "id": "run_0123456789abcdef",
     "study": "READ-01",
     "status": "running",

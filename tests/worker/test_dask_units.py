@@ -20,7 +20,7 @@ from distributed import Client, LocalCluster
 
 from epoch_assay.engine.epochs import EpochSet
 from epoch_assay.engine.tree import build_tree
-from tests.api.helpers import without_timing
+from tests.service.api.helpers import without_timing
 from tests.support.dask_tasks import state_counts
 from tests.support.live import free_port
 from tests.worker.test_multiverse import GRID, PIPELINES
