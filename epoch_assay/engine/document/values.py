@@ -12,10 +12,10 @@ def _finite_or_none(value: object) -> object:
 
     Anything but a real number is passed on for pydantic to accept or reject as a float.
     """
-    if isinstance(value, numbers.Real) and not isinstance(value, bool):
-        number = float(value)
-        return number if math.isfinite(number) else None
-    return value
+    if isinstance(value, bool) or not isinstance(value, numbers.Real):
+        return value
+    number = float(value)
+    return number if math.isfinite(number) else None
 
 
 # A float of the document: null where the value is undefined (NaN) or infinite.
