@@ -43,7 +43,7 @@ class RunResultDocument(DocumentModel):
     run: str = Field(description="Id of the run.")
     study: str = Field(description="Code of the study.")
     scoring: ScoringSpec = Field(description="The scoring spec of the run, defaults filled in.")
-    provenance: RunProvenance
+    provenance: RunProvenance = Field(description="What produced the result: software versions, input hashes, seeds.")
     results: list[ResultEntry] = Field(description="For each epoch set in order, one entry per pipeline in run order.")
     group: list[PipelineGroupResult] | None = Field(
         default=None, description="Group level, one entry per pipeline in run order."
