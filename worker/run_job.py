@@ -19,8 +19,7 @@ from typing import Any
 
 from pydantic import TypeAdapter
 
-from epoch_assay.engine import ENGINE_VERSION
-from epoch_assay.engine.document import RESULT_SCHEMA_VERSION, ResultEntry, RunResultDocument, StepProvenance
+from epoch_assay.engine.document import RESULT_SCHEMA_VERSION, ResultEntry, RunResultDocument
 from epoch_assay.engine.document.multiverse import CacheCounts
 from epoch_assay.engine.document.run import RunProvenance, Seeds
 from epoch_assay.engine.epochs import EpochSet
@@ -34,7 +33,7 @@ from epoch_assay.engine.multiverse_report import (
     selection_document,
 )
 from epoch_assay.engine.pipeline import PipelineSpec, apply_pipeline
-from epoch_assay.engine.provenance import StepRecord
+from epoch_assay.engine.provenance import StepProvenanceBase
 from epoch_assay.engine.recording import ContinuousInput, apply_two_stage
 from epoch_assay.engine.scoring import eeg_channel_names, score_epochs
 from epoch_assay.engine.scoring_spec import ScoringSpec
@@ -64,7 +63,6 @@ def _hash_json(value: Any) -> str:
 def software_versions() -> dict[str, str]:
     versions = {name: version(name) for name in REPORTED_PACKAGES}
     versions["python"] = platform.python_version()
-    versions["engine"] = ENGINE_VERSION
     return versions
 
 
@@ -94,7 +92,7 @@ def score_leaf(leaf: LeafOutput, source: EpochSet, scoring: ScoringSpec, ref: Ep
 def _scored_entry(
     pipeline: PipelineSpec,
     processed: EpochSet,
-    records: list[StepRecord],
+    records: list[StepProvenanceBase],
     uploaded: tuple[str, ...],
     scoring: ScoringSpec,
     ref: EpochSetRef,
@@ -110,7 +108,7 @@ def _scored_entry(
         subject=ref.subject,
         session=ref.session,
         **(dict(score) if score is not None else {}),
-        provenance=[StepProvenance.of(record) for record in records],
+        provenance=records,
         warnings=[warning for record in records for warning in record.warnings],
         error=error,
     )

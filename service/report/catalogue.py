@@ -5,12 +5,17 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from functools import partial
 
+import matplotlib
 from matplotlib.figure import Figure
 
 from epoch_assay.engine.document import RunResultDocument
 from service.report import figures, summary, topomaps
 
 BEST_SHOWN = 2
+# Raised whenever the drawing of any figure changes, so that figures kept by older code are drawn again.
+FIGURES_VERSION = 1
+#: The name kept figures are stored under: this code's figures version and the plotting library's.
+RENDERER = f"figures-{FIGURES_VERSION}-matplotlib-{matplotlib.__version__}"
 
 
 @dataclass(frozen=True)

@@ -13,7 +13,6 @@ from epoch_assay.engine.document import (
     RunResultDocument,
     entry,
     multiverse,
-    provenance,
     run,
     upgrade_document,
 )
@@ -23,7 +22,7 @@ from tests.support.result_documents import stored_v1_document
 
 MODELS = [
     cls
-    for module in (entry, multiverse, provenance, run)
+    for module in (entry, multiverse, run)
     for _name, cls in inspect.getmembers(module, inspect.isclass)
     if issubclass(cls, DocumentModel) and cls is not DocumentModel
 ]
@@ -67,8 +66,9 @@ def test_version_1_is_converted_to_the_current_version():
     scored = next(index for index, item in enumerate(stored["results"]) if "error" not in item)
     assert converted.results[failed].channels is None and converted.results[scored].error is None
     record = stored["results"][failed]["provenance"][0]
-    params = converted.results[failed].provenance[0].params
-    assert params.model_dump(mode="json") == {"step": record["step"], **record["params"]}
+    converted_record = converted.results[failed].provenance[0]
+    assert converted_record.step == record["step"] and converted_record.version == 1
+    assert converted_record.params.model_dump(mode="json") == record["params"]
 
 
 def test_version_1_keeps_every_value_it_stored():

@@ -2,9 +2,9 @@
 
 from pydantic import Field
 
-from epoch_assay.engine.document.provenance import StepProvenance
 from epoch_assay.engine.document.values import Bounds, DocumentModel, Number
 from epoch_assay.engine.stats import BootstrapMode, IntervalMethod
+from epoch_assay.engine.steps import StepProvenance
 
 
 class ChannelScore(DocumentModel):

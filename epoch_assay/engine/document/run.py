@@ -13,6 +13,7 @@ from epoch_assay.engine.document.multiverse import (
     SelectionOutcome,
 )
 from epoch_assay.engine.document.values import DocumentModel
+from epoch_assay.engine.provenance import upgrade_legacy_record
 from epoch_assay.engine.scoring_spec import ScoringSpec
 
 # 1: the first stored form. 2: every key always written (null where not applicable) and step params
@@ -64,7 +65,8 @@ def upgrade_document(stored: dict[str, Any]) -> RunResultDocument:
     """Read a stored result document of any schema version as the current model.
 
     Version 1 omitted ``error`` on scored entries and the score on failed ones (both now null),
-    and stored each step's ``params`` without its ``step`` name, which is put back here.
+    and stored every step's output fields in each step record (see
+    ``epoch_assay.engine.provenance.upgrade_legacy_record``).
     Raises ``pydantic.ValidationError`` when ``stored`` is not a result document.
     """
     if stored.get("schema_version") == 1:
@@ -74,10 +76,7 @@ def upgrade_document(stored: dict[str, Any]) -> RunResultDocument:
             "results": [
                 {
                     **entry,
-                    "provenance": [
-                        {**record, "params": {"step": record["step"], **record["params"]}}
-                        for record in entry.get("provenance", [])
-                    ],
+                    "provenance": [upgrade_legacy_record(record) for record in entry.get("provenance", [])],
                 }
                 for entry in stored.get("results", [])
             ],
