@@ -97,20 +97,21 @@ def _scored_entry(
     scoring: ScoringSpec,
     ref: EpochSetRef,
 ) -> ResultEntry:
-    source = {
-        "pipeline": pipeline.name,
-        "pipeline_hash": pipeline.spec_hash(),
-        "epoch_set": ref.id,
-        "subject": ref.subject,
-        "session": ref.session,
-        "provenance": records,
-        "warnings": [warning for record in records for warning in record.warnings],
-    }
     try:
-        score = score_epochs(processed, scoring, uploaded_eeg_channels=uploaded)
-    except SpecError as error:
-        return ResultEntry(**source, error=f"{'.'.join(str(part) for part in error.loc)}: {error.message}")
-    return ResultEntry(**source, **dict(score))
+        score, error = score_epochs(processed, scoring, uploaded_eeg_channels=uploaded), None
+    except SpecError as failure:
+        score, error = None, f"{'.'.join(str(part) for part in failure.loc)}: {failure.message}"
+    return ResultEntry(
+        pipeline=pipeline.name,
+        pipeline_hash=pipeline.spec_hash(),
+        epoch_set=ref.id,
+        subject=ref.subject,
+        session=ref.session,
+        **(dict(score) if score is not None else {}),
+        provenance=records,
+        warnings=[warning for record in records for warning in record.warnings],
+        error=error,
+    )
 
 
 def execute_run(

@@ -124,7 +124,7 @@ class GroupTest:
                     p=self.p[i],
                     p_adjusted=self.p_adjusted[i],
                     significant=bool(self.significant[i]),
-                    mean_diff_uv=v_to_uv(self.mean_diff[i]),
+                    mean_diff_uv=float(v_to_uv(self.mean_diff[i])),
                     n_subjects=int(self.n_subjects[i]),
                 )
                 for i, name in enumerate(self.names)

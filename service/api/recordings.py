@@ -63,7 +63,7 @@ SIDECAR_FIELDS = {
 }
 
 
-class RunOut(BaseModel):
+class RecordingRunOut(BaseModel):
     """One run of a session as read: its format, where its events came from, and what was found."""
 
     run: int = Field(description="1-based, in the order the recordings were posted.")
@@ -86,7 +86,9 @@ class RecordingOut(EpochSetOut):
     dropped_at_edges: dict[str, int] = Field(
         description="Events per condition whose epoch reached past a run's ends, left out."
     )
-    runs: list[RunOut] = Field(default_factory=list, description="Each run, in order (empty for older uploads).")
+    runs: list[RecordingRunOut] = Field(
+        default_factory=list, description="Each run, in order (empty for older uploads)."
+    )
     sidecars: list[str] = Field(
         default_factory=list, description="BIDS sidecars read: channels.tsv, electrodes.tsv, coordsystem.json."
     )
@@ -112,7 +114,7 @@ def _found_in_runs(source: ContinuousInput) -> dict:
     for number, run in enumerate(source.runs, start=1):
         plan = plan_epochs(run.recording, run.events, source.epoching)
         runs.append(
-            RunOut(
+            RecordingRunOut(
                 run=number,
                 file_format=run.file_format.value,
                 events_from=run.events_from,

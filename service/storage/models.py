@@ -153,7 +153,7 @@ class RunPipeline(Base):
 
 
 class RunResult(Base):
-    """The result document of a succeeded run: JSON text built by worker.run_job, shaped as service.schemas.runs."""
+    """The result document of a succeeded run: JSON text of epoch_assay.engine.document.RunResultDocument."""
 
     __tablename__ = "run_results"
 

@@ -46,9 +46,6 @@ class CacheStats:
     def __add__(self, other: "CacheStats") -> "CacheStats":
         return CacheStats(hits=self.hits + other.hits, misses=self.misses + other.misses)
 
-    def to_json(self) -> dict[str, int]:
-        return {"hits": self.hits, "misses": self.misses}
-
 
 class DiskStepCache:
     """A :class:`~epoch_assay.engine.tree.StepCache` in ``folder``, holding at most ``max_bytes`` of entries

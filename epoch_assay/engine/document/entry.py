@@ -57,25 +57,31 @@ class PipelineScore(DocumentModel):
     In a result entry every field is null when the entry has an ``error``.
     """
 
-    n_trials: dict[str, int] | None = Field(None, description="Trials of each condition entering the test, by label.")
+    n_trials: dict[str, int] | None = Field(
+        default=None, description="Trials of each condition entering the test, by label."
+    )
     channels: list[ChannelScore] | None = Field(
-        None, description="One score per scored channel (EEG, not bad), in channel order."
+        default=None, description="One score per scored channel (EEG, not bad), in channel order."
     )
     significant_fraction: Number = Field(
-        None, description="Share 0–1 of scored channels whose adjusted p is below alpha."
+        default=None, description="Share 0–1 of scored channels whose adjusted p is below alpha."
     )
     significant_fraction_uploaded: Number = Field(
-        None,
+        default=None,
         description="Significant scored channels over the uploaded EEG channels, a share 0–1: a channel the "
         "pipeline dropped or flagged bad counts as not significant.",
     )
-    channels_kept: int | None = Field(None, description="Number of scored channels.")
-    channels_uploaded: int | None = Field(None, description="Number of EEG channels as uploaded.")
+    channels_kept: int | None = Field(default=None, description="Number of scored channels.")
+    channels_uploaded: int | None = Field(default=None, description="Number of EEG channels as uploaded.")
     median_sme_uv: dict[str, Number] | None = Field(
-        None, description="Median over scored channels of the SME, by condition label, in µV."
+        default=None, description="Median over scored channels of the SME, by condition label, in µV."
     )
-    time_course: TimeCourse | None = Field(None, description="Null when the scoring spec asks for no time course.")
-    bootstrap: BootstrapSummary | None = Field(None, description="Null when the scoring spec asks for no bootstrap.")
+    time_course: TimeCourse | None = Field(
+        default=None, description="Null when the scoring spec asks for no time course."
+    )
+    bootstrap: BootstrapSummary | None = Field(
+        default=None, description="Null when the scoring spec asks for no bootstrap."
+    )
 
 
 class EntrySource(DocumentModel):
@@ -88,14 +94,12 @@ class EntrySource(DocumentModel):
     session: str | None = Field(description="Session of the epoch set; null when not given.")
 
 
+# Pydantic lists the fields of the last base first, so an entry reads: source, score, provenance.
 class ResultEntry(PipelineScore, EntrySource):
-    """One pipeline applied to one epoch set: its score, what each step did, and any error.
-
-    Fields come in the order source, score, provenance (pydantic lists base-class fields from the last base).
-    """
+    """One pipeline applied to one epoch set: its score, what each step did, and any error."""
 
     provenance: list[StepProvenance] = Field(description="One record per applied step, in order.")
     warnings: list[str] = Field(description="The steps' warnings, in order.")
     error: str | None = Field(
-        None, description="Why this epoch set could not be scored with this pipeline; null when it was scored."
+        default=None, description="Why this epoch set could not be scored with this pipeline; null when it was scored."
     )

@@ -113,12 +113,16 @@ class FactorEffectsResult(DocumentModel):
     """The mixed model of the metric on a grid's factors; content fields are null when ``error`` is set."""
 
     metric: str = Field(description="The metric modelled.")
-    scale: str | None = Field(None, description="arcsine_sqrt for a share 0–1, identity otherwise.")
-    n_observations: int | None = Field(None, description="(subject, pipeline) values in the model.")
-    n_subjects: int | None = Field(None, description="Subjects in the model.")
-    factors: dict[str, FactorEffectResult] | None = Field(None, description="Each factor's test, by factor name.")
-    warnings: list[str] | None = Field(None, description="Warnings of the model fit.")
-    error: str | None = Field(None, description="Why the model could not be fitted on this run; null when it was.")
+    scale: str | None = Field(default=None, description="arcsine_sqrt for a share 0–1, identity otherwise.")
+    n_observations: int | None = Field(default=None, description="(subject, pipeline) values in the model.")
+    n_subjects: int | None = Field(default=None, description="Subjects in the model.")
+    factors: dict[str, FactorEffectResult] | None = Field(
+        default=None, description="Each factor's test, by factor name."
+    )
+    warnings: list[str] | None = Field(default=None, description="Warnings of the model fit.")
+    error: str | None = Field(
+        default=None, description="Why the model could not be fitted on this run; null when it was."
+    )
 
 
 class SelectionOutcome(DocumentModel):
@@ -126,13 +130,15 @@ class SelectionOutcome(DocumentModel):
 
     rule: str = Field(description="tuning_holdout or contrast_blind.")
     metric: str = Field(description="The metric the winner was chosen on.")
-    winner: str | None = Field(None, description="The chosen pipeline.")
-    tuning_subjects: list[str] | None = Field(None, description="Subjects that chose the winner.")
-    holdout_subjects: list[str] | None = Field(None, description="Subjects that played no part in the choice.")
-    winner_tuning_score: Number = Field(None, description="Winner's mean metric on the tuning subjects.")
-    winner_holdout_score: Number = Field(None, description="Winner's mean metric on the held-out subjects.")
-    reference_holdout_score: Number = Field(None, description="Reference's mean metric on the held-out subjects.")
-    error: str | None = Field(None, description="Why no winner could be chosen on this run; null when one was.")
+    winner: str | None = Field(default=None, description="The chosen pipeline.")
+    tuning_subjects: list[str] | None = Field(default=None, description="Subjects that chose the winner.")
+    holdout_subjects: list[str] | None = Field(default=None, description="Subjects that played no part in the choice.")
+    winner_tuning_score: Number = Field(default=None, description="Winner's mean metric on the tuning subjects.")
+    winner_holdout_score: Number = Field(default=None, description="Winner's mean metric on the held-out subjects.")
+    reference_holdout_score: Number = Field(
+        default=None, description="Reference's mean metric on the held-out subjects."
+    )
+    error: str | None = Field(default=None, description="Why no winner could be chosen on this run; null when one was.")
 
 
 class CacheCounts(DocumentModel):

@@ -44,19 +44,21 @@ class RunResultDocument(DocumentModel):
     run: str = Field(description="Id of the run.")
     study: str = Field(description="Code of the study.")
     scoring: ScoringSpec = Field(description="The scoring spec of the run, defaults filled in.")
-    provenance: RunProvenance
+    provenance: RunProvenance = Field(description="What produced the result: software versions, input hashes, seeds.")
     results: list[ResultEntry] = Field(description="For each epoch set in order, one entry per pipeline in run order.")
     group: list[PipelineGroupResult] | None = Field(
-        None, description="Group level, one entry per pipeline in run order."
+        default=None, description="Group level, one entry per pipeline in run order."
     )
-    cache: CacheCounts | None = Field(None, description="Step-cache lookups of the run.")
+    cache: CacheCounts | None = Field(default=None, description="Step-cache lookups of the run.")
     ranking: list[RankingEntry] | None = Field(
-        None, description="Every pipeline, best first, against the reference pipeline."
+        default=None, description="Every pipeline, best first, against the reference pipeline."
     )
     factor_effects: FactorEffectsResult | None = Field(
-        None, description="Grid runs: mixed-model effects of each factor; null for listed pipelines."
+        default=None, description="Grid runs: mixed-model effects of each factor; null for listed pipelines."
     )
-    selection: SelectionOutcome | None = Field(None, description="The winner by the run's selection rule, if any.")
+    selection: SelectionOutcome | None = Field(
+        default=None, description="The winner by the run's selection rule, if any."
+    )
 
 
 def upgrade_document(stored: dict[str, Any]) -> RunResultDocument:
