@@ -17,8 +17,8 @@ from anyio import to_thread
 from starlette.datastructures import MutableHeaders
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
-from service.http.access import MISSING_KEY, UNKNOWN_KEY
 from service.errors import problem
+from service.http.access import MISSING_KEY, UNKNOWN_KEY
 from service.logs import request_id_var
 from service.metrics import ServiceMetrics
 from service.storage.db import Database
