@@ -3,6 +3,7 @@
 import numpy as np
 from scipy import stats
 
+from epoch_assay.engine.document import RESULT_SCHEMA_VERSION
 from tests.service.api.helpers import SCORING, run_and_wait, upload
 from tests.support.epoch_files import npz_bytes, small_epochs
 
@@ -86,7 +87,7 @@ def test_every_pipeline_step_of_the_foundation_runs_and_reports_provenance(clien
     (entry,) = document["results"]
     assert [record["step"] for record in entry["provenance"]] == ["highpass", "lowpass", "reference", "baseline"]
     assert any("high-pass" in warning or "highpass" in warning for warning in entry["warnings"])
-    assert document["schema_version"] == 1
+    assert document["schema_version"] == RESULT_SCHEMA_VERSION
     assert document["provenance"]["pipeline_hashes"]["full"] == entry["pipeline_hash"]
 
 
