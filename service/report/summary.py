@@ -159,7 +159,12 @@ def _row_from_entries(name: str, entries: list[ResultEntry], is_reference: bool)
             return RankingRow(
                 name, float(fractions[0]), boot.ci_low, boot.ci_high, is_reference
             ), "fraction on all trials, 95 % percentile bootstrap interval"
-        if isinstance(boot, SubsetSpread) and None not in (boot.subset_mean, boot.spread_low, boot.spread_high):
+        if (
+            isinstance(boot, SubsetSpread)
+            and boot.subset_mean is not None
+            and boot.spread_low is not None
+            and boot.spread_high is not None
+        ):
             return RankingRow(
                 name, boot.subset_mean, boot.spread_low, boot.spread_high, is_reference
             ), "mean over subsets of k trials, 2.5–97.5 percentiles over subsets (a spread, not a confidence interval)"
