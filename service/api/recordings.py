@@ -47,11 +47,10 @@ from service.http.responses import BLOB_STORE_DOWN, errors
 from service.http.uploads import answer_upload, epoch_set_out
 from service.schemas.epoch_sets import SUBJECT_PATTERN, EpochSetOut
 from service.storage.epoch_sets import epoch_set_with_hash
-from service.storage.models import EpochSet
+from service.storage.models import RECORDING_SOURCE, EpochSet
 
 Spec = TypeVar("Spec", bound=BaseModel)
 router = APIRouter(prefix="/v1/studies/{code}/recordings", tags=["recordings"])
-RECORDING_SOURCE = "recording"
 MIXED_FORMATS = "mixed"
 # common practice: a channel spec with renames, types and positions of a few hundred channels is tens of kB
 MAX_SPEC_BYTES = 1 << 20

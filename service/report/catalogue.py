@@ -100,7 +100,8 @@ def _topomaps(document: RunResultDocument, reference: str) -> list[ReportFigure]
             ReportFigure(
                 topomap_name(name),
                 f"Scalp map: {name}",
-                f"Welch t per channel, mean over {located.map.n_epoch_sets} epoch set(s); white dots: significant after "
+                f"{topomaps.statistic_label(located.map.statistic_name)} per channel, mean over "
+                f"{located.map.n_epoch_sets} epoch set(s); white dots: significant after "
                 f"correction in at least half of them. All maps of this run share the colour scale ±{limit:.1f}."
                 + left_out,
                 partial(topomaps.topomap_figure, located, reference, limit),

@@ -55,6 +55,10 @@ class Study(Base):
     created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utc_now)
 
 
+#: ``EpochSet.source`` of an epoch set the worker cuts from an uploaded recording.
+RECORDING_SOURCE = "recording"
+
+
 class EpochSet(Base):
     """An uploaded epoch set; its bytes are the blob named by ``sha256``."""
 

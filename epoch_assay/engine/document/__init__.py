@@ -3,7 +3,16 @@ reports read. ``run.RunResultDocument`` is the whole; ``entry`` one pipeline × 
 ``multiverse`` the comparison across pipelines and subjects; each step's typed record is
 ``epoch_assay.engine.steps.StepProvenance``."""
 
-from epoch_assay.engine.document.entry import BootstrapSummary, ChannelScore, PipelineScore, ResultEntry, TimeCourse
+from epoch_assay.engine.document.entry import (
+    BootstrapSummary,
+    ChannelScore,
+    FractionInterval,
+    MeanWelchT,
+    PipelineScore,
+    ResultEntry,
+    SubsetSpread,
+    TimeCourse,
+)
 from epoch_assay.engine.document.run import RESULT_SCHEMA_VERSION, RunResultDocument, upgrade_document
 from epoch_assay.engine.steps import StepProvenance
 
@@ -11,10 +20,13 @@ __all__ = [
     "RESULT_SCHEMA_VERSION",
     "BootstrapSummary",
     "ChannelScore",
+    "FractionInterval",
+    "MeanWelchT",
     "PipelineScore",
     "ResultEntry",
     "RunResultDocument",
     "StepProvenance",
+    "SubsetSpread",
     "TimeCourse",
     "upgrade_document",
 ]

@@ -73,7 +73,7 @@ TRIAL_TESTS: dict[str, TrialTestKind] = {
     for kind in (
         TrialTestKind("welch", "Welch's t (unequal variances)", _welch),
         TrialTestKind("student", "Student's t (pooled variance)", _student),
-        TrialTestKind("mann_whitney", "Mann–Whitney U on ranks (the channel's t carries U)", _mann_whitney),
+        TrialTestKind("mann_whitney", "Mann–Whitney U on ranks (the channel's statistic is U)", _mann_whitney),
         TrialTestKind("permutation", "label permutation of Welch's t", _permutation),
     )
 }

@@ -127,7 +127,7 @@ def test_a_run_on_a_recording_scores_the_epochs_the_known_signal_gives(client, s
     # Reference: scipy.stats.ttest_ind(equal_var=False), Welch's t-test (Virtanen et al., 2020, SciPy 1.0), on
     # the signal as written; EDF quantisation (one digital step) bounds the difference.
     expected = stats.ttest_ind(means[labels == "a"], means[labels == "b"], equal_var=False)
-    np.testing.assert_allclose([c["t"] for c in entry["channels"]], expected.statistic, rtol=1e-3)
+    np.testing.assert_allclose([c["statistic"] for c in entry["channels"]], expected.statistic, rtol=1e-3)
 
 
 def test_a_run_on_a_recording_filters_before_epoching_and_says_so(client, study):

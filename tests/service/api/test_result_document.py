@@ -32,7 +32,7 @@ from tests.support.result_documents import stored_v1_document
 RESULT_PATH = "/v1/runs/{run_id}/result"
 GRID = {
     "factors": {
-        "highpass": {"none": [], "1": [{"step": "highpass", "cutoff_hz": 1.0}]},
+        "highpass": {"none": [], "1": [{"step": "highpass", "cutoff_hz": 1.0, "allow_short_epochs": True}]},
         "rejection": {"none": [], "strict": [{"step": "trial_rejection", "criteria": {"peak_to_peak_uv": 20.0}}]},
     }
 }
@@ -191,7 +191,14 @@ def test_schema_version_1_keeps_its_numbers_and_gains_the_keys_it_left_out(clien
     failed = next(index for index, entry in enumerate(stored["results"]) if "error" in entry)
     scored = next(index for index, entry in enumerate(stored["results"]) if "error" not in entry)
     assert served["results"][failed]["channels"] is None and served["results"][scored]["error"] is None
-    assert served["results"][scored]["channels"] == stored["results"][scored]["channels"]
+    # version 2 calls the channel statistic `statistic` (version 1: `t`) and names it per entry
+    assert [channel["statistic"] for channel in served["results"][scored]["channels"]] == [
+        channel["t"] for channel in stored["results"][scored]["channels"]
+    ]
+    assert served["results"][scored]["statistic_name"] == "welch_t"
+    stored_boot, served_boot = stored["results"][scored]["bootstrap"], served["results"][scored]["bootstrap"]
+    assert (served_boot["spread_low"], served_boot["spread_high"]) == (stored_boot["ci_low"], stored_boot["ci_high"])
+    assert served_boot["subset_mean"] is None and served["results"][scored]["mean_welch_t"] is None
     assert served["group"] == stored["group"] and served["ranking"] == stored["ranking"]
     record = stored["results"][failed]["provenance"][0]
     served_record = served["results"][failed]["provenance"][0]

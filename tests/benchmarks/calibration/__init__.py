@@ -1,0 +1,1 @@
+"""Seeded simulations behind bench_calibration.py: each module returns named figures."""
