@@ -1,6 +1,8 @@
 """Score an epoch set: per-channel test of a window mean between two conditions, effect sizes,
 measurement error, the significant fraction over time, its resampling and a smooth score."""
 
+from typing import cast
+
 import numpy as np
 
 from epoch_assay.engine.document.entry import (
@@ -26,6 +28,7 @@ from epoch_assay.engine.stats import (
     standardized_measurement_error,
     window_means,
 )
+from epoch_assay.engine.stats.bootstrap import ResampledTest
 from epoch_assay.engine.units import v_to_uv
 
 
@@ -147,7 +150,8 @@ def _bootstrap_summary(first: np.ndarray, second: np.ndarray, spec: ScoringSpec)
         seed=spec.bootstrap.seed,
         alpha=spec.alpha,
         correction=spec.correction,
-        test=spec.test,
+        # ScoringSpec refuses a bootstrap with a test that cannot be resampled (the permutation test).
+        test=cast(ResampledTest, spec.test),
     )
     if result.mode == "all":
         return FractionInterval(
