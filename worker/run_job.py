@@ -26,6 +26,7 @@ from epoch_assay.engine.grid import GridSpec, expand_grid
 from epoch_assay.engine.group import group_summary
 from epoch_assay.engine.multiverse_report import (
     DEFAULT_METRIC,
+    exploratory_note,
     factor_effects_document,
     ranking_document,
     selection_document,
@@ -169,8 +170,9 @@ def execute_run(
         "group": group,
         "cache": outcome.cache.to_json(),
         "ranking": ranking_document(
-            results, names, reference, selection.metric if selection else DEFAULT_METRIC, group
+            results, names, reference, selection.metric if selection else DEFAULT_METRIC, group, seed=scoring.seed
         ),
         "factor_effects": factor_effects_document(results, grid, points) if grid is not None else None,
         "selection": selection_document(results, names, reference, selection) if selection is not None else None,
+        "exploratory": exploratory_note(selection),
     }

@@ -1,4 +1,5 @@
-"""The multiverse parts of a result document: ``ranking``, ``factor_effects`` and ``selection``.
+"""The multiverse parts of a result document: ``ranking``, ``factor_effects``, ``selection``
+and the ``exploratory`` note.
 
 Pure functions of the result's entries. A part that cannot be computed on this run (too few
 subjects for a model, a tuning subject the run does not have) is reported as ``{"error": …}``
@@ -7,8 +8,6 @@ in place of its content; the rest of the result is unaffected.
 
 from collections.abc import Sequence
 from typing import Any
-
-import numpy as np
 
 from epoch_assay.engine.errors import SpecError
 from epoch_assay.engine.factor_effects import factor_effects
@@ -33,21 +32,25 @@ def ranking_document(
     reference: str,
     metric: str,
     group: Sequence[Entry] | None = None,
+    seed: int = 0,
 ) -> list[Entry]:
     """One entry per pipeline, best first by the mean over subjects of ``metric``, each with its
-    ``group`` summary (from ``epoch_assay.engine.group``) when given."""
+    ``group`` summary (from ``epoch_assay.engine.group``) when given.
+
+    seed : seed of the sign flips of ``p_adjusted`` and of the subject bootstraps
+    """
     group_of = {item["pipeline"]: item for item in group or ()}
     table = metric_table(results, metric, pipelines)
     return [
         {**ranked.to_json(reference), "metric": metric, "group": group_of.get(ranked.pipeline)}
-        for ranked in rank_pipelines(table, reference)
+        for ranked in rank_pipelines(table, reference, seed=seed)
     ]
 
 
 def factor_effects_document(
     results: Sequence[Entry], grid: GridSpec, points: Sequence[GridPipeline], metric: str = DEFAULT_METRIC
 ) -> Entry:
-    """The mixed model of ``metric`` on the grid's factors (see ``epoch_assay.engine.factor_effects``)."""
+    """Per-subject contrasts of ``metric`` tested across subjects (see ``epoch_assay.engine.factor_effects``)."""
     table = metric_table(results, metric, [point.pipeline.name for point in points])
     try:
         effects = factor_effects(
@@ -55,7 +58,7 @@ def factor_effects_document(
             {point.pipeline.name: point.levels for point in points},
             {factor: list(levels) for factor, levels in grid.factors.items()},
         )
-    except (ValueError, np.linalg.LinAlgError) as error:
+    except ValueError as error:
         return {"metric": metric, "error": str(error)}
     return effects.to_json()
 
@@ -67,7 +70,7 @@ def selection_document(
     table = metric_table(results, selection.metric, pipelines)
     try:
         if isinstance(selection, ContrastBlindSpec):
-            return contrast_blind(table).to_json()
+            return contrast_blind(table, reference, metric_table(results, "collapsed_erp_uv", pipelines)).to_json()
         tuning = selection.tuning_subjects or list(split_subjects(table.subjects, selection.split)[0])
         return tuning_holdout(table, reference, tuning).to_json()
     except SpecError as error:
@@ -76,3 +79,20 @@ def selection_document(
             "metric": selection.metric,
             "error": f"{'.'.join(str(part) for part in error.loc)}: {error.message}",
         }
+
+
+def exploratory_note(selection: SelectionSpec | None) -> Entry | None:
+    """The document's ``exploratory``: which all-subject parts are not confirmatory in a run with a selection."""
+    if selection is None:
+        return None
+    if isinstance(selection, ContrastBlindSpec):
+        reason = (
+            "a winner was chosen by a contrast-blind rule: only the winner's group test is confirmatory; "
+            "the ranking and the other pipelines' tests compare many pipelines on the same subjects"
+        )
+    else:
+        reason = (
+            "computed over all subjects, the tuning subjects included, so the winner's figures here are "
+            "biased by its choice; the confirmatory test of the winner is selection.holdout"
+        )
+    return {"parts": ["group", "ranking"], "reason": reason}

@@ -41,6 +41,9 @@ class ChannelScore:
     mean_diff_uv : difference of the condition means of the window mean, in µV
     hedges_g, hedges_g_ci : Hedges' g and its 95 % interval (Hedges & Olkin, 1985)
     sme_uv : standardized measurement error of each condition's window mean, in µV
+    collapsed_mean_uv : mean of the two condition means of the window mean (equal weights), in µV:
+        the collapsed ERP, blind to the contrast (Luck & Gaspelin, 2017)
+    collapsed_sme_uv : its standard error, ½·√(SME₁² + SME₂²), in µV
     """
 
     name: str
@@ -52,6 +55,8 @@ class ChannelScore:
     hedges_g: float
     hedges_g_ci: tuple[float, float]
     sme_uv: dict[str, float]
+    collapsed_mean_uv: float
+    collapsed_sme_uv: float
 
     def to_json(self) -> dict[str, Any]:
         return {
@@ -64,6 +69,8 @@ class ChannelScore:
             "hedges_g": _json_float(self.hedges_g),
             "hedges_g_ci": [_json_float(bound) for bound in self.hedges_g_ci],
             "sme_uv": {label: _json_float(value) for label, value in self.sme_uv.items()},
+            "collapsed_mean_uv": _json_float(self.collapsed_mean_uv),
+            "collapsed_sme_uv": _json_float(self.collapsed_sme_uv),
         }
 
 
@@ -204,6 +211,9 @@ def score_epochs(
         for label, values in zip(spec.conditions, (first, second), strict=False)
     }
     mean_diff = v_to_uv(first.mean(axis=0) - second.mean(axis=0))
+    collapsed_mean = v_to_uv((first.mean(axis=0) + second.mean(axis=0)) / 2)
+    first_sme, second_sme = (sme[label] for label in spec.conditions)
+    collapsed_sme = np.sqrt(first_sme**2 + second_sme**2) / 2
     channels = [
         ChannelScore(
             name=name,
@@ -215,6 +225,8 @@ def score_epochs(
             hedges_g=float(effect.g[i]),
             hedges_g_ci=(float(effect.ci_low[i]), float(effect.ci_high[i])),
             sme_uv={label: float(values[i]) for label, values in sme.items()},
+            collapsed_mean_uv=float(collapsed_mean[i]),
+            collapsed_sme_uv=float(collapsed_sme[i]),
         )
         for i, name in enumerate(names)
     ]

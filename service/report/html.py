@@ -154,8 +154,8 @@ def _figure(item: ReportFigure, png: bytes) -> str:
 
 CAUTION = (
     "Research software, not for clinical decisions. Picking the pipeline with the most significant channels "
-    "on the data you then test inflates false positives; choose on measures that ignore the contrast "
-    "(trials kept, SME) or on tuning subjects, and confirm on subjects that played no part in the choice."
+    "on the data you then test inflates false positives; choose on a measure that ignores the contrast "
+    "(the collapsed ERP over its SME) or on tuning subjects, and confirm on subjects that played no part in the choice."
 )
 
 
@@ -171,7 +171,9 @@ def run_report_html(document: dict[str, Any], run: RunFacts, shown: Sequence[tup
         "<h2>Results</h2>",
         f"<p>Contrast <strong>{first} − {second}</strong>, window {scoring['window_s'][0]:g}–"
         f"{scoring['window_s'][1]:g} s, α = {scoring['alpha']:g}, correction {escape(scoring['correction'])}.</p>",
+        _exploratory_html(document),
         _figures_html(shown),
+        _comparisons_html(document),
         _errors_html(document),
         "<h2>Inputs</h2>",
         _epoch_sets_html(run.epoch_sets),
@@ -183,6 +185,54 @@ def run_report_html(document: dict[str, Any], run: RunFacts, shown: Sequence[tup
         _provenance_html(document["provenance"]),
     ]
     return _page(f"epoch-assay run {run.id}", "".join(body))
+
+
+def _exploratory_html(document: dict[str, Any]) -> str:
+    """The document's ``exploratory`` note, shown above the figures it concerns."""
+    note = document.get("exploratory")
+    if not note:
+        return ""
+    parts = ", ".join(escape(part) for part in note["parts"])
+    return f'<p class="caution"><strong>Exploratory: {parts}.</strong> {escape(note["reason"])}.</p>'
+
+
+def _p_text(value: float | None) -> str:
+    return "–" if value is None else f"{value:.3g}"
+
+
+def _comparisons_html(document: dict[str, Any]) -> str:
+    """The ranking against the reference, with p adjusted across the pipelines compared."""
+    entries = [entry for entry in document.get("ranking") or () if "vs_reference" in entry]
+    if not entries:
+        return ""
+    rows, adjustment = [], ""
+    for entry in sorted(entries, key=lambda item: item["rank"]):
+        versus = entry["vs_reference"] or {}
+        adjustment = versus.get("adjustment", adjustment)
+        spread = entry.get("rank_spread")
+        rows.append(
+            [
+                str(entry["rank"]),
+                escape(entry["pipeline"]),
+                _p_text(entry.get("mean")),
+                _p_text(versus.get("mean_difference")),
+                _p_text(versus.get("paired_t_p")),
+                _p_text(versus.get("p_adjusted")),
+                _p_text(entry.get("probability_best")),
+                "–" if not spread else f"{spread['low']:g}–{spread['high']:g}",
+            ]
+        )
+    return (
+        "<h3>Pipelines against the reference</h3>"
+        + _table(
+            ["rank", "pipeline", "mean", "Δ reference", "p (paired t)", "p adjusted", "P(best)", "rank spread"],
+            rows,
+            numeric=(0, 2, 3, 4, 5, 6),
+        )
+        + f"<p>p adjusted: {escape(adjustment or 'none')}. P(best) and rank spread: share of subject "
+        "bootstraps in which the pipeline is best, and 2.5–97.5 percentiles of its rank; descriptive, "
+        "not a probability or a confidence interval.</p>"
+    )
 
 
 def _figures_html(shown: Sequence[tuple[ReportFigure, bytes]]) -> str:

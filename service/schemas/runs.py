@@ -219,5 +219,10 @@ class RunResultDocument(BaseModel):
     results: list[PipelineResult]
     cache: dict | None = Field(None, description="Step-cache lookups of the run: hits and misses.")
     ranking: list[dict] | None = Field(None, description="Every pipeline, best first, against the reference.")
-    factor_effects: dict | None = Field(None, description="Grid runs: mixed-model effects of each factor.")
+    factor_effects: dict | None = Field(
+        None, description="Grid runs: per-subject factor contrasts tested across subjects."
+    )
     selection: dict | None = Field(None, description="The winner by the run's selection rule.")
+    exploratory: dict | None = Field(
+        None, description="Runs with a selection: the all-subject parts that are exploratory, and why."
+    )
