@@ -81,7 +81,8 @@ class AdjustedComparison:
 class RankSpread:
     """How the rank moves over bootstraps of the subjects; descriptive, not a confidence interval.
 
-    probability_best : share of bootstraps in which the pipeline has the best mean
+    probability_best : share of bootstraps in which the pipeline has the best mean (a tie for the
+        best shares the bootstrap equally)
     rank_spread_low, rank_spread_high : 2.5 and 97.5 percentiles of its rank (1 = best)
     """
 
@@ -232,7 +233,9 @@ def rank_spreads(
     ranks = np.empty_like(order)
     np.put_along_axis(ranks, order, np.arange(1, n_pipelines + 1)[None, :], axis=1)
     low, high = np.percentile(ranks, [2.5, 97.5], axis=0, method="inverted_cdf")
-    best = (ranks == 1).mean(axis=0)
+    # Pipelines tied for the best mean in a bootstrap (identical outputs, say) share that bootstrap.
+    at_best = np.isfinite(keys) & (keys == keys.min(axis=1, keepdims=True))
+    best = (at_best / np.maximum(at_best.sum(axis=1, keepdims=True), 1)).mean(axis=0)
     return [
         RankSpread(float(best[i]), float(low[i]), float(high[i]), n_bootstraps) if present[i].any() else None
         for i in range(n_pipelines)

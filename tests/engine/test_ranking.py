@@ -117,3 +117,10 @@ def test_rank_spread_of_equal_pipelines_spans_several_ranks_and_is_labelled_desc
     ranked = rank_pipelines(TABLE, "ref")
     assert all(entry.spread.rank_spread_high - entry.spread.rank_spread_low >= 1 for entry in ranked)
     assert "descriptive" in ranked[0].to_json("ref")["rank_spread"]["kind"]
+
+
+def test_pipelines_with_identical_scores_share_probability_best():
+    values = np.vstack([VALUES[0], VALUES[1] + 5.0, VALUES[1] + 5.0])
+    ranked = rank_pipelines(MetricTable("collapsed_snr", ("ref", "p1", "p2"), TABLE.subjects, values), "ref")
+    shares = {entry.pipeline: entry.spread.probability_best for entry in ranked}
+    assert shares == {"p1": 0.5, "p2": 0.5, "ref": 0.0}
