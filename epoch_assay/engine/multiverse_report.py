@@ -68,11 +68,12 @@ def selection_document(
 ) -> Entry:
     """The winner by ``selection``'s rule, with the subjects on each side and its scores."""
     table = metric_table(results, selection.metric, pipelines)
+    collapsed_erp = metric_table(results, "collapsed_erp_uv", pipelines)
     try:
         if isinstance(selection, ContrastBlindSpec):
-            return contrast_blind(table, reference, metric_table(results, "collapsed_erp_uv", pipelines)).to_json()
+            return contrast_blind(table, reference, collapsed_erp).to_json()
         tuning = selection.tuning_subjects or list(split_subjects(table.subjects, selection.split)[0])
-        return tuning_holdout(table, reference, tuning).to_json()
+        return tuning_holdout(table, reference, tuning, collapsed_erp).to_json()
     except SpecError as error:
         return {
             "rule": selection.rule,

@@ -159,8 +159,13 @@ def best_pipeline(table: MetricTable) -> str:
     return table.pipelines[int(np.argmax(keys))]
 
 
-def tuning_holdout(table: MetricTable, reference: str, tuning: Sequence[str]) -> SelectionResult:
-    """Choose on ``tuning`` subjects; score and test the winner against ``reference`` on all the others."""
+def tuning_holdout(
+    table: MetricTable, reference: str, tuning: Sequence[str], collapsed_erp: MetricTable | None = None
+) -> SelectionResult:
+    """Choose on ``tuning`` subjects; score and test the winner against ``reference`` on all the others.
+
+    collapsed_erp : as for ``contrast_blind``, for the warning on a noise-only metric
+    """
     unknown = sorted(set(tuning) - set(table.subjects))
     if unknown:
         raise SpecError(
@@ -197,6 +202,7 @@ def tuning_holdout(table: MetricTable, reference: str, tuning: Sequence[str]) ->
             winner_vs_reference=paired_over_shared_subjects(winner_row, reference_row),
         ),
         optimism=float(optimism),
+        warnings=_shrink_warning(table.metric, winner, reference, collapsed_erp),
     )
 
 

@@ -53,7 +53,7 @@ class Sizes:
 
 
 FULL = Sizes(
-    ranking_exact=100, ranking_monte_carlo=1000, factors=2000, factors_old_model=200, blind_selection=200, guard=2000
+    ranking_exact=100, ranking_monte_carlo=1000, factors=2000, factors_old_model=200, blind_selection=150, guard=2000
 )
 QUICK = Sizes(ranking_exact=3, ranking_monte_carlo=5, factors=10, factors_old_model=3, blind_selection=1, guard=10)
 

@@ -51,5 +51,5 @@ def test_held_out_intervals_of_the_selection_guard_cover_the_true_means():
 def test_testing_the_contrast_blind_winner_holds_the_false_positive_rate():
     # Real filter and baseline steps on simulated epochs without a condition difference; the winner's
     # group test is scipy.stats.ttest_1samp over subjects of its channel-mean difference.
-    result = blind_selection_null(100, n_subjects=8, seed=5)
-    assert result.blind_winner_rate <= binomial_bound(100)
+    result = blind_selection_null(80, n_subjects=8, seed=5)
+    assert result.blind_winner_rate <= binomial_bound(80)

@@ -198,3 +198,9 @@ def test_holdout_score_of_a_tuned_winner_stays_at_chance_while_its_tuning_score_
     assert holdout_mean < ALPHA + 3 * holdout_se
     assert tuning_mean > ALPHA + 3 * tuning_se
     assert tuning_mean > holdout_mean
+
+
+def test_a_tuned_noise_only_winner_that_halves_the_collapsed_erp_is_warned_about():
+    sme = MetricTable("median_sme", TABLE.pipelines, SUBJECTS, np.array([[1.0] * 4, [0.2] * 4, [0.9] * 4]))
+    erp = MetricTable("collapsed_erp_uv", TABLE.pipelines, SUBJECTS, np.array([[3.0] * 4, [1.0] * 4, [3.0] * 4]))
+    assert "removed the signal" in tuning_holdout(sme, "ref", ["s1", "s2"], erp).warnings[0]

@@ -179,8 +179,8 @@ SLOW_ERP_PIPELINES = (
 def slow_erp_epochs(
     rng: np.random.Generator,
     *,
-    n_per_condition: int = 40,
-    n_channels: int = 8,
+    n_per_condition: int = 30,
+    n_channels: int = 6,
     erp_uv: float = 3.0,
     difference_uv: float = 0.0,
     noise_uv: float = 10.0,
