@@ -148,6 +148,8 @@ def test_to_json_has_exactly_the_documented_keys(epochs):
         "hedges_g",
         "hedges_g_ci",
         "sme_uv",
+        "collapsed_mean_uv",
+        "collapsed_sme_uv",
     }
     assert set(document["bootstrap"]) == {
         "median",
