@@ -59,8 +59,6 @@ DEMO_SCORING: dict[str, Any] = {
     "bootstrap": {"trials_per_condition": 40, "resamples": 500, "seed": 7},
 }
 
-FINISHED_STATUSES = ("succeeded", "failed")
-
 
 class DemoLoadError(RuntimeError):
     """The server refused a demo request or the demo run failed."""

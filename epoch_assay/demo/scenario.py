@@ -16,8 +16,6 @@ of the demo is therefore ``EFFECT_WINDOW_S`` and the contrast is incongruent min
 congruent.
 """
 
-LAB = "Marrowgate Language Lab"
-LANGUAGE = "Thessari"
 STUDY_CODE = "READ-01"
 STUDY_TITLE = "Thessari sentence endings: congruent versus incongruent final words"
 SESSION = "ses-01"

@@ -23,11 +23,11 @@ every contrast of the factor.
 
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
-from typing import Any
 
 import numpy as np
 from scipy import stats
 
+from epoch_assay.engine.document.multiverse import FactorEffectResult, FactorEffectsResult, LevelEffectResult
 from epoch_assay.engine.subject_metrics import MetricTable
 
 CONFIDENCE = 0.95
@@ -49,15 +49,15 @@ class LevelEffect:
     p: float
     n_subjects: int
 
-    def to_json(self) -> dict[str, Any]:
-        return {
-            "estimate": _finite_or_none(self.estimate),
-            "ci_low": _finite_or_none(self.ci_low),
-            "ci_high": _finite_or_none(self.ci_high),
-            "t": _finite_or_none(self.t),
-            "p": _finite_or_none(self.p),
-            "n_subjects": self.n_subjects,
-        }
+    def to_document(self) -> LevelEffectResult:
+        return LevelEffectResult(
+            estimate=self.estimate,
+            ci_low=self.ci_low,
+            ci_high=self.ci_high,
+            t=self.t,
+            p=self.p,
+            n_subjects=self.n_subjects,
+        )
 
 
 @dataclass(frozen=True)
@@ -77,16 +77,16 @@ class FactorEffect:
     baseline_level: str
     levels: dict[str, LevelEffect]
 
-    def to_json(self) -> dict[str, Any]:
-        return {
-            "p": _finite_or_none(self.p),
-            "test": self.test,
-            "statistic": _finite_or_none(self.statistic),
-            "df": [float(value) for value in self.df],
-            "n_subjects": self.n_subjects,
-            "baseline_level": self.baseline_level,
-            "levels": {level: effect.to_json() for level, effect in self.levels.items()},
-        }
+    def to_document(self) -> FactorEffectResult:
+        return FactorEffectResult(
+            p=self.p,
+            test=self.test,
+            statistic=self.statistic,
+            df=list(self.df),
+            n_subjects=self.n_subjects,
+            baseline_level=self.baseline_level,
+            levels={level: effect.to_document() for level, effect in self.levels.items()},
+        )
 
 
 @dataclass(frozen=True)
@@ -101,16 +101,16 @@ class FactorEffects:
     factors: dict[str, FactorEffect]
     warnings: tuple[str, ...]
 
-    def to_json(self) -> dict[str, Any]:
-        return {
-            "metric": self.metric,
-            "scale": self.scale,
-            "method": self.method,
-            "n_observations": self.n_observations,
-            "n_subjects": self.n_subjects,
-            "factors": {name: f.to_json() for name, f in self.factors.items()},
-            "warnings": list(self.warnings),
-        }
+    def to_document(self) -> FactorEffectsResult:
+        return FactorEffectsResult(
+            metric=self.metric,
+            scale=self.scale,
+            method=self.method,
+            n_observations=self.n_observations,
+            n_subjects=self.n_subjects,
+            factors={name: f.to_document() for name, f in self.factors.items()},
+            warnings=list(self.warnings),
+        )
 
 
 METHOD = (
@@ -238,7 +238,3 @@ def _factor_test(
     return FactorEffect(
         result.p, "Hotelling T²", result.f, result.df, result.n_subjects, levels[0], {**baseline, **effects}
     )
-
-
-def _finite_or_none(value: float) -> float | None:
-    return float(value) if np.isfinite(value) else None

@@ -22,11 +22,17 @@ Pipelines with no score sort last.
 """
 
 from dataclasses import dataclass
-from typing import Any
 
 import numpy as np
 from scipy import stats
 
+from epoch_assay.engine.document.multiverse import (
+    AdjustedComparisonResult,
+    MeanIntervalResult,
+    PipelineGroupResult,
+    RankingEntry,
+    RankSpreadResult,
+)
 from epoch_assay.engine.group import PairedComparison, paired_comparison, paired_comparisons
 from epoch_assay.engine.stats import sign_flip_test
 from epoch_assay.engine.subject_metrics import MetricTable
@@ -48,13 +54,8 @@ class MeanInterval:
     ci_low: float
     ci_high: float
 
-    def to_json(self) -> dict[str, Any]:
-        return {
-            "n_subjects": self.n_subjects,
-            "mean": _finite_or_none(self.mean),
-            "ci_low": _finite_or_none(self.ci_low),
-            "ci_high": _finite_or_none(self.ci_high),
-        }
+    def to_document(self) -> MeanIntervalResult:
+        return MeanIntervalResult(n_subjects=self.n_subjects, mean=self.mean, ci_low=self.ci_low, ci_high=self.ci_high)
 
 
 @dataclass(frozen=True)
@@ -69,12 +70,12 @@ class AdjustedComparison:
     p_adjusted: float
     adjustment: str
 
-    def to_json(self, reference: str) -> dict[str, Any]:
-        return {
-            **self.paired.to_json(reference),
-            "p_adjusted": _finite_or_none(self.p_adjusted),
-            "adjustment": self.adjustment,
-        }
+    def to_document(self, reference: str) -> AdjustedComparisonResult:
+        return AdjustedComparisonResult(
+            **self.paired.to_document(reference).model_dump(),
+            p_adjusted=self.p_adjusted,
+            adjustment=self.adjustment,
+        )
 
 
 @dataclass(frozen=True)
@@ -103,23 +104,29 @@ class RankedPipeline:
     vs_reference: AdjustedComparison | None
     spread: RankSpread | None
 
-    def to_json(self, reference: str) -> dict[str, Any]:
+    def to_document(self, reference: str, metric: str, group: PipelineGroupResult | None) -> RankingEntry:
+        """The ranking entry of the result document, with the pipeline's group summary."""
         spread = self.spread
-        return {
-            "rank": self.rank,
-            "pipeline": self.pipeline,
-            **self.score.to_json(),
-            "probability_best": None if spread is None else spread.probability_best,
-            "rank_spread": None
+        return RankingEntry(
+            rank=self.rank,
+            pipeline=self.pipeline,
+            n_subjects=self.score.n_subjects,
+            mean=self.score.mean,
+            ci_low=self.score.ci_low,
+            ci_high=self.score.ci_high,
+            vs_reference=None if self.vs_reference is None else self.vs_reference.to_document(reference),
+            probability_best=None if spread is None else spread.probability_best,
+            rank_spread=None
             if spread is None
-            else {
-                "low": spread.rank_spread_low,
-                "high": spread.rank_spread_high,
-                "n_bootstraps": spread.n_bootstraps,
-                "kind": "2.5-97.5 percentiles of the rank over subject bootstraps; descriptive",
-            },
-            "vs_reference": None if self.vs_reference is None else self.vs_reference.to_json(reference),
-        }
+            else RankSpreadResult(
+                low=spread.rank_spread_low,
+                high=spread.rank_spread_high,
+                n_bootstraps=spread.n_bootstraps,
+                kind="2.5-97.5 percentiles of the rank over subject bootstraps; descriptive, not a confidence interval",
+            ),
+            metric=metric,
+            group=group,
+        )
 
 
 def mean_intervals(values: np.ndarray, confidence: float = CONFIDENCE) -> list[MeanInterval]:
@@ -268,7 +275,3 @@ def paired_over_shared_subjects(values: np.ndarray, reference: np.ndarray) -> Pa
     """Comparison over the subjects with a value for both; None with fewer than two."""
     both = np.isfinite(values) & np.isfinite(reference)
     return paired_comparison(values[both], reference[both]) if np.count_nonzero(both) >= 2 else None
-
-
-def _finite_or_none(value: float) -> float | None:
-    return value if np.isfinite(value) else None

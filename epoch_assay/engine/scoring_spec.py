@@ -4,7 +4,15 @@ from pydantic import BaseModel, ConfigDict, Field, model_validator
 
 from epoch_assay.engine.epochs import EpochSetMeta
 from epoch_assay.engine.errors import SpecError
-from epoch_assay.engine.stats import BootstrapMode, ComparisonSettings, CorrectionMethod, IntervalMethod, TrialTest
+from epoch_assay.engine.stats import (
+    CORRECTIONS,
+    TRIAL_TESTS,
+    BootstrapMode,
+    ComparisonSettings,
+    CorrectionMethod,
+    IntervalMethod,
+    TrialTest,
+)
 from epoch_assay.engine.windows import check_window_in_epoch
 
 
@@ -56,8 +64,8 @@ class ScoringSpec(BaseModel):
     alpha: float = Field(0.05, gt=0.0, lt=1.0, description="Significance level applied to adjusted p-values.")
     test: TrialTest = Field(
         "welch",
-        description="Trial-level test: welch (unequal variances), student (pooled variance), mann_whitney (ranks; "
-        "the channel's t carries U) or permutation (label permutation of Welch's t).",
+        description="Trial-level test: "
+        + "; ".join(f"{kind.name}: {kind.description}" for kind in TRIAL_TESTS.values()),
     )
     n_permutations: int = Field(
         1000, ge=10, le=100_000, description="Permutations of the permutation test and of the group-level max_stat."
@@ -65,8 +73,8 @@ class ScoringSpec(BaseModel):
     seed: int = Field(7, ge=0, description="Seed of the permutations; same seed, same p-values.")
     correction: CorrectionMethod = Field(
         "fdr_bh",
-        description="Multiple-comparison correction across channels; max_stat (family-wise, from the maximum |t| "
-        "across channels) needs test permutation.",
+        description="Multiple-comparison correction across channels: "
+        + "; ".join(f"{correction.name}: {correction.description}" for correction in CORRECTIONS.values()),
     )
     bootstrap: BootstrapSpec | None = None
     reference_pipeline: str | None = Field(

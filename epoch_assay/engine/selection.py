@@ -23,11 +23,12 @@ upwards. Two rules avoid it:
 
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Annotated, Any, Literal, get_args
+from typing import Annotated, Literal, get_args
 
 import numpy as np
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
+from epoch_assay.engine.document.multiverse import HoldoutResult, SelectionOutcome, TuningScores
 from epoch_assay.engine.errors import SpecError
 from epoch_assay.engine.group import PairedComparison
 from epoch_assay.engine.ranking import MeanInterval, mean_intervals, paired_over_shared_subjects
@@ -113,31 +114,31 @@ class SelectionResult:
     optimism: float | None
     warnings: tuple[str, ...] = ()
 
-    def to_json(self) -> dict[str, Any]:
+    def to_document(self) -> SelectionOutcome:
         holdout = self.holdout
-        return {
-            "rule": self.rule,
-            "metric": self.metric,
-            "winner": self.winner,
-            "reference_pipeline": self.reference,
-            "tuning_subjects": list(self.tuning_subjects),
-            "holdout_subjects": list(self.holdout_subjects),
-            "tuning": {
-                "winner_score": _score(self.winner_tuning_score),
-                "reference_score": _score(self.reference_tuning_score),
-            },
-            "holdout": None
+        return SelectionOutcome(
+            rule=self.rule,
+            metric=self.metric,
+            winner=self.winner,
+            reference_pipeline=self.reference,
+            tuning_subjects=list(self.tuning_subjects),
+            holdout_subjects=list(self.holdout_subjects),
+            winner_tuning_score=self.winner_tuning_score,
+            winner_holdout_score=None if holdout is None else holdout.winner.mean,
+            reference_holdout_score=None if holdout is None else holdout.reference.mean,
+            tuning=TuningScores(winner_score=self.winner_tuning_score, reference_score=self.reference_tuning_score),
+            holdout=None
             if holdout is None
-            else {
-                "winner": holdout.winner.to_json(),
-                "reference": holdout.reference.to_json(),
-                "winner_vs_reference": None
+            else HoldoutResult(
+                winner=holdout.winner.to_document(),
+                reference=holdout.reference.to_document(),
+                winner_vs_reference=None
                 if holdout.winner_vs_reference is None
-                else holdout.winner_vs_reference.to_json(self.reference),
-            },
-            "optimism": None if self.optimism is None else _score(self.optimism),
-            "warnings": list(self.warnings),
-        }
+                else holdout.winner_vs_reference.to_document(self.reference),
+            ),
+            optimism=self.optimism,
+            warnings=list(self.warnings),
+        )
 
 
 def split_subjects(subjects: Sequence[str], split: SplitSpec) -> tuple[tuple[str, ...], tuple[str, ...]]:
@@ -246,7 +247,3 @@ def _shrink_warning(metric: str, winner: str, reference: str, collapsed_erp: Met
         f"(root mean square over channels, mean over subjects) against {theirs:.3g} µV for the reference "
         f"{reference}: it may have removed the signal with the noise; prefer the metric collapsed_snr",
     )
-
-
-def _score(value: float) -> float | None:
-    return float(value) if np.isfinite(value) else None

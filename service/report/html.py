@@ -13,6 +13,8 @@ from html import escape
 from typing import Any
 from urllib.parse import quote
 
+from epoch_assay.engine.document import RunResultDocument
+from epoch_assay.engine.document.run import RunProvenance
 from service.report.catalogue import ReportFigure
 
 CSS = """
@@ -159,18 +161,18 @@ CAUTION = (
 )
 
 
-def run_report_html(document: dict[str, Any], run: RunFacts, shown: Sequence[tuple[ReportFigure, bytes]]) -> str:
+def run_report_html(document: RunResultDocument, run: RunFacts, shown: Sequence[tuple[ReportFigure, bytes]]) -> str:
     """The run report page: inputs and provenance, then the figures in ``shown`` (with their PNG bytes)."""
-    scoring = document["scoring"]
-    first, second = (escape(label) for label in scoring["conditions"])
+    scoring = document.scoring
+    first, second = (escape(label) for label in scoring.conditions)
     body = [
         f"<h1>Run report {escape(run.id)}</h1>",
         f'<p class="sub">Study {_code(run.study_code)} — {escape(run.study_title)} · status {escape(run.status)} · '
         f"created {_when(run.created_at)} · finished {_when(run.finished_at)}</p>",
         f'<p class="caution">{escape(CAUTION)}</p>',
         "<h2>Results</h2>",
-        f"<p>Contrast <strong>{first} − {second}</strong>, window {scoring['window_s'][0]:g}–"
-        f"{scoring['window_s'][1]:g} s, α = {scoring['alpha']:g}, correction {escape(scoring['correction'])}.</p>",
+        f"<p>Contrast <strong>{first} − {second}</strong>, window {scoring.window_s[0]:g}–"
+        f"{scoring.window_s[1]:g} s, α = {scoring.alpha:g}, correction {escape(scoring.correction)}.</p>",
         _exploratory_html(document),
         _figures_html(shown),
         _comparisons_html(document),
@@ -178,48 +180,47 @@ def run_report_html(document: dict[str, Any], run: RunFacts, shown: Sequence[tup
         "<h2>Inputs</h2>",
         _epoch_sets_html(run.epoch_sets),
         "<h3>Pipelines</h3>",
-        _pipelines_html(run.pipelines, document["provenance"].get("pipeline_hashes", {})),
+        _pipelines_html(run.pipelines, document.provenance.pipeline_hashes),
         "<h3>Scoring</h3>",
-        f"<p>{_code(json.dumps(scoring, sort_keys=True))}</p>",
+        f"<p>{_code(json.dumps(scoring.model_dump(mode='json'), sort_keys=True))}</p>",
         "<h2>Provenance</h2>",
-        _provenance_html(document["provenance"]),
+        _provenance_html(document.provenance),
     ]
     return _page(f"epoch-assay run {run.id}", "".join(body))
 
 
-def _exploratory_html(document: dict[str, Any]) -> str:
+def _exploratory_html(document: RunResultDocument) -> str:
     """The document's ``exploratory`` note, shown above the figures it concerns."""
-    note = document.get("exploratory")
-    if not note:
+    note = document.exploratory
+    if note is None:
         return ""
-    parts = ", ".join(escape(part) for part in note["parts"])
-    return f'<p class="caution"><strong>Exploratory: {parts}.</strong> {escape(note["reason"])}.</p>'
+    parts = ", ".join(escape(part) for part in note.parts)
+    return f'<p class="caution"><strong>Exploratory: {parts}.</strong> {escape(note.reason)}.</p>'
 
 
 def _p_text(value: float | None) -> str:
     return "–" if value is None else f"{value:.3g}"
 
 
-def _comparisons_html(document: dict[str, Any]) -> str:
+def _comparisons_html(document: RunResultDocument) -> str:
     """The ranking against the reference, with p adjusted across the pipelines compared."""
-    entries = [entry for entry in document.get("ranking") or () if "vs_reference" in entry]
+    entries = sorted(document.ranking or (), key=lambda item: item.rank)
     if not entries:
         return ""
-    rows, adjustment = [], ""
-    for entry in sorted(entries, key=lambda item: item["rank"]):
-        versus = entry["vs_reference"] or {}
-        adjustment = versus.get("adjustment", adjustment)
-        spread = entry.get("rank_spread")
+    rows, adjustment = [], None
+    for entry in entries:
+        versus, spread = entry.vs_reference, entry.rank_spread
+        adjustment = adjustment or (versus.adjustment if versus is not None else None)
         rows.append(
             [
-                str(entry["rank"]),
-                escape(entry["pipeline"]),
-                _p_text(entry.get("mean")),
-                _p_text(versus.get("mean_difference")),
-                _p_text(versus.get("paired_t_p")),
-                _p_text(versus.get("p_adjusted")),
-                _p_text(entry.get("probability_best")),
-                "–" if not spread else f"{spread['low']:g}–{spread['high']:g}",
+                str(entry.rank),
+                escape(entry.pipeline),
+                _p_text(entry.mean),
+                "–" if versus is None else _p_text(versus.mean_difference),
+                "–" if versus is None else _p_text(versus.paired_t_p),
+                "–" if versus is None else _p_text(versus.p_adjusted),
+                _p_text(entry.probability_best),
+                "–" if spread is None else f"{spread.low:g}–{spread.high:g}",
             ]
         )
     return (
@@ -251,15 +252,13 @@ def _figures_html(shown: Sequence[tuple[ReportFigure, bytes]]) -> str:
     return "".join(parts)
 
 
-def _errors_html(document: dict[str, Any]) -> str:
-    failed = [entry for entry in document["results"] if entry.get("error")]
-    warned = [entry for entry in document["results"] if entry.get("warnings")]
+def _errors_html(document: RunResultDocument) -> str:
+    failed = [(entry, entry.error) for entry in document.results if entry.error]
+    warned = [entry for entry in document.results if entry.warnings]
     if not failed and not warned:
         return ""
-    rows = [
-        [escape(e["pipeline"]), escape(e["subject"]), f'<span class="bad">{escape(e["error"])}</span>'] for e in failed
-    ]
-    rows += [[escape(e["pipeline"]), escape(e["subject"]), escape("; ".join(e["warnings"]))] for e in warned]
+    rows = [[escape(e.pipeline), escape(e.subject), f'<span class="bad">{escape(error)}</span>'] for e, error in failed]
+    rows += [[escape(e.pipeline), escape(e.subject), escape("; ".join(e.warnings))] for e in warned]
     return "<h3>Errors and warnings</h3>" + _table(["pipeline", "subject", "message"], rows)
 
 
@@ -295,15 +294,15 @@ def _step_text(step: dict[str, Any]) -> str:
     return f"{step['step']}({params})"
 
 
-def _provenance_html(provenance: dict[str, Any]) -> str:
-    software = ", ".join(f"{name} {version}" for name, version in provenance.get("software", {}).items())
-    seeds = ", ".join(f"{name}: {seed}" for name, seed in provenance.get("seeds", {}).items())
+def _provenance_html(provenance: RunProvenance) -> str:
+    software = ", ".join(f"{name} {version}" for name, version in provenance.software.items())
+    seeds = ", ".join(f"{name}: {seed}" for name, seed in provenance.seeds.model_dump().items())
     rows = [
         ["software", escape(software)],
         ["seeds", escape(seeds or "—")],
-        ["scoring hash", _code(provenance.get("scoring_hash", ""))],
+        ["scoring hash", _code(provenance.scoring_hash)],
     ]
-    rows += [[f"file {escape(es)}", _code(sha)] for es, sha in provenance.get("epoch_set_sha256", {}).items()]
+    rows += [[f"file {escape(es)}", _code(sha)] for es, sha in provenance.epoch_set_sha256.items()]
     return _table(["what", "value"], rows)
 
 

@@ -3,7 +3,19 @@
 from datetime import UTC, datetime
 from typing import Any
 
-from sqlalchemy import JSON, DateTime, Float, ForeignKey, Index, Integer, String, Text, TypeDecorator, UniqueConstraint
+from sqlalchemy import (
+    JSON,
+    DateTime,
+    Float,
+    ForeignKey,
+    Index,
+    Integer,
+    LargeBinary,
+    String,
+    Text,
+    TypeDecorator,
+    UniqueConstraint,
+)
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship
 
 from service.storage.ids import utc_now
@@ -24,6 +36,10 @@ class UTCDateTime(TypeDecorator[datetime]):
         if value is None:
             return None
         return value.replace(tzinfo=UTC) if value.tzinfo is None else value.astimezone(UTC)
+
+
+# The API key label column is VARCHAR of this length: PostgreSQL refuses a longer value (SQLite would keep it).
+API_KEY_LABEL_LENGTH = 200
 
 
 class Base(DeclarativeBase):
@@ -137,12 +153,29 @@ class RunPipeline(Base):
 
 
 class RunResult(Base):
-    """The result document of a succeeded run (JSON text, see worker.result_document)."""
+    """The result document of a succeeded run: JSON text built by worker.run_job, shaped as service.schemas.runs."""
 
     __tablename__ = "run_results"
 
     run_id: Mapped[str] = mapped_column(ForeignKey("runs.id", ondelete="CASCADE"), primary_key=True)
     document: Mapped[str] = mapped_column(Text)
+    created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utc_now)
+
+
+class RunFigure(Base):
+    """A figure of a succeeded run's report, drawn once and kept (PNG or SVG bytes).
+
+    ``renderer`` names the drawing code and the plotting library's version that made it, so a
+    figure drawn by older code is never served for newer code: it is drawn again under the new name.
+    """
+
+    __tablename__ = "run_figures"
+
+    run_id: Mapped[str] = mapped_column(ForeignKey("runs.id", ondelete="CASCADE"), primary_key=True)
+    name: Mapped[str] = mapped_column(String(300), primary_key=True)
+    format: Mapped[str] = mapped_column(String(8), primary_key=True)
+    renderer: Mapped[str] = mapped_column(String(64), primary_key=True)
+    content: Mapped[bytes] = mapped_column(LargeBinary)
     created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utc_now)
 
 
@@ -186,7 +219,7 @@ class ApiKey(Base):
     token_sha256: Mapped[str] = mapped_column(String(64), unique=True)
     role: Mapped[str] = mapped_column(String(16))
     study_id: Mapped[str | None] = mapped_column(ForeignKey("studies.id", ondelete="CASCADE"), nullable=True)
-    label: Mapped[str | None] = mapped_column(String(200), nullable=True)
+    label: Mapped[str | None] = mapped_column(String(API_KEY_LABEL_LENGTH), nullable=True)
     created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utc_now)
     revoked_at: Mapped[datetime | None] = mapped_column(UTCDateTime, nullable=True)
 

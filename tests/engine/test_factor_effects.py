@@ -178,7 +178,7 @@ def test_high_pass_raises_the_significant_fraction_in_the_subjects_that_drift():
                 {
                     "pipeline": leaf.pipeline.name,
                     "subject": f"sub-{subject}",
-                    **score_epochs(leaf.epochs, scoring).to_json(),
+                    **score_epochs(leaf.epochs, scoring).model_dump(mode="json"),
                 }
             )
     table = metric_table(entries, "significant_fraction", [point.pipeline.name for point in points])

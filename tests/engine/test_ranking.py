@@ -25,7 +25,7 @@ def test_comparison_with_reference_matches_scipy_paired_t_interval():
     # Reference: scipy.stats.ttest_rel(...).confidence_interval() (Virtanen et al., 2020, SciPy 1.0)
     ci = stats.ttest_rel(VALUES[2], VALUES[0]).confidence_interval(0.95)
     np.testing.assert_allclose([entry.vs_reference.paired.ci_low, entry.vs_reference.paired.ci_high], [ci.low, ci.high])
-    assert entry.to_json("ref")["vs_reference"]["reference_pipeline"] == "ref"
+    assert entry.to_document("ref", TABLE.metric, None).vs_reference.reference_pipeline == "ref"
 
 
 def test_pipelines_are_sorted_best_mean_first_with_ranks_from_one():
@@ -43,7 +43,7 @@ def test_pipeline_without_scores_sorts_last_and_the_reference_has_no_comparison(
     values = VALUES.copy()
     values[1] = np.nan
     ranking = rank_pipelines(MetricTable(TABLE.metric, TABLE.pipelines, TABLE.subjects, values), "ref")
-    assert ranking[-1].pipeline == "p1" and ranking[-1].to_json("ref")["mean"] is None
+    assert ranking[-1].pipeline == "p1" and ranking[-1].to_document("ref", TABLE.metric, None).mean is None
     assert next(e for e in ranking if e.pipeline == "ref").vs_reference is None
     assert ranking[-1].vs_reference is None
 
@@ -116,7 +116,7 @@ def test_probability_best_sums_to_one_and_follows_a_clear_winner():
 def test_rank_spread_of_equal_pipelines_spans_several_ranks_and_is_labelled_descriptive():
     ranked = rank_pipelines(TABLE, "ref")
     assert all(entry.spread.rank_spread_high - entry.spread.rank_spread_low >= 1 for entry in ranked)
-    assert "descriptive" in ranked[0].to_json("ref")["rank_spread"]["kind"]
+    assert "descriptive" in ranked[0].to_document("ref", TABLE.metric, None).rank_spread.kind
 
 
 def test_pipelines_with_identical_scores_share_probability_best():

@@ -80,7 +80,7 @@ def test_held_out_winner_is_tested_against_the_reference_like_scipy_ttest_rel():
     paired = result.holdout.winner_vs_reference
     assert paired.paired_t_p == pytest.approx(test.pvalue)
     np.testing.assert_allclose([paired.ci_low, paired.ci_high], list(test.confidence_interval(0.95)))
-    assert result.to_json()["holdout"]["winner_vs_reference"]["reference_pipeline"] == "ref"
+    assert result.to_document().holdout.winner_vs_reference.reference_pipeline == "ref"
 
 
 def test_tuning_subjects_not_in_the_run_are_refused():
@@ -138,13 +138,13 @@ def test_default_contrast_blind_rule_does_not_choose_a_high_pass_that_removes_a_
     # The ERP of comparisons.slow_erp_epochs has nearly all its power below 2 Hz, so a 4 Hz high-pass
     # (run by the real filter step) removes it; the collapsed ERP over its SME must fall with it.
     result = selection_document(SLOW_ERP_STUDY, PIPELINE_NAMES, "baseline", ContrastBlindSpec())
-    assert result["metric"] == "collapsed_snr" and result["winner"] != "highpass-4"
+    assert result.metric == "collapsed_snr" and result.winner != "highpass-4"
 
 
 def test_median_sme_chooses_the_signal_removing_high_pass_and_warns():
     result = selection_document(SLOW_ERP_STUDY, PIPELINE_NAMES, "baseline", ContrastBlindSpec(metric="median_sme"))
-    assert result["winner"] == "highpass-4"
-    assert any("removed the signal" in warning for warning in result["warnings"])
+    assert result.winner == "highpass-4"
+    assert any("removed the signal" in warning for warning in result.warnings)
 
 
 def test_selection_spec_wants_exactly_one_of_tuning_subjects_or_split():
@@ -177,7 +177,7 @@ def null_study(simulation: int, n_subjects: int) -> list[dict]:
                 {
                     "pipeline": leaf.pipeline.name,
                     "subject": f"s{subject}",
-                    **score_epochs(leaf.epochs, NULL_SCORING).to_json(),
+                    **score_epochs(leaf.epochs, NULL_SCORING).model_dump(mode="json"),
                 }
             )
     return entries

@@ -47,7 +47,7 @@ def test_mean_scores_ignore_missing_subjects():
 
 SCORED = small_epoch_set(n_per_condition=25, seed=3)
 SCORED_SPEC = ScoringSpec(conditions=("dev", "std"), window_s=(0.2, 0.4))
-SCORED_ENTRY = {"pipeline": "a", "subject": "s1", **score_epochs(SCORED, SCORED_SPEC).to_json()}
+SCORED_ENTRY = {"pipeline": "a", "subject": "s1", **score_epochs(SCORED, SCORED_SPEC).model_dump(mode="json")}
 
 
 def collapsed_by_numpy() -> tuple[np.ndarray, np.ndarray]:

@@ -15,10 +15,13 @@ from epoch_assay.engine.epochs import EpochSet
 from epoch_assay.engine.errors import EpochSetFormatError, EpochSetTooLargeError
 from epoch_assay.engine.io.detect import named_for_reader
 from epoch_assay.engine.io.npz import epoch_set_from_arrays
+from epoch_assay.engine.io.raw_mne import KEPT_CHANNEL_TYPES, channel_positions
 
-KEPT_CHANNEL_TYPES = ("eeg", "eog", "stim")
 _BYTES_PER_SAMPLE = 8
-_SAVE_AGAIN = "Save the epochs again with mne.Epochs.save (a file ending in -epo.fif) and upload that file"
+_SAVE_AGAIN = (
+    "Save the epochs again with mne.Epochs.save (a file ending in -epo.fif) and upload that file; a continuous "
+    "recording (_raw.fif) goes to POST /v1/studies/{code}/recordings with an epoching spec"
+)
 
 
 def read_fif_epochs(path: Path, *, max_array_bytes: int) -> EpochSet:
@@ -34,14 +37,14 @@ def read_fif_epochs(path: Path, *, max_array_bytes: int) -> EpochSet:
     return epoch_set_from_arrays(
         {
             "data": data,
-            "sfreq": np.float64(epochs.info["sfreq"]),
-            "tmin": np.float64(epochs.tmin),
+            "sfreq": np.array(epochs.info["sfreq"], dtype=np.float64),
+            "tmin": np.array(epochs.tmin, dtype=np.float64),
             "ch_names": np.array(epochs.ch_names, dtype=str),
             "labels": np.array(labels, dtype=str),
             "ch_types": np.array(
                 [kind if kind in KEPT_CHANNEL_TYPES else "misc" for kind in epochs.get_channel_types()], dtype=str
             ),
-            "positions": _positions(epochs.info),
+            "positions": channel_positions(epochs.info),
         }
     )
 
@@ -67,11 +70,3 @@ def _load(epochs: mne.Epochs) -> np.ndarray:
         raise EpochSetFormatError(
             "file", f"the epochs' data could not be read ({type(error).__name__}: {error})", _SAVE_AGAIN
         ) from None
-
-
-def _positions(info: mne.Info) -> np.ndarray:
-    """Channel locations, shape (n_channels, 3), in m; NaN where MNE stores none (all zeros or NaN)."""
-    positions = np.array([channel["loc"][:3] for channel in info["chs"]], dtype=np.float64)
-    unknown = ~np.isfinite(positions).all(axis=1) | (np.abs(positions).sum(axis=1) == 0)
-    positions[unknown] = np.nan
-    return positions

@@ -1,4 +1,4 @@
-"""The NPZ epoch-set file: see the README section "Epoch-set file (NPZ)".
+"""The NPZ epoch-set file: see "Epoch-set file (NPZ)" in docs/inputs.md.
 
 An NPZ file is a zip archive of ``.npy`` members, one per key:
 
@@ -14,6 +14,9 @@ An NPZ file is a zip archive of ``.npy`` members, one per key:
   where unknown
 * ``montage`` (optional): a single str, the name of a standard montage that gives the
   positions of the channels it knows (explicit ``positions`` win where both know one)
+* ``trial_*`` (optional, any number): per-trial arrays, shape (n_trials,), numbers or str,
+  e.g. ``trial_onset_s``, ``trial_id``; kept with the trials (``trial_id`` names each trial
+  in the provenance of trial rejection)
 
 Uploads are untrusted: every member's header is read and checked (no object dtypes,
 declared sizes within the memory limit, members as long as their headers promise)
@@ -29,7 +32,7 @@ from pathlib import Path
 import numpy as np
 from numpy.lib import format as npy_format
 
-from epoch_assay.engine.epochs import EpochSet
+from epoch_assay.engine.epochs import TRIAL_ARRAY_PREFIX, TRIAL_ID_KEY, EpochSet
 from epoch_assay.engine.errors import EpochSetFormatError, EpochSetTooLargeError
 from epoch_assay.engine.io.channels import checked_positions, merged_positions, positions_from_montage
 from epoch_assay.engine.units import VOLTS_PER_MICROVOLT
@@ -71,6 +74,7 @@ def write_npz(epochs: EpochSet, path: Path) -> None:
     with open(path, "wb") as handle:
         np.savez(
             handle,
+            allow_pickle=False,
             data=epochs.data,
             sfreq=np.float64(epochs.sfreq),
             tmin=np.float64(epochs.tmin),
@@ -79,6 +83,7 @@ def write_npz(epochs: EpochSet, path: Path) -> None:
             labels=np.asarray(epochs.labels, dtype=str),
             unit=np.array("V"),
             **({} if epochs.positions is None else {"positions": epochs.positions}),
+            **epochs.trial_arrays,
         )
 
 
@@ -127,12 +132,15 @@ def _members_by_key(archive: zipfile.ZipFile) -> dict[str, zipfile.ZipInfo]:
             "file", f"the archive holds more than one member for key(s) {', '.join(repeated)}", _SAVE_AGAIN
         )
     by_key = dict(zip(keys, members, strict=False))
-    unknown = sorted(key for key in by_key if key not in REQUIRED_KEYS + OPTIONAL_KEYS)
+    unknown = sorted(
+        key for key in by_key if key not in REQUIRED_KEYS + OPTIONAL_KEYS and not key.startswith(TRIAL_ARRAY_PREFIX)
+    )
     if unknown:
         raise EpochSetFormatError(
             unknown[0],
             f"unknown key(s) {', '.join(repr(key) for key in unknown)}",
-            f"Remove them; the keys read are {', '.join(REQUIRED_KEYS)} and optionally {', '.join(OPTIONAL_KEYS)}",
+            f"Remove them, or name per-trial arrays {TRIAL_ARRAY_PREFIX}<name>; the keys read are "
+            f"{', '.join(REQUIRED_KEYS)} and optionally {', '.join(OPTIONAL_KEYS)} and {TRIAL_ARRAY_PREFIX}*",
         )
     for key in REQUIRED_KEYS:
         if key not in by_key:
@@ -217,7 +225,26 @@ def epoch_set_from_arrays(arrays: dict[str, np.ndarray]) -> EpochSet:
         ch_types=ch_types,
         labels=labels,
         positions=_positions(arrays.get("positions"), arrays.get("montage"), names),
+        trial_arrays=_trial_arrays(arrays, n_trials),
     )
+
+
+def _trial_arrays(arrays: dict[str, np.ndarray], n_trials: int) -> dict[str, np.ndarray]:
+    """The ``trial_*`` arrays, each checked to hold one number or text per trial; trial ids must be unique."""
+    kept = {}
+    for key in sorted(key for key in arrays if key.startswith(TRIAL_ARRAY_PREFIX)):
+        value = arrays[key]
+        if value.ndim != 1 or value.shape[0] != n_trials or value.dtype.kind not in "biufU":
+            raise EpochSetFormatError(
+                key,
+                f"is a per-trial array but has shape {value.shape} and dtype {value.dtype}",
+                f"Give one number or string per trial ({n_trials} entries), or leave it out",
+            )
+        kept[key] = value
+    ids = kept.get(TRIAL_ID_KEY)
+    if ids is not None and np.unique(ids).size != n_trials:
+        raise EpochSetFormatError(TRIAL_ID_KEY, "names some trials more than once", "Give every trial its own id")
+    return kept
 
 
 def _positions(

@@ -9,8 +9,21 @@ from epoch_assay.engine.stats.bootstrap import (
     draw_trials,
     draw_with_replacement,
 )
-from epoch_assay.engine.stats.channel_tests import ChannelTests, ComparisonSettings, TrialTest, compare_channels
-from epoch_assay.engine.stats.corrections import CorrectionMethod, PValueCorrection, adjust_pvalues
+from epoch_assay.engine.stats.channel_tests import (
+    TRIAL_TESTS,
+    ChannelTests,
+    ComparisonSettings,
+    TrialTest,
+    compare_channels,
+)
+from epoch_assay.engine.stats.corrections import (
+    CORRECTIONS,
+    P_VALUE_ADJUSTMENTS,
+    Correction,
+    CorrectionMethod,
+    PValueCorrection,
+    adjust_pvalues,
+)
 from epoch_assay.engine.stats.effect_size import HedgesG, hedges_g
 from epoch_assay.engine.stats.permutation import PermutationResult, label_permutation_test, sign_flip_test
 from epoch_assay.engine.stats.quality import standardized_measurement_error
@@ -19,10 +32,14 @@ from epoch_assay.engine.stats.ttest import TStatistic, TTestResult, one_sample_t
 from epoch_assay.engine.stats.window_means import window_means
 
 __all__ = [
+    "CORRECTIONS",
+    "P_VALUE_ADJUSTMENTS",
+    "TRIAL_TESTS",
     "BootstrapMode",
     "BootstrapResult",
     "ChannelTests",
     "ComparisonSettings",
+    "Correction",
     "CorrectionMethod",
     "HedgesG",
     "IntervalMethod",

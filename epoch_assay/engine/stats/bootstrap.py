@@ -23,7 +23,7 @@ from typing import Literal
 import numpy as np
 from scipy.special import ndtr, ndtri
 
-from epoch_assay.engine.stats.corrections import PValueCorrection, adjust_pvalues
+from epoch_assay.engine.stats.corrections import CORRECTIONS, PValueCorrection, adjust_pvalues
 from epoch_assay.engine.stats.rank_test import mann_whitney_u
 from epoch_assay.engine.stats.ttest import TStatistic, student_statistic, two_sided_pvalue, welch_statistic
 
@@ -282,12 +282,15 @@ def _fraction_of_draws(
         return ranked
     statistic = {"welch": welch_statistic, "student": student_statistic}[test]
     centred_a, centred_b = _Centred.of(a), _Centred.of(b)
+    # The shortcut is exact only for corrections that declare this property (see corrections.py).
+    skip_large_p = CORRECTIONS[correction].decided_below_alpha
 
     def parametric(draw: TrialDraw) -> np.ndarray:
         mean_a, var_a = centred_a.subset_moments(draw.indices_a)
         mean_b, var_b = centred_b.subset_moments(draw.indices_b)
         t = statistic(mean_a, var_a, draw.indices_a.shape[1], mean_b, var_b, draw.indices_b.shape[1])
-        return (adjust_pvalues(_pvalues_that_matter(t, alpha), correction) < alpha).mean(axis=-1)
+        pvalue = _pvalues_that_matter(t, alpha) if skip_large_p else two_sided_pvalue(t)
+        return (adjust_pvalues(pvalue, correction) < alpha).mean(axis=-1)
 
     return parametric
 
@@ -296,11 +299,12 @@ def _pvalues_that_matter(t: TStatistic, alpha: float) -> np.ndarray:
     """Two-sided p-values, exact where they can be below ``alpha`` and 1.0 elsewhere.
 
     The t distribution has heavier tails than the normal, so |t| below the normal
-    quantile z(1 - alpha/2) means p > alpha at any df. Every offered correction keeps a
-    p-value at or above its raw value, and in the step-up (Benjamini–Hochberg/–Yekutieli)
-    and step-down (Holm) procedures a p-value above alpha never makes another channel
-    significant, so those channels' exact p-values cannot change the significant
-    fraction; skipping them saves most of the costly t distribution evaluations.
+    quantile z(1 - alpha/2) means p > alpha at any df. For a correction that declares
+    ``decided_below_alpha`` (its significant channels are decided by the raw p-values below
+    alpha alone, as in the step-up Benjamini–Hochberg/–Yekutieli and step-down Holm
+    procedures), those channels' exact p-values cannot change the significant fraction;
+    skipping them saves most of the costly t distribution evaluations. Other corrections get
+    every exact p-value.
     """
     pvalues = np.ones_like(t.statistic)
     # NaN statistics are kept as candidates so that they stay NaN and out of the test count.

@@ -51,7 +51,7 @@ Memory
 
 import math
 from collections.abc import Callable
-from typing import ClassVar, Literal
+from typing import Any, ClassVar, Literal
 
 import numpy as np
 from pydantic import Field, model_validator
@@ -60,7 +60,7 @@ from scipy.optimize import brentq
 
 from epoch_assay.engine.epochs import EpochSet, EpochSetMeta
 from epoch_assay.engine.errors import SpecError
-from epoch_assay.engine.provenance import StepRecord
+from epoch_assay.engine.provenance import Stage, StepProvenanceBase
 from epoch_assay.engine.steps.base import Step
 
 FILTERED_CHANNEL_TYPES = ("eeg", "eog")
@@ -201,13 +201,13 @@ def short_epoch_warnings(epochs: EpochSet, highpass_hz: float) -> list[str]:
 class _ZeroPhaseFilter(Step):
     """A zero-phase filter of EEG and EOG channels; subclasses set ``band``, ``step`` and the cutoffs."""
 
-    stage: ClassVar[str] = "continuous"
+    stage: ClassVar[Stage] = Stage.CONTINUOUS
     band: ClassVar[FilterBand]
 
     method: Literal["fir", "iir"] = Field("fir", description="Windowed-sinc FIR or Butterworth IIR.")
     order: int = Field(4, ge=1, le=10, description="Butterworth order of each pass (iir only).")
 
-    def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepRecord]:
+    def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepProvenanceBase]:
         picks = epochs.picks(FILTERED_CHANNEL_TYPES, exclude_bads=False)
         data = epochs.data.astype(np.float64, copy=True)
         if picks.size:
@@ -249,6 +249,10 @@ class HighPass(_CutoffFilter):
 
     step: Literal["highpass"] = "highpass"
     band: ClassVar[FilterBand] = "highpass"
+    examples: ClassVar[tuple[dict[str, Any], ...]] = (
+        {"cutoff_hz": 1.0},
+        {"cutoff_hz": 0.5, "method": "iir", "order": 2},
+    )
 
     def _highpass_hz(self) -> float | None:
         return self.cutoff_hz
@@ -259,6 +263,7 @@ class LowPass(_CutoffFilter):
 
     step: Literal["lowpass"] = "lowpass"
     band: ClassVar[FilterBand] = "lowpass"
+    examples: ClassVar[tuple[dict[str, Any], ...]] = ({"cutoff_hz": 30.0}, {"cutoff_hz": 40.0, "method": "iir"})
 
     def _highpass_hz(self) -> float | None:
         return None
@@ -269,6 +274,10 @@ class BandPass(_ZeroPhaseFilter):
 
     step: Literal["bandpass"] = "bandpass"
     band: ClassVar[FilterBand] = "bandpass"
+    examples: ClassVar[tuple[dict[str, Any], ...]] = (
+        {"low_hz": 1.0, "high_hz": 30.0},
+        {"low_hz": 0.5, "high_hz": 40.0, "method": "iir", "order": 3},
+    )
 
     low_hz: float = Field(gt=0.0, allow_inf_nan=False, description="Lower cutoff, in Hz (-6 dB point).")
     high_hz: float = Field(gt=0.0, allow_inf_nan=False, description="Upper cutoff, in Hz (-6 dB point).")

@@ -229,7 +229,11 @@ def score_study(
         for pipeline in SLOW_ERP_PIPELINES:
             processed, _ = apply_pipeline(pipeline, epochs)
             entries.append(
-                {"pipeline": pipeline.name, "subject": f"s{subject:02d}", **score_epochs(processed, SCORING).to_json()}
+                {
+                    "pipeline": pipeline.name,
+                    "subject": f"s{subject:02d}",
+                    **score_epochs(processed, SCORING).model_dump(mode="json"),
+                }
             )
     return entries
 
@@ -263,7 +267,7 @@ def blind_selection_null(n_studies: int, *, n_subjects: int = 12, seed: int = 0)
     blind_hits = circular_hits = chose_highpass = 0
     for _ in range(n_studies):
         entries = score_study(rng, n_subjects)
-        winner = selection_document(entries, PIPELINE_NAMES, "baseline", ContrastBlindSpec())["winner"]
+        winner = selection_document(entries, PIPELINE_NAMES, "baseline", ContrastBlindSpec()).winner
         chose_highpass += winner == "highpass-4"
         blind_hits += stats.ttest_1samp(channel_mean_differences(entries, winner), 0.0).pvalue < ALPHA
         fractions = metric_table(entries, "significant_fraction", PIPELINE_NAMES).mean_scores()
