@@ -202,7 +202,8 @@ def factor_effects(
         raise ValueError("factor effects need scored values from at least two subjects")
     if np.ptp(table.values[observed]) == 0.0:
         raise ValueError(f"{table.metric} is the same for every pipeline and subject; there is nothing to explain")
-    factors, notes = {}, []
+    factors: dict[str, FactorEffect] = {}
+    notes: list[str] = []
     for factor, levels in factor_levels.items():
         contrasts = subject_contrasts(table, pipeline_levels, factor, levels)
         effects = {level: level_effect(contrasts[:, i]) for i, level in enumerate(levels[1:])}

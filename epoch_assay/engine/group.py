@@ -197,11 +197,13 @@ def subject_scores(entries: Iterable[dict[str, Any]], conditions: tuple[str, str
         by_subject.setdefault(entry["subject"], []).append(entry)
     names = tuple(dict.fromkeys(ch["name"] for group in by_subject.values() for e in group for ch in e["channels"]))
     column = {name: i for i, name in enumerate(names)}
-    fractions, smes, differences = [], {label: [] for label in conditions}, []
+    fractions: list[float] = []
+    smes: dict[str, list[float]] = {label: [] for label in conditions}
+    differences: list[np.ndarray] = []
     for group in by_subject.values():
-        fractions.append(np.mean([_number(e["significant_fraction"]) for e in group]))
+        fractions.append(float(np.mean([_number(e["significant_fraction"]) for e in group])))
         for label in conditions:
-            smes[label].append(np.mean([_number(e["median_sme_uv"][label]) for e in group]))
+            smes[label].append(float(np.mean([_number(e["median_sme_uv"][label]) for e in group])))
         per_set = np.full((len(group), len(names)), np.nan)
         for row, e in enumerate(group):
             for channel in e["channels"]:
@@ -213,7 +215,7 @@ def subject_scores(entries: Iterable[dict[str, Any]], conditions: tuple[str, str
         significant_fraction=np.array(fractions),
         median_sme_uv={label: np.array(values) for label, values in smes.items()},
         channel_names=names,
-        mean_diff=uv_to_v(np.array(differences).reshape(len(by_subject), len(names))),
+        mean_diff=np.asarray(uv_to_v(np.array(differences).reshape(len(by_subject), len(names)))),
     )
 
 

@@ -23,6 +23,7 @@ from epoch_assay.engine.ranking import rank_pipelines
 from epoch_assay.engine.selection import (
     ContrastBlindSpec,
     SelectionSpec,
+    SplitSpec,
     contrast_blind,
     split_subjects,
     tuning_holdout,
@@ -79,7 +80,9 @@ def selection_document(
     try:
         if isinstance(selection, ContrastBlindSpec):
             return contrast_blind(table, reference, collapsed_erp).to_document()
-        tuning = selection.tuning_subjects or list(split_subjects(table.subjects, selection.split)[0])
+        # The spec holds exactly one of tuning_subjects and split (TuningHoldoutSpec's validator).
+        split = selection.split or SplitSpec()
+        tuning = selection.tuning_subjects or list(split_subjects(table.subjects, split)[0])
         return tuning_holdout(table, reference, tuning, collapsed_erp).to_document()
     except SpecError as error:
         return SelectionOutcome(

@@ -192,7 +192,8 @@ def adjusted_comparisons(
     """
     reference_row = table.row(reference)
     paired = _paired_with_reference(table, reference)
-    family = [name for name, comparison in paired.items() if comparison is not None]
+    comparable = {name: comparison for name, comparison in paired.items() if comparison is not None}
+    family = list(comparable)
     if not family:
         return {}
     rows = [table.pipelines.index(name) for name in family]
@@ -208,7 +209,7 @@ def adjusted_comparisons(
     )
     adjustment = f"max-|t| sign-flip permutation over subjects across {len(family)} pipelines ({how})"
     return {
-        name: AdjustedComparison(paired=paired[name], p_adjusted=float(result.pvalue_max[i]), adjustment=adjustment)
+        name: AdjustedComparison(paired=comparable[name], p_adjusted=float(result.pvalue_max[i]), adjustment=adjustment)
         for i, name in enumerate(family)
     }
 

@@ -58,8 +58,8 @@ def score_epochs(
         for label, values in zip(spec.conditions, (first, second), strict=False)
     }
     mean_diff = v_to_uv(first.mean(axis=0) - second.mean(axis=0))
-    collapsed_mean = v_to_uv((first.mean(axis=0) + second.mean(axis=0)) / 2)
-    first_sme, second_sme = (sme[label] for label in spec.conditions)
+    collapsed_mean = np.asarray(v_to_uv((first.mean(axis=0) + second.mean(axis=0)) / 2))
+    first_sme, second_sme = (np.asarray(sme[label]) for label in spec.conditions)
     collapsed_sme = np.sqrt(first_sme**2 + second_sme**2) / 2
     channels = [
         ChannelScore(
