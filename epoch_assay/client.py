@@ -1,6 +1,8 @@
 """``epoch-assay client``: upload, run, status, result and report against a server, with an API key.
 
-The server and key come from ``--url`` / ``--token`` or ``EPOCH_ASSAY_URL`` / ``EPOCH_ASSAY_TOKEN``.
+The server comes from ``--url`` or ``EPOCH_ASSAY_URL``; the key from ``EPOCH_ASSAY_TOKEN`` or
+``--token-file`` (a file holding the token), never the command line, where every user of the
+machine can read it in the process list. ``--token`` still works, with a warning, and will go.
 Tables are for people; ``--json`` prints the server's JSON for scripts. While a run is going
 (``run --wait``, ``status --wait``) a progress bar is drawn on stderr, so stdout stays clean.
 """
@@ -74,13 +76,37 @@ def add_client_parser(commands: argparse._SubParsersAction) -> None:
             default=os.environ.get("EPOCH_ASSAY_URL", DEFAULT_URL),
             help=f"server URL (EPOCH_ASSAY_URL, default {DEFAULT_URL})",
         )
-        action.add_argument("--token", default=os.environ.get("EPOCH_ASSAY_TOKEN"), help="API key (EPOCH_ASSAY_TOKEN)")
+        action.add_argument(
+            "--token-file",
+            type=Path,
+            help="file holding the API key (or set EPOCH_ASSAY_TOKEN); keys are not given on the command line",
+        )
+        action.add_argument("--token", help=argparse.SUPPRESS)
         action.add_argument("--json", action="store_true", help="print the server's JSON instead of a table")
         action.add_argument("--poll-seconds", type=float, default=1.0, help=argparse.SUPPRESS)
 
 
+def api_token(args: argparse.Namespace) -> str | None:
+    """The API key: from --token-file, else EPOCH_ASSAY_TOKEN, else the deprecated --token (with a warning)."""
+    if args.token_file is not None:
+        try:
+            return args.token_file.read_text().strip() or None
+        except OSError as error:
+            raise SystemExit(f"epoch-assay client: cannot read the token file: {error.strerror}") from None
+    if os.environ.get("EPOCH_ASSAY_TOKEN"):
+        return os.environ["EPOCH_ASSAY_TOKEN"]
+    if args.token:
+        print(
+            "epoch-assay client: --token is deprecated (other users can read it in the process list); "
+            "set EPOCH_ASSAY_TOKEN or use --token-file",
+            file=sys.stderr,
+        )
+    return args.token
+
+
 def _http(args: argparse.Namespace) -> httpx.Client:
-    headers = {"Authorization": f"Bearer {args.token}"} if args.token else {}
+    token = api_token(args)
+    headers = {"Authorization": f"Bearer {token}"} if token else {}
     return httpx.Client(base_url=args.url.rstrip("/"), headers=headers, timeout=120.0)
 
 

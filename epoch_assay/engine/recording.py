@@ -252,6 +252,16 @@ def plan_epochs(recording: EpochSet, events: Events, epoching: EpochingSpec) -> 
     )
 
 
+_EPOCH_BYTES_PER_SAMPLE = 8  # float64
+
+
+def check_epochs_size(n_trials: int, n_channels: int, n_times: int, max_array_bytes: int) -> None:
+    """Refuse a cut whose epochs (float64, n_trials × n_channels × n_times) would exceed ``max_array_bytes``."""
+    declared = n_trials * n_channels * n_times * _EPOCH_BYTES_PER_SAMPLE
+    if declared > max_array_bytes:
+        raise EpochSetTooLargeError(declared, max_array_bytes)
+
+
 def epoch_recording(recording: EpochSet, events: Events, epoching: EpochingSpec) -> EpochSet:
     """Cut a one-trial recording into epochs, shape (n_trials, n_channels, n_times), in V.
 
@@ -443,6 +453,7 @@ def load_session(
     sidecars = read_sidecars(session)
     runs: list[RecordingRun] = []
     total_bytes = 0
+    planned_trials = 0
     for number, files in enumerate(session.runs, start=1):
         continuous = read_run_file(files, max_array_bytes=max_array_bytes)
         recording = apply_channel_spec(continuous.recording, channels, sidecars)
@@ -451,7 +462,10 @@ def load_session(
             raise EpochSetTooLargeError(total_bytes, max_array_bytes)
         events, events_from = run_events(continuous, recording, files.events, epoching, channels)
         _check_like_first(runs[0].recording if runs else recording, recording, number)
-        plan_epochs(recording, events, epoching)
+        plan = plan_epochs(recording, events, epoching)
+        # The epochs of every run together are bounded before any is cut.
+        planned_trials += plan.labels.size
+        check_epochs_size(planned_trials, recording.n_channels, plan.n_times, max_array_bytes)
         runs.append(RecordingRun(recording, events, continuous.file_format, events_from))
     return ContinuousInput(runs=tuple(runs), epoching=epoching)
 

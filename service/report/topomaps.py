@@ -17,6 +17,7 @@ import numpy as np
 from matplotlib.figure import Figure
 
 from epoch_assay.engine.montage import montage_positions
+from service.report.figures import plain_text
 from service.report.palette import INK, T_COLOURMAP
 from service.report.summary import ChannelMap
 
@@ -78,7 +79,7 @@ def topomap_figure(placed: PlacedMap, reference: str, limit: float) -> Figure:
         },
     )
     suffix = " (reference)" if placed.map.pipeline == reference else ""
-    ax.set_title(f"{placed.map.pipeline}{suffix}\nwhite dots: significant", fontsize=10)
+    ax.set_title(plain_text(f"{placed.map.pipeline}{suffix}") + "\nwhite dots: significant", fontsize=10)
     colourbar = figure.colorbar(image, ax=ax, shrink=0.8, pad=0.02)
     colourbar.set_label("Welch t (first − second condition)", fontsize=9)
     return figure

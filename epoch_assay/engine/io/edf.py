@@ -134,9 +134,10 @@ def _read_raw(path: Path, file_format: FileFormat) -> mne.io.BaseRaw:
         # many ways (value, index, struct, OS errors...): each means "not a readable recording".
         try:
             return reader(named, preload=True, infer_types=True, verbose="error")
-        except Exception as error:
+        except Exception:
+            # MNE's message is not passed on: it names server paths.
             raise EpochSetFormatError(
-                "file", f"MNE cannot read the recording ({type(error).__name__}: {error})", _EXPORT_AGAIN
+                "file", "the recording's data cannot be read: the file is damaged or ends early", _EXPORT_AGAIN
             ) from None
 
 

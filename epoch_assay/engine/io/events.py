@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 
 from epoch_assay.engine.errors import EpochSetFormatError
-from epoch_assay.engine.io.tsv import MISSING, read_tsv
+from epoch_assay.engine.io.tsv import MAX_TSV_ROWS, MISSING, read_tsv
 
 REQUIRED_COLUMNS = ("onset", "duration")
 VALUE_COLUMNS = ("trial_type", "value")
@@ -25,6 +25,10 @@ _EVENTS_FIX = (
     "Give a tab-separated events.tsv with a header line naming onset, duration and trial_type, "
     "and one row per event (onset and duration in s)"
 )
+
+
+# An events.tsv and a file's annotations are bounded alike.
+MAX_EVENTS = MAX_TSV_ROWS
 
 
 @dataclass(frozen=True)
@@ -51,7 +55,13 @@ class Events:
 
 
 def events_from_lists(onset_s: list[float], duration_s: list[float], values: list[str]) -> Events:
-    """Events from parallel lists (e.g. a file's annotations), in the order given."""
+    """Events from parallel lists (e.g. a file's annotations), in the order given; at most MAX_EVENTS."""
+    if len(values) > MAX_EVENTS:
+        raise EpochSetFormatError(
+            "events",
+            f"the recording has {len(values)} annotations, more than {MAX_EVENTS}",
+            "Keep only this recording's events, or send them as an events.tsv in the 'events' field",
+        )
     return Events(
         onset_s=np.asarray(onset_s, dtype=np.float64).reshape(-1),
         duration_s=np.asarray(duration_s, dtype=np.float64).reshape(-1),

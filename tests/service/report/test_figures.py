@@ -187,3 +187,13 @@ def test_palette_colours_differ_in_lightness_so_they_survive_greyscale():
 
 def test_svg_output_is_the_same_for_the_same_figure():
     assert figure_bytes(_ranking(), "svg") == figure_bytes(_ranking(), "svg")
+
+
+@pytest.mark.parametrize("fmt", ["png", "svg"])
+def test_labels_that_look_like_maths_are_drawn_as_plain_text(fmt):
+    # "$\frac$" is invalid mathtext: matplotlib raises ValueError when it parses it as maths.
+    rows = [RankingRow("$\\frac$", 0.5, 0.4, 0.6, False), RankingRow("cost $5 or $6", 0.3, 0.2, 0.4, True)]
+    figure = ranking_figure(rows, description="mean, 95 % CI")
+    assert figure_bytes(figure, fmt)
+    kept = [KeptCounts(pipeline="$x^$", trials={"$\\frac$": 10.0, "b": 9.0}, channels=8.0)]
+    assert figure_bytes(kept_figure(kept, ["$\\frac$", "b"]), fmt)
