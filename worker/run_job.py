@@ -28,6 +28,7 @@ from epoch_assay.engine.grid import GridSpec, expand_grid
 from epoch_assay.engine.group import group_summary
 from epoch_assay.engine.multiverse_report import (
     DEFAULT_METRIC,
+    exploratory_note,
     factor_effects_document,
     ranking_document,
     selection_document,
@@ -170,7 +171,10 @@ def execute_run(
         results=results,
         group=group,
         cache=CacheCounts(hits=outcome.cache.hits, misses=outcome.cache.misses),
-        ranking=ranking_document(entries, names, reference, selection.metric if selection else DEFAULT_METRIC, group),
+        ranking=ranking_document(
+            entries, names, reference, selection.metric if selection else DEFAULT_METRIC, group, seed=scoring.seed
+        ),
         factor_effects=factor_effects_document(entries, grid, points) if grid is not None else None,
         selection=selection_document(entries, names, reference, selection) if selection is not None else None,
+        exploratory=exploratory_note(selection),
     )

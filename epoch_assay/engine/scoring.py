@@ -72,6 +72,9 @@ def score_epochs(
         for label, values in zip(spec.conditions, (first, second), strict=False)
     }
     mean_diff = v_to_uv(first.mean(axis=0) - second.mean(axis=0))
+    collapsed_mean = np.asarray(v_to_uv((first.mean(axis=0) + second.mean(axis=0)) / 2))
+    first_sme, second_sme = (np.asarray(sme[label]) for label in spec.conditions)
+    collapsed_sme = np.sqrt(first_sme**2 + second_sme**2) / 2
     channels = [
         ChannelScore(
             name=name,
@@ -83,6 +86,8 @@ def score_epochs(
             hedges_g=float(effect.g[i]),
             hedges_g_ci=[float(effect.ci_low[i]), float(effect.ci_high[i])],
             sme_uv={label: float(values[i]) for label, values in sme.items()},
+            collapsed_mean_uv=float(collapsed_mean[i]),
+            collapsed_sme_uv=float(collapsed_sme[i]),
         )
         for i, name in enumerate(names)
     ]

@@ -77,8 +77,8 @@ def run_figures(document: RunResultDocument) -> list[ReportFigure]:
                 "sme",
                 "Standardised measurement error",
                 "Median over channels of the standardised measurement error of the window mean, per condition, in µV, "
-                "mean over epoch sets. It ignores the contrast, so it can guide the choice of pipeline without "
-                "inflating false positives.",
+                "mean over epoch sets. It ignores the contrast but measures noise only: a step that removes the "
+                "signal lowers it too, so a lower SME alone is no reason to prefer a pipeline.",
                 lambda: figures.sme_figure(sme),
             )
         )

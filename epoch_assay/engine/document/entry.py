@@ -37,6 +37,14 @@ class ChannelScore(DocumentModel):
     sme_uv: dict[str, Number] = Field(
         description="Standardized measurement error of each condition's window mean, by condition label, in µV."
     )
+    collapsed_mean_uv: Number = Field(
+        None,
+        description="Collapsed ERP: mean of the two condition means of the window mean, equal weights, blind to the "
+        "contrast (Luck & Gaspelin, 2017), in µV; null in documents written before it existed.",
+    )
+    collapsed_sme_uv: Number = Field(
+        None, description="Standard error of collapsed_mean_uv, ½·√(SME₁² + SME₂²), in µV; null if not written."
+    )
 
 
 class SubsetSpread(DocumentModel):

@@ -7,6 +7,7 @@ from pydantic import Field
 from epoch_assay.engine.document.entry import STATISTIC_NAMES, ResultEntry
 from epoch_assay.engine.document.multiverse import (
     CacheCounts,
+    ExploratoryNote,
     FactorEffectsResult,
     PipelineGroupResult,
     RankingEntry,
@@ -56,10 +57,11 @@ class RunResultDocument(DocumentModel):
         default=None, description="Every pipeline, best first, against the reference pipeline."
     )
     factor_effects: FactorEffectsResult | None = Field(
-        default=None, description="Grid runs: mixed-model effects of each factor; null for listed pipelines."
+        None, description="Grid runs: per-subject factor contrasts tested across subjects; null for listed pipelines."
     )
-    selection: SelectionOutcome | None = Field(
-        default=None, description="The winner by the run's selection rule, if any."
+    selection: SelectionOutcome | None = Field(None, description="The winner by the run's selection rule, if any.")
+    exploratory: ExploratoryNote | None = Field(
+        None, description="Runs with a selection: the all-subject parts that are exploratory, and why; else null."
     )
 
 

@@ -1,1 +1,1 @@
-"""Seeded simulations behind bench_calibration.py: each module returns named figures."""
+"""Seeded calibration simulations: the error rates and coverages behind the service's verdicts."""

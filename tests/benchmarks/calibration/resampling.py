@@ -241,11 +241,9 @@ def fixed_mode_spread_coverage(
     return spread, bias
 
 
-def main(argv: list[str] | None = None) -> None:
+def print_figures(quick: bool) -> None:
     """Print the coverage of every per-entry interval, and the fixed-mode spread for contrast."""
-    parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
-    parser.add_argument("--quick", action="store_true", help="tiny smoke run")
-    quick = parser.parse_args(argv).quick
+    print("Per-entry resampling intervals")
     n_sets, resamples, truth_sets = (20, 50, 500) if quick else (1000, 1000, 40_000)
     print(f"coverage over {n_sets} seeded data sets per line, {resamples} resamples each, nominal {NOMINAL:.2f}")
     print(f"targets from {truth_sets} fresh data sets; Welch t, {CORRECTION}, alpha {ALPHA}")
@@ -263,6 +261,12 @@ def main(argv: list[str] | None = None) -> None:
             Design(trials=(n, n)), k=k, n_sets=n_sets, resamples=resamples, truth_sets=truth_sets, seed=3
         )
         print(f"{spread.line()}  subset-mean bias {bias:+.4f}")
+
+
+def main(argv: list[str] | None = None) -> None:
+    parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser.add_argument("--quick", action="store_true", help="tiny smoke run")
+    print_figures(parser.parse_args(argv).quick)
 
 
 if __name__ == "__main__":

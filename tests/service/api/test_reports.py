@@ -54,6 +54,13 @@ def test_run_report_is_html_with_every_figure_embedded_as_a_png_data_uri(client,
     assert all(base64.b64decode(image).startswith(b"\x89PNG\r\n\x1a\n") for image in images)
 
 
+def test_run_report_shows_each_pipeline_against_the_reference_with_the_adjusted_p(client, scored):
+    _code, run_id = scored
+    page = client.get(f"/v1/runs/{run_id}/report").text
+    assert "Pipelines against the reference" in page and "p adjusted" in page
+    assert "max-|t| sign-flip permutation over subjects across 2 pipelines" in page
+
+
 def test_run_report_loads_nothing_from_elsewhere(client, scored):
     page = client.get(f"/v1/runs/{scored[1]}/report").text
     assert "<script" not in page.lower()
