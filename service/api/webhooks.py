@@ -1,5 +1,6 @@
 """Webhooks: per-study URLs that receive a signed JSON event when a run succeeds or fails."""
 
+import base64
 import secrets
 from typing import Annotated
 
@@ -20,10 +21,19 @@ from service.storage.models import Study, Webhook, WebhookDelivery
 
 router = APIRouter(prefix="/v1/studies/{code}/webhooks", tags=["webhooks"])
 SIGNING = (
-    " Each event is a POST with the JSON event as body and the header "
-    '`Epoch-Assay-Signature: t=<unix seconds>,v1=<hex HMAC-SHA256(secret, "<t>.<body>")>`; '
-    "failed deliveries are retried with exponential backoff."
+    " Each event is a POST with the JSON event as body, signed as the Standard Webhooks specification defines: "
+    "headers `webhook-id`, `webhook-timestamp` (unix seconds) and "
+    '`webhook-signature: v1,<base64 HMAC-SHA256(key, "<webhook-id>.<webhook-timestamp>.<body>")>`, '
+    "where the key is the base64 after `whsec_` in the secret; any Standard Webhooks verifier checks it. "
+    "Failed deliveries are retried with exponential backoff."
 )
+# Key length in bytes; Standard Webhooks asks for 24 to 64.
+SECRET_KEY_BYTES = 32
+
+
+def new_webhook_secret() -> str:
+    """A signing secret in the Standard Webhooks form: ``whsec_`` and the base64 of random key bytes."""
+    return "whsec_" + base64.b64encode(secrets.token_bytes(SECRET_KEY_BYTES)).decode()
 
 
 def webhook_out(hook: Webhook, study_code: str) -> WebhookOut:
@@ -63,7 +73,7 @@ def create_webhook(
         id=new_id("wh"),
         study_id=study.id,
         url=str(body.url),
-        secret="whsec_" + secrets.token_hex(32),
+        secret=new_webhook_secret(),
         events=list(body.events),
         description=body.description,
     )
