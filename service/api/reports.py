@@ -186,9 +186,28 @@ def get_study_report(code: str, session: SessionDep, caller: CallerDep) -> HTMLR
     )
     return HTMLResponse(
         study_report_html(
-            study.code, study.title, rows, epoch_sets, arrival_png, locked_facts, _quality_on_arrival(session, study)
+            study.code,
+            study.title,
+            rows,
+            epoch_sets,
+            arrival_png,
+            locked_facts,
+            _quality_on_arrival(session, study),
+            _latest_compared(session, study),
         )
     )
+
+
+def _latest_compared(session: Session, study: Study) -> tuple[str, dict[str, Any]] | None:
+    """The newest succeeded run that compared pipelines (not a score on arrival): its id and result document."""
+    succeeded = session.scalars(
+        select(Run)
+        .where(Run.study_id == study.id, Run.status == queue.SUCCEEDED)
+        .order_by(Run.created_at.desc(), Run.id.desc())
+    )
+    run = next((run for run in succeeded if run.spec.get("origin") != ARRIVAL_ORIGIN), None)
+    result = None if run is None else session.get(RunResult, run.id)
+    return None if result is None else (run.id, json.loads(result.document))
 
 
 def _quality_on_arrival(session: Session, study: Study) -> list[ArrivalQuality]:
