@@ -7,7 +7,7 @@ HOST ?= 127.0.0.1
 PORT ?= 8000
 DATA_DIR ?= var
 
-.PHONY: install demo run test browser postgres bench clean
+.PHONY: install demo run lint test browser postgres bench clean
 
 # Quiet: -qq shows pip's errors only, and PYTHONWARNINGS=ignore silences the build backend's warnings
 # (which pip shows even with -q); a failed install still prints why.
@@ -38,10 +38,17 @@ browser:
 postgres:
 	ls /usr/lib/postgresql/*/bin/initdb >/dev/null 2>&1 || (apt-get update && DEBIAN_FRONTEND=noninteractive apt-get install -y postgresql)
 
-# Everything on SQLite, then the API and storage tests again on PostgreSQL.
-test: $(STAMP) browser postgres
+# Style, formatting, the layering contract (pyproject.toml [tool.importlinter]) and types: zero findings.
+lint: $(STAMP)
+	$(BIN)/ruff check .
+	$(BIN)/ruff format --check .
+	$(BIN)/lint-imports
+	$(BIN)/mypy
+
+# Lint, then everything on SQLite, then the API and storage tests again on PostgreSQL.
+test: $(STAMP) lint browser postgres
 	$(BIN)/python -m pytest
-	EPOCH_ASSAY_TEST_DATABASE=postgresql $(BIN)/python -m pytest tests/api tests/storage
+	EPOCH_ASSAY_TEST_DATABASE=postgresql $(BIN)/python -m pytest tests/service/api tests/service/storage
 
 bench: $(STAMP)
 	for script in tests/benchmarks/bench_*.py; do $(BIN)/python $$script || exit 1; done

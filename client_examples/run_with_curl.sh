@@ -5,7 +5,7 @@
 #   EPOCH_ASSAY_URL=https://epoch-assay.lab.example EPOCH_ASSAY_TOKEN=ea_... \
 #     ./run_with_curl.sh READ-01 sub-07 ses-01 sub-07.npz run.json
 #
-# run.json holds "pipelines" and "scoring" of the run body (see the README).
+# run.json holds "pipelines" and "scoring" of the run body (see docs/api.md, Runs).
 set -eu
 STUDY=$1 SUBJECT=$2 SESSION=$3 FILE=$4 SPEC=$5
 BASE=${EPOCH_ASSAY_URL:-http://127.0.0.1:8000}

@@ -11,6 +11,7 @@ import subprocess
 import sys
 import time
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import httpx
 from pydantic import ValidationError
@@ -18,6 +19,9 @@ from pydantic import ValidationError
 from epoch_assay.client import add_client_parser
 from service.logs import configure_logging
 from service.settings import Settings
+
+if TYPE_CHECKING:
+    from service.storage.db import Database
 
 
 def _settings(args: argparse.Namespace) -> Settings:
@@ -57,7 +61,8 @@ def is_loopback(host: str) -> bool:
     except ValueError:
         pass
     try:
-        addresses = {info[4][0] for info in socket.getaddrinfo(host, None)}
+        # The first item of a sockaddr is the address as text for both IPv4 and IPv6.
+        addresses = {str(info[4][0]) for info in socket.getaddrinfo(host, None)}
     except OSError:
         return False
     return bool(addresses) and all(ipaddress.ip_address(address.split("%")[0]).is_loopback for address in addresses)
@@ -162,7 +167,7 @@ def cmd_migrate(args: argparse.Namespace) -> int:
     return 0
 
 
-def _database(settings: Settings):  # type: ignore[no-untyped-def]
+def _database(settings: Settings) -> "Database":
     from service.storage.db import Database
 
     _prepare(settings)
@@ -241,7 +246,7 @@ def cmd_copy_database(args: argparse.Namespace) -> int:
         print(f"{table.name:<24} {table.rows:>8} rows")
     print(
         f"copied {sum(t.rows for t in copied)} rows into {_without_password(args.to)}; blobs are copied apart "
-        "(see the README, Deployment)"
+        "(see docs/operations.md, Deployment)"
     )
     return 0
 

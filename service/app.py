@@ -15,8 +15,8 @@ from service.api import (
     studies,
     webhooks,
 )
-from service.api.responses import install_problem_openapi
 from service.errors import PayloadTooLarge, install_problem_handlers, problem
+from service.http.responses import install_problem_openapi
 from service.metrics import ServiceMetrics
 from service.middleware import RequestContext
 from service.settings import Settings

@@ -57,10 +57,6 @@ class PayloadTooLarge(ApiError):
     status, slug, title = 413, "payload-too-large", "Payload too large"
 
 
-class UnsupportedMediaType(ApiError):
-    status, slug, title = 415, "unsupported-media-type", "Unsupported media type"
-
-
 class Unprocessable(ApiError):
     status, slug, title = 422, "unprocessable", "Unprocessable content"
 
@@ -151,7 +147,7 @@ def install_problem_handlers(app: FastAPI) -> None:
                 "the request body could not be parsed: send JSON (UTF-8) with Content-Type: "
                 "application/json, or a multipart form for uploads",
             )
-        headers = error.headers
+        headers = dict(error.headers) if error.headers else None
         if error.status_code == 405:
             headers = {**(headers or {}), "Allow": ", ".join(_allowed_methods(request))}
         slug = {404: "not-found", 405: "method-not-allowed"}.get(error.status_code, "http-error")

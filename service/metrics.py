@@ -103,7 +103,8 @@ class ServiceMetrics:
             )
         ).all()
         for run_id, status, started_at, finished_at in rows:
-            if run_id in self._counted:
+            # The query keeps finished runs only, so finished_at is set.
+            if run_id in self._counted or finished_at is None:
                 continue
             self._counted[run_id] = finished_at
             self._newest_seen = max(self._newest_seen, finished_at)

@@ -26,8 +26,7 @@ import httpx
 
 from epoch_assay import __version__
 from service.settings import Settings
-from service.storage import outbox
-from service.storage.db import Database
+from service.storage.worker_port import AttemptOutcome, DueDelivery, WorkerStore
 
 ID_HEADER = "webhook-id"
 TIMESTAMP_HEADER = "webhook-timestamp"
@@ -50,8 +49,8 @@ def signature(secret: str, message_id: str, timestamp: int, body: str) -> str:
 class Deliverer:
     """Claims due deliveries one at a time and sends them until told to stop."""
 
-    def __init__(self, database: Database, settings: Settings) -> None:
-        self.database, self.settings = database, settings
+    def __init__(self, store: WorkerStore, settings: Settings) -> None:
+        self.store, self.settings = store, settings
         # No proxies from the environment: events go straight to the URL the study registered.
         self.client = httpx.Client(
             timeout=settings.webhook_timeout_seconds,
@@ -74,20 +73,17 @@ class Deliverer:
 
     def deliver_one(self) -> bool:
         """Send one due delivery; False when none was due."""
-        with self.database.session() as session:
-            due = outbox.claim_delivery(session, self._lease_seconds)
+        due = self.store.claim_delivery(self._lease_seconds)
         if due is None:
             return False
         outcome = self._send(due)
-        with self.database.session() as session:
-            status = outbox.record_attempt(
-                session,
-                due,
-                outcome,
-                max_attempts=self.settings.webhook_max_attempts,
-                backoff_seconds=self.settings.webhook_backoff_seconds,
-                backoff_max_seconds=self.settings.webhook_backoff_max_seconds,
-            )
+        status = self.store.record_attempt(
+            due,
+            outcome,
+            max_attempts=self.settings.webhook_max_attempts,
+            backoff_seconds=self.settings.webhook_backoff_seconds,
+            backoff_max_seconds=self.settings.webhook_backoff_max_seconds,
+        )
         log.info(
             "webhook delivery",
             extra={
@@ -100,7 +96,7 @@ class Deliverer:
         )
         return True
 
-    def _send(self, due: outbox.DueDelivery) -> outbox.AttemptOutcome:
+    def _send(self, due: DueDelivery) -> AttemptOutcome:
         timestamp = int(time.time())
         headers = {
             "Content-Type": "application/json",
@@ -113,12 +109,12 @@ class Deliverer:
         try:
             answer = self.client.post(due.url, content=due.payload.encode(), headers=headers)
         except httpx.HTTPError as error:
-            return outbox.AttemptOutcome(False, None, f"{type(error).__name__}: {error}", time.perf_counter() - started)
+            return AttemptOutcome(False, None, f"{type(error).__name__}: {error}", time.perf_counter() - started)
         seconds = time.perf_counter() - started
         if answer.is_success:
-            return outbox.AttemptOutcome(True, answer.status_code, None, seconds)
+            return AttemptOutcome(True, answer.status_code, None, seconds)
         if answer.is_redirect:
-            error = f"answered {answer.status_code} (redirects are not followed; register the final URL)"
+            refused = f"answered {answer.status_code} (redirects are not followed; register the final URL)"
         else:
-            error = f"answered {answer.status_code} {answer.reason_phrase}".rstrip()
-        return outbox.AttemptOutcome(False, answer.status_code, error, seconds)
+            refused = f"answered {answer.status_code} {answer.reason_phrase}".rstrip()
+        return AttemptOutcome(False, answer.status_code, refused, seconds)

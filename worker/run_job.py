@@ -20,6 +20,9 @@ from typing import Any
 from pydantic import TypeAdapter
 
 from epoch_assay.engine import ENGINE_VERSION
+from epoch_assay.engine.document import RESULT_SCHEMA_VERSION, ResultEntry, RunResultDocument, StepProvenance
+from epoch_assay.engine.document.multiverse import CacheCounts
+from epoch_assay.engine.document.run import RunProvenance, Seeds
 from epoch_assay.engine.epochs import EpochSet
 from epoch_assay.engine.errors import SpecError
 from epoch_assay.engine.grid import GridSpec, expand_grid
@@ -40,7 +43,6 @@ from epoch_assay.engine.tree import LeafOutput
 from worker.execution.multiverse import ExecutionSettings, SourceHandlers, execute_multiverse
 from worker.execution.parallel import Progress
 
-RESULT_SCHEMA_VERSION = 1
 REPORTED_PACKAGES = ("epoch-assay", "numpy", "scipy", "mne", "pydantic")
 _SELECTION = TypeAdapter(SelectionSpec)
 
@@ -68,7 +70,7 @@ def software_versions() -> dict[str, str]:
 
 def score_unit(
     pipeline: PipelineSpec, epochs: EpochSet | ContinuousInput, scoring: ScoringSpec, ref: EpochSetRef
-) -> dict[str, Any]:
+) -> ResultEntry:
     """Apply one pipeline to one epoch set and score it; an entry of the result's ``results``.
 
     A recording (``ContinuousInput``) is processed in two stages: continuous-stage steps before
@@ -84,7 +86,7 @@ def score_unit(
     return _scored_entry(pipeline, processed, records, uploaded, scoring, ref)
 
 
-def score_leaf(leaf: LeafOutput, source: EpochSet, scoring: ScoringSpec, ref: EpochSetRef) -> dict[str, Any]:
+def score_leaf(leaf: LeafOutput, source: EpochSet, scoring: ScoringSpec, ref: EpochSetRef) -> ResultEntry:
     """The entry of a pipeline whose output was reached in a prefix tree built on ``source``."""
     return _scored_entry(leaf.pipeline, leaf.epochs, list(leaf.records), eeg_channel_names(source), scoring, ref)
 
@@ -96,22 +98,21 @@ def _scored_entry(
     uploaded: tuple[str, ...],
     scoring: ScoringSpec,
     ref: EpochSetRef,
-) -> dict[str, Any]:
-    entry: dict[str, Any] = {
+) -> ResultEntry:
+    source = {
         "pipeline": pipeline.name,
         "pipeline_hash": pipeline.spec_hash(),
         "epoch_set": ref.id,
         "subject": ref.subject,
         "session": ref.session,
+        "provenance": [StepProvenance.of(record) for record in records],
+        "warnings": [warning for record in records for warning in record.warnings],
     }
-    provenance = [record.to_json() for record in records]
-    warnings = [warning for record in records for warning in record.warnings]
     try:
-        entry.update(score_epochs(processed, scoring, uploaded_eeg_channels=uploaded).to_json())
+        score = score_epochs(processed, scoring, uploaded_eeg_channels=uploaded)
     except SpecError as error:
-        entry["error"] = f"{'.'.join(str(part) for part in error.loc)}: {error.message}"
-    entry.update(provenance=provenance, warnings=warnings)
-    return entry
+        return ResultEntry(**source, error=f"{'.'.join(str(part) for part in error.loc)}: {error.message}")
+    return ResultEntry(**source, **dict(score))
 
 
 def execute_run(
@@ -124,7 +125,7 @@ def execute_run(
     *,
     execution: ExecutionSettings | None = None,
     on_detail: Callable[[Progress], None] | None = None,
-) -> dict[str, Any]:
+) -> RunResultDocument:
     """Score every pipeline of ``spec`` on every epoch set; return the result document.
 
     ``execution`` sets the worker processes and the step cache (default: this process, no
@@ -150,27 +151,27 @@ def execute_run(
 
     outcome = execute_multiverse(pipelines, epoch_sets, handlers, execution or ExecutionSettings(workers=1), report)
     results = outcome.results
+    # The group, ranking and selection read entries in their JSON form.
+    entries = [entry.model_dump(mode="json") for entry in results]
     names = [pipeline.name for pipeline in pipelines]
     reference = scoring.reference_pipeline or names[0]
-    group = group_summary(results, names, scoring)
-    return {
-        "schema_version": RESULT_SCHEMA_VERSION,
-        "run": run_id,
-        "study": study_code,
-        "scoring": scoring.model_dump(mode="json"),
-        "provenance": {
-            "software": software_versions(),
-            "scoring_hash": _hash_json(scoring.model_dump(mode="json")),
-            "pipeline_hashes": {pipeline.name: pipeline.spec_hash() for pipeline in pipelines},
-            "epoch_set_sha256": {ref.id: ref.sha256 for ref in epoch_sets},
-            "seeds": {"bootstrap": scoring.bootstrap.seed if scoring.bootstrap else None},
-        },
-        "results": results,
-        "group": group,
-        "cache": outcome.cache.to_json(),
-        "ranking": ranking_document(
-            results, names, reference, selection.metric if selection else DEFAULT_METRIC, group
+    group = group_summary(entries, names, scoring)
+    return RunResultDocument(
+        schema_version=RESULT_SCHEMA_VERSION,
+        run=run_id,
+        study=study_code,
+        scoring=scoring,
+        provenance=RunProvenance(
+            software=software_versions(),
+            scoring_hash=_hash_json(scoring.model_dump(mode="json")),
+            pipeline_hashes={pipeline.name: pipeline.spec_hash() for pipeline in pipelines},
+            epoch_set_sha256={ref.id: ref.sha256 for ref in epoch_sets},
+            seeds=Seeds(bootstrap=scoring.bootstrap.seed if scoring.bootstrap else None),
         ),
-        "factor_effects": factor_effects_document(results, grid, points) if grid is not None else None,
-        "selection": selection_document(results, names, reference, selection) if selection is not None else None,
-    }
+        results=results,
+        group=group,
+        cache=CacheCounts(hits=outcome.cache.hits, misses=outcome.cache.misses),
+        ranking=ranking_document(entries, names, reference, selection.metric if selection else DEFAULT_METRIC, group),
+        factor_effects=factor_effects_document(entries, grid, points) if grid is not None else None,
+        selection=selection_document(entries, names, reference, selection) if selection is not None else None,
+    )

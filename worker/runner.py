@@ -8,7 +8,6 @@ help (the stored file is gone or malformed, the spec cannot run). Each worker al
 webhook events in a thread (``worker.delivery``).
 """
 
-import json
 import logging
 import os
 import signal
@@ -19,19 +18,14 @@ from contextlib import nullcontext
 from types import FrameType
 
 from pydantic import ValidationError
-from sqlalchemy import select
-from sqlalchemy.orm import Session
 
+from epoch_assay.engine.document import RunResultDocument
 from epoch_assay.engine.epochs import EpochSet as EngineEpochSet
 from epoch_assay.engine.errors import EpochSetFormatError, EpochSetTooLargeError, SpecError
 from epoch_assay.engine.io import read_epoch_set_file
 from epoch_assay.engine.recording import ChannelSpec, ContinuousInput, EpochingSpec, load_recording
 from service.settings import Settings
-from service.storage import queue
-from service.storage.blobs import BlobCorruptError, open_blob_store
-from service.storage.db import Database
-from service.storage.migrate import is_at_head
-from service.storage.models import EpochSet, Run, RunEpochSet, RunResult, Study
+from service.storage.worker_port import BlobCorruptError, ClaimedJob, WorkerStore
 from worker.delivery import Deliverer
 from worker.execution.multiverse import ExecutionSettings
 from worker.execution.parallel import Progress
@@ -61,9 +55,9 @@ class Heartbeat:
     """Renews a job's lease in a background thread and carries the latest progress."""
 
     def __init__(
-        self, database: Database, job: queue.ClaimedJob, worker_id: str, settings: Settings, stopping: threading.Event
+        self, store: WorkerStore, job: ClaimedJob, worker_id: str, settings: Settings, stopping: threading.Event
     ) -> None:
-        self._database, self._job, self._worker_id, self._settings = database, job, worker_id, settings
+        self._store, self._job, self._worker_id, self._settings = store, job, worker_id, settings
         self._stopping = stopping
         self._stop = threading.Event()
         self._thread = threading.Thread(target=self._beat, name=f"heartbeat-{job.id}", daemon=True)
@@ -99,11 +93,9 @@ class Heartbeat:
     def _beat(self) -> None:
         while not self._stop.wait(self._settings.heartbeat_seconds):
             try:
-                with self._database.session() as session:
-                    held = queue.heartbeat(
-                        session, self._job, self._worker_id, self._settings.lease_seconds, self.progress, self.detail
-                    )
-                    queue.record_worker_seen(session, self._worker_id)
+                held = self._store.heartbeat(
+                    self._job, self._worker_id, self._settings.lease_seconds, self.progress, self.detail
+                )
             except Exception:
                 log.exception("heartbeat failed; trying again", extra={"job": self._job.id})
                 continue
@@ -115,8 +107,7 @@ class Heartbeat:
 class Worker:
     def __init__(self, settings: Settings) -> None:
         self.settings = settings
-        self.database = Database(settings.resolved_database_url)
-        self.blobs = open_blob_store(settings)
+        self.store = WorkerStore(settings)
         self.worker_id = f"{socket.gethostname()}:{os.getpid()}"
         self._stopping = threading.Event()
         self._last_seen_recorded = 0.0
@@ -127,7 +118,7 @@ class Worker:
 
     def wait_for_schema(self, timeout_s: float = 60.0) -> None:
         deadline = time.monotonic() + timeout_s
-        while not is_at_head(self.database.engine, self.database.url):
+        while not self.store.schema_is_current():
             if time.monotonic() > deadline:
                 raise SystemExit("the database has no current schema; run `epoch-assay migrate` or start the API first")
             time.sleep(0.5)
@@ -138,7 +129,7 @@ class Worker:
         self.wait_for_schema()
         stop_delivery = threading.Event()
         delivery = threading.Thread(
-            target=Deliverer(self.database, self.settings).run_until,
+            target=Deliverer(self.store, self.settings).run_until,
             args=(stop_delivery,),
             name="webhook-delivery",
             daemon=True,
@@ -152,74 +143,58 @@ class Worker:
         finally:
             stop_delivery.set()
             delivery.join(timeout=self.settings.webhook_timeout_seconds + 5)
-            with self.database.session() as session:
-                queue.forget_worker(session, self.worker_id)
+            self.store.forget_worker(self.worker_id)
+            self.store.close()
             log.info("worker %s stopped", self.worker_id)
 
     def run_one(self) -> bool:
         """Claim and run one job; False when the queue was empty."""
-        with self.database.session() as session:
-            self._note_alive(session)
-            job = queue.claim(session, self.worker_id, self.settings.lease_seconds)
+        self._note_alive()
+        job = self.store.claim(self.worker_id, self.settings.lease_seconds)
         if job is None:
             return False
         context = {"job": job.id, "run": job.run_id, "attempt": job.attempt}
         log.info("claimed a job", extra=context)
-        with Heartbeat(self.database, job, self.worker_id, self.settings, self._stopping) as beat:
+        with Heartbeat(self.store, job, self.worker_id, self.settings, self._stopping) as beat:
             try:
                 document = self._execute(job, beat)
             except LeaseLost:
                 log.warning("lost the lease (or the run was deleted); dropping the work", extra=context)
                 return True
             except HandBack:
-                with self.database.session() as session:
-                    queue.release(session, job, self.worker_id)
+                self.store.release(job, self.worker_id)
                 log.info("stopping: handed the job back to the queue", extra=context)
                 return True
             except Exception as error:
                 self._record_failure(job, error, context)
                 return True
-        with self.database.session() as session:
-            if queue.complete(session, job, self.worker_id):
-                session.add(RunResult(run_id=job.run_id, document=json.dumps(document, allow_nan=False)))
-                log.info("job succeeded", extra=context)
+        if self.store.store_result(job, self.worker_id, document.model_dump(mode="json")):
+            log.info("job succeeded", extra=context)
         return True
 
-    def _record_failure(self, job: queue.ClaimedJob, error: Exception, context: dict[str, object]) -> None:
+    def _record_failure(self, job: ClaimedJob, error: Exception, context: dict[str, object]) -> None:
         reason = f"{type(error).__name__}: {error}"
-        with self.database.session() as session:
-            if isinstance(error, PERMANENT_ERRORS):
-                queue.fail(session, job, self.worker_id, reason)
-                outcome = queue.FAILED
-            else:
-                outcome = queue.retry_or_fail(session, job, self.worker_id, reason, self.settings.retry_backoff_seconds)
+        outcome = self.store.record_failure(
+            job,
+            self.worker_id,
+            reason,
+            permanent=isinstance(error, PERMANENT_ERRORS),
+            backoff_seconds=self.settings.retry_backoff_seconds,
+        )
         log.error("job attempt failed", exc_info=error, extra=context | {"outcome": outcome})
 
-    def _note_alive(self, session: Session) -> None:
+    def _note_alive(self) -> None:
         """Record that this worker is alive, at most about once a second (an idle worker polls more often)."""
         now = time.monotonic()
         if now - self._last_seen_recorded >= min(1.0, self.settings.heartbeat_seconds):
-            queue.record_worker_seen(session, self.worker_id)
+            self.store.record_worker_seen(self.worker_id)
             self._last_seen_recorded = now
 
-    def _execute(self, job: queue.ClaimedJob, beat: Heartbeat) -> dict:
-        with self.database.session() as session:
-            run = session.get(Run, job.run_id)
-            if run is None:
-                raise LeaseLost(job.id)
-            study_code = session.scalar(select(Study.code).where(Study.id == run.study_id))
-            rows = (
-                session.execute(
-                    select(EpochSet)
-                    .join(RunEpochSet, RunEpochSet.epoch_set_id == EpochSet.id)
-                    .where(RunEpochSet.run_id == run.id)
-                    .order_by(RunEpochSet.position)
-                )
-                .scalars()
-                .all()
-            )
-            refs = [EpochSetRef(id=r.id, subject=r.subject, session=r.session, sha256=r.sha256) for r in rows]
-            spec = run.spec
+    def _execute(self, job: ClaimedJob, beat: Heartbeat) -> RunResultDocument:
+        run = self.store.run_to_execute(job)
+        if run is None:
+            raise LeaseLost(job.id)
+        refs = [EpochSetRef(id=r.id, subject=r.subject, session=r.session, sha256=r.sha256) for r in run.epoch_sets]
         execution = ExecutionSettings(
             workers=self.settings.parallel_workers,
             cache_dir=self.settings.step_cache_dir,
@@ -228,26 +203,32 @@ class Worker:
             dask_scheduler=self.settings.dask_scheduler,
         )
         return execute_run(
-            job.run_id, study_code, spec, refs, self._load, beat.report, execution=execution, on_detail=beat.note_detail
+            job.run_id,
+            run.study_code,
+            run.spec,
+            refs,
+            self._load,
+            beat.report,
+            execution=execution,
+            on_detail=beat.note_detail,
         )
 
     def _load(self, ref: EpochSetRef) -> EngineEpochSet | ContinuousInput:
         """The epoch set, or for a recording its file, events and epoching (epoched per pipeline by run_job)."""
-        with self.database.session() as session:
-            row = session.get(EpochSet, ref.id)
-            if row is None:
-                raise FileNotFoundError(f"epoch set {ref.id} is no longer stored")
-            source, file_sha256, events_sha256 = row.source, row.file_sha256, row.events_sha256
-            epoching, channels = row.epoching, row.channels
-        if source == "recording":
-            events_copy = self.blobs.local_copy(events_sha256) if events_sha256 else nullcontext(None)
-            with self.blobs.local_copy(file_sha256) as path, events_copy as events_path:
+        stored = self.store.epoch_set(ref.id)
+        if stored is None:
+            raise FileNotFoundError(f"epoch set {ref.id} is no longer stored")
+        if stored.source == "recording":
+            if stored.file_sha256 is None:
+                raise FileNotFoundError(f"recording {ref.id} names no recording file")
+            events_copy = self.store.local_copy(stored.events_sha256) if stored.events_sha256 else nullcontext(None)
+            with self.store.local_copy(stored.file_sha256) as path, events_copy as events_path:
                 return load_recording(
                     path,
                     events_path,
-                    EpochingSpec.model_validate(epoching),
-                    ChannelSpec.model_validate(channels or {}),
+                    EpochingSpec.model_validate(stored.epoching),
+                    ChannelSpec.model_validate(stored.channels or {}),
                     max_array_bytes=self.settings.max_array_bytes,
                 )
-        with self.blobs.local_copy(ref.sha256) as path:
+        with self.store.local_copy(ref.sha256) as path:
             return read_epoch_set_file(path, max_array_bytes=self.settings.max_array_bytes)[0]

@@ -71,7 +71,6 @@ DEMO_CONFIG = SimulationConfig(
     n_trials_per_condition=TRIALS_PER_CONDITION, drift_uv=DRIFT_UV, noise_uv=BACKGROUND_UV, effect_uv=EFFECT_UV
 )
 
-
 FAULT_STREAM = 99
 
 

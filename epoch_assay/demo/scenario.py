@@ -28,8 +28,6 @@ What the lab's recordings are like, and so what the demo's pipelines are up agai
   adds noise instead of removing it.
 """
 
-LAB = "Marrowgate Language Lab"
-LANGUAGE = "Thessari"
 STUDY_CODE = "READ-01"
 STUDY_TITLE = "Thessari sentence endings: congruent versus incongruent final words"
 SESSION = "ses-01"

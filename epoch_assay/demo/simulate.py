@@ -393,7 +393,7 @@ def _brain_response(
     waveform = np.exp(-0.5 * ((times[None, :] - latency[:, None]) / config.effect_width_s) ** 2)
     gain = head_model().effect_gain
     pattern = gain / -gain[CH_NAMES.index("Pz")]
-    return uv_to_v(peak_uv)[:, None, None] * pattern[None, :, None] * waveform[:, None, :]
+    return np.asarray(uv_to_v(peak_uv))[:, None, None] * pattern[None, :, None] * waveform[:, None, :]
 
 
 def _background(config: SimulationConfig, n_trials: int, rng: np.random.Generator) -> np.ndarray:
@@ -470,4 +470,4 @@ def _blinks(config: SimulationConfig, times: np.ndarray, n_trials: int, rng: np.
     peak_uv = rng.uniform(*config.blink_uv, size=n_trials) * has_blink
     phase = (times[None, :] - start[:, None]) / duration[:, None]
     bump = np.where((phase >= 0.0) & (phase <= 1.0), np.sin(np.pi * phase) ** 2, 0.0)
-    return uv_to_v(peak_uv)[:, None, None] * head_model().blink_pattern[None, :, None] * bump[:, None, :]
+    return np.asarray(uv_to_v(peak_uv))[:, None, None] * head_model().blink_pattern[None, :, None] * bump[:, None, :]

@@ -20,12 +20,12 @@ is not a difference of fractions.
 import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
-from typing import Any
 
 import numpy as np
 from scipy import stats
 from statsmodels.regression.mixed_linear_model import MixedLM
 
+from epoch_assay.engine.document.multiverse import FactorEffectResult, FactorEffectsResult, LevelEffectResult
 from epoch_assay.engine.subject_metrics import BOUNDED_METRICS, MetricTable
 
 _NORMAL_975 = float(stats.norm.ppf(0.975))
@@ -39,12 +39,8 @@ class LevelEffect:
     ci_low: float
     ci_high: float
 
-    def to_json(self) -> dict[str, float | None]:
-        return {
-            "estimate": _finite_or_none(self.estimate),
-            "ci_low": _finite_or_none(self.ci_low),
-            "ci_high": _finite_or_none(self.ci_high),
-        }
+    def to_document(self) -> LevelEffectResult:
+        return LevelEffectResult(estimate=self.estimate, ci_low=self.ci_low, ci_high=self.ci_high)
 
 
 @dataclass(frozen=True)
@@ -55,12 +51,12 @@ class FactorEffect:
     baseline_level: str
     levels: dict[str, LevelEffect]
 
-    def to_json(self) -> dict[str, Any]:
-        return {
-            "p": _finite_or_none(self.p),
-            "baseline_level": self.baseline_level,
-            "levels": {level: effect.to_json() for level, effect in self.levels.items()},
-        }
+    def to_document(self) -> FactorEffectResult:
+        return FactorEffectResult(
+            p=self.p,
+            baseline_level=self.baseline_level,
+            levels={level: effect.to_document() for level, effect in self.levels.items()},
+        )
 
 
 @dataclass(frozen=True)
@@ -74,15 +70,15 @@ class FactorEffects:
     factors: dict[str, FactorEffect]
     warnings: tuple[str, ...]
 
-    def to_json(self) -> dict[str, Any]:
-        return {
-            "metric": self.metric,
-            "scale": self.scale,
-            "n_observations": self.n_observations,
-            "n_subjects": self.n_subjects,
-            "factors": {name: f.to_json() for name, f in self.factors.items()},
-            "warnings": list(self.warnings),
-        }
+    def to_document(self) -> FactorEffectsResult:
+        return FactorEffectsResult(
+            metric=self.metric,
+            scale=self.scale,
+            n_observations=self.n_observations,
+            n_subjects=self.n_subjects,
+            factors={name: f.to_document() for name, f in self.factors.items()},
+            warnings=list(self.warnings),
+        )
 
 
 @dataclass(frozen=True)
@@ -182,7 +178,3 @@ def _wald_p(params: np.ndarray, covariance: np.ndarray, columns: list[int]) -> f
     estimate = params[columns]
     statistic = float(estimate @ np.linalg.pinv(covariance[np.ix_(columns, columns)]) @ estimate)
     return float(stats.chi2.sf(statistic, df=len(columns)))
-
-
-def _finite_or_none(value: float) -> float | None:
-    return float(value) if np.isfinite(value) else None

@@ -1,12 +1,11 @@
 """Group level across the subjects of a run: per-subject summaries, paired comparisons, group ERP test.
 
 Pure functions on the per-subject arrays and on the entries of a result document's
-``results`` (as ``epoch_assay.engine.scoring.PipelineScore.to_json`` writes them). Two epoch
+``results`` in their JSON form (``epoch_assay.engine.document.ResultEntry`` dumped). Two epoch
 sets of one subject are averaged per subject before anything is compared, so that every
 subject weighs the same.
 """
 
-import math
 from collections.abc import Iterable
 from dataclasses import dataclass
 from typing import Any
@@ -14,16 +13,19 @@ from typing import Any
 import numpy as np
 from scipy import stats
 
+from epoch_assay.engine.document.multiverse import (
+    GroupChannelResult,
+    GroupTestResult,
+    MeanAndError,
+    PairedComparisonResult,
+    PipelineGroupResult,
+    SubjectSpread,
+)
 from epoch_assay.engine.scoring_spec import ScoringSpec
 from epoch_assay.engine.stats import adjust_pvalues, one_sample_t, sign_flip_test
 from epoch_assay.engine.units import uv_to_v, v_to_uv
 
 CI_LEVEL = 0.95
-
-
-def _json_float(value: float) -> float | None:
-    value = float(value)
-    return value if math.isfinite(value) else None
 
 
 @dataclass(frozen=True)
@@ -57,15 +59,15 @@ class PairedComparison:
     wilcoxon_p: float
     paired_t_p: float
 
-    def to_json(self, reference: str) -> dict[str, Any]:
-        return {
-            "reference_pipeline": reference,
-            "n_subjects": self.n_subjects,
-            "mean_difference": _json_float(self.mean_difference),
-            "mean_difference_ci": [_json_float(self.ci_low), _json_float(self.ci_high)],
-            "wilcoxon_p": _json_float(self.wilcoxon_p),
-            "paired_t_p": _json_float(self.paired_t_p),
-        }
+    def to_document(self, reference: str) -> PairedComparisonResult:
+        return PairedComparisonResult(
+            reference_pipeline=reference,
+            n_subjects=self.n_subjects,
+            mean_difference=self.mean_difference,
+            mean_difference_ci=[self.ci_low, self.ci_high],
+            wilcoxon_p=self.wilcoxon_p,
+            paired_t_p=self.paired_t_p,
+        )
 
 
 def paired_comparison(values: np.ndarray, reference: np.ndarray) -> PairedComparison:
@@ -113,22 +115,22 @@ class GroupTest:
     def significant_fraction(self) -> float:
         return float(self.significant.mean()) if self.significant.size else float("nan")
 
-    def to_json(self) -> dict[str, Any]:
-        return {
-            "channels": [
-                {
-                    "name": name,
-                    "t": _json_float(self.t[i]),
-                    "p": _json_float(self.p[i]),
-                    "p_adjusted": _json_float(self.p_adjusted[i]),
-                    "significant": bool(self.significant[i]),
-                    "mean_diff_uv": _json_float(v_to_uv(self.mean_diff[i])),
-                    "n_subjects": int(self.n_subjects[i]),
-                }
+    def to_document(self) -> GroupTestResult:
+        return GroupTestResult(
+            channels=[
+                GroupChannelResult(
+                    name=name,
+                    t=self.t[i],
+                    p=self.p[i],
+                    p_adjusted=self.p_adjusted[i],
+                    significant=bool(self.significant[i]),
+                    mean_diff_uv=v_to_uv(self.mean_diff[i]),
+                    n_subjects=int(self.n_subjects[i]),
+                )
                 for i, name in enumerate(self.names)
             ],
-            "significant_fraction": _json_float(self.significant_fraction),
-        }
+            significant_fraction=self.significant_fraction,
+        )
 
 
 def group_channel_test(names: tuple[str, ...], differences: np.ndarray, spec: ScoringSpec) -> GroupTest:
@@ -215,7 +217,7 @@ def _number(value: float | None) -> float:
     return float("nan") if value is None else float(value)
 
 
-def group_summary(entries: list[dict[str, Any]], pipelines: list[str], spec: ScoringSpec) -> list[dict[str, Any]]:
+def group_summary(entries: list[dict[str, Any]], pipelines: list[str], spec: ScoringSpec) -> list[PipelineGroupResult]:
     """The result document's ``group``: one entry per pipeline, in run order.
 
     entries : the result's ``results``; entries with an ``error`` are left out and counted
@@ -227,45 +229,44 @@ def group_summary(entries: list[dict[str, Any]], pipelines: list[str], spec: Sco
     errors = {}
     for name in pipelines:
         own = [entry for entry in entries if entry["pipeline"] == name]
-        errors[name] = sum("error" in entry for entry in own)
-        scores[name] = subject_scores([entry for entry in own if "error" not in entry], spec.conditions)
+        errors[name] = sum(entry.get("error") is not None for entry in own)
+        scores[name] = subject_scores([entry for entry in own if entry.get("error") is None], spec.conditions)
     return [_pipeline_group(name, scores[name], errors[name], scores[reference], reference, spec) for name in pipelines]
 
 
 def _pipeline_group(
     name: str, scores: SubjectScores, n_errors: int, reference: SubjectScores, reference_name: str, spec: ScoringSpec
-) -> dict[str, Any]:
+) -> PipelineGroupResult:
     n = len(scores.subjects)
-    document: dict[str, Any] = {
-        "pipeline": name,
-        "n_subjects": n,
-        "n_entries_with_error": n_errors,
-        "significant_fraction": None,
-        "median_sme_uv": None,
-        "vs_reference": None,
-        "group_test": None,
-    }
     if n == 0:
-        return document
+        return PipelineGroupResult(
+            pipeline=name,
+            n_subjects=n,
+            n_entries_with_error=n_errors,
+            significant_fraction=None,
+            median_sme_uv=None,
+            vs_reference=None,
+            group_test=None,
+        )
     spread = Spread.of(scores.significant_fraction)
-    document["significant_fraction"] = {
-        "mean": _json_float(spread.mean),
-        "median": _json_float(spread.median),
-        "se": _json_float(spread.se),
-    }
-    document["median_sme_uv"] = {}
+    median_sme_uv = {}
     for label, values in scores.median_sme_uv.items():
         sme = Spread.of(values)
-        document["median_sme_uv"][label] = {"mean": _json_float(sme.mean), "se": _json_float(sme.se)}
-    document["vs_reference"] = _versus_reference(name, scores, reference, reference_name)
-    if n >= 2:
-        document["group_test"] = group_channel_test(scores.channel_names, scores.mean_diff, spec).to_json()
-    return document
+        median_sme_uv[label] = MeanAndError(mean=sme.mean, se=sme.se)
+    return PipelineGroupResult(
+        pipeline=name,
+        n_subjects=n,
+        n_entries_with_error=n_errors,
+        significant_fraction=SubjectSpread(mean=spread.mean, median=spread.median, se=spread.se),
+        median_sme_uv=median_sme_uv,
+        vs_reference=_versus_reference(name, scores, reference, reference_name),
+        group_test=group_channel_test(scores.channel_names, scores.mean_diff, spec).to_document() if n >= 2 else None,
+    )
 
 
 def _versus_reference(
     name: str, scores: SubjectScores, reference: SubjectScores, reference_name: str
-) -> dict[str, Any] | None:
+) -> PairedComparisonResult | None:
     if name == reference_name:
         return None
     position = {subject: i for i, subject in enumerate(reference.subjects)}
@@ -274,4 +275,4 @@ def _versus_reference(
         return None
     values = scores.significant_fraction[shared]
     paired = reference.significant_fraction[[position[scores.subjects[i]] for i in shared]]
-    return paired_comparison(values, paired).to_json(reference_name)
+    return paired_comparison(values, paired).to_document(reference_name)

@@ -19,7 +19,7 @@ def builtin_montage_name(name: str) -> str:
     """The name under which the installed MNE offers the montage ``name``."""
     available = mne.channels.get_builtin_montages()
     renamed = _RENAMED_MONTAGES.get(name)
-    if renamed in available:
+    if renamed is not None and renamed in available:
         return renamed
     return name
 

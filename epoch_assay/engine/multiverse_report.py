@@ -1,7 +1,7 @@
 """The multiverse parts of a result document: ``ranking``, ``factor_effects`` and ``selection``.
 
 Pure functions of the result's entries. A part that cannot be computed on this run (too few
-subjects for a model, a tuning subject the run does not have) is reported as ``{"error": …}``
+subjects for a model, a tuning subject the run does not have) carries its reason in ``error``
 in place of its content; the rest of the result is unaffected.
 """
 
@@ -10,6 +10,12 @@ from typing import Any
 
 import numpy as np
 
+from epoch_assay.engine.document.multiverse import (
+    FactorEffectsResult,
+    PipelineGroupResult,
+    RankingEntry,
+    SelectionOutcome,
+)
 from epoch_assay.engine.errors import SpecError
 from epoch_assay.engine.factor_effects import factor_effects
 from epoch_assay.engine.grid import GridPipeline, GridSpec
@@ -32,21 +38,21 @@ def ranking_document(
     pipelines: Sequence[str],
     reference: str,
     metric: str,
-    group: Sequence[Entry] | None = None,
-) -> list[Entry]:
+    group: Sequence[PipelineGroupResult] | None = None,
+) -> list[RankingEntry]:
     """One entry per pipeline, best first by the mean over subjects of ``metric``, each with its
     ``group`` summary (from ``epoch_assay.engine.group``) when given."""
-    group_of = {item["pipeline"]: item for item in group or ()}
+    group_of = {item.pipeline: item for item in group or ()}
     table = metric_table(results, metric, pipelines)
     return [
-        {**ranked.to_json(reference), "metric": metric, "group": group_of.get(ranked.pipeline)}
+        ranked.to_document(reference, metric, group_of.get(ranked.pipeline))
         for ranked in rank_pipelines(table, reference)
     ]
 
 
 def factor_effects_document(
     results: Sequence[Entry], grid: GridSpec, points: Sequence[GridPipeline], metric: str = DEFAULT_METRIC
-) -> Entry:
+) -> FactorEffectsResult:
     """The mixed model of ``metric`` on the grid's factors (see ``epoch_assay.engine.factor_effects``)."""
     table = metric_table(results, metric, [point.pipeline.name for point in points])
     try:
@@ -56,23 +62,23 @@ def factor_effects_document(
             {factor: list(levels) for factor, levels in grid.factors.items()},
         )
     except (ValueError, np.linalg.LinAlgError) as error:
-        return {"metric": metric, "error": str(error)}
-    return effects.to_json()
+        return FactorEffectsResult(metric=metric, error=str(error))
+    return effects.to_document()
 
 
 def selection_document(
     results: Sequence[Entry], pipelines: Sequence[str], reference: str, selection: SelectionSpec
-) -> Entry:
+) -> SelectionOutcome:
     """The winner by ``selection``'s rule, with the subjects on each side and its scores."""
     table = metric_table(results, selection.metric, pipelines)
     try:
         if isinstance(selection, ContrastBlindSpec):
-            return contrast_blind(table).to_json()
+            return contrast_blind(table).to_document()
         tuning = selection.tuning_subjects or list(split_subjects(table.subjects, selection.split)[0])
-        return tuning_holdout(table, reference, tuning).to_json()
+        return tuning_holdout(table, reference, tuning).to_document()
     except SpecError as error:
-        return {
-            "rule": selection.rule,
-            "metric": selection.metric,
-            "error": f"{'.'.join(str(part) for part in error.loc)}: {error.message}",
-        }
+        return SelectionOutcome(
+            rule=selection.rule,
+            metric=selection.metric,
+            error=f"{'.'.join(str(part) for part in error.loc)}: {error.message}",
+        )

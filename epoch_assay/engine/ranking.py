@@ -8,11 +8,11 @@ Pipelines with no score sort last.
 """
 
 from dataclasses import dataclass
-from typing import Any
 
 import numpy as np
 from scipy import stats
 
+from epoch_assay.engine.document.multiverse import PipelineGroupResult, RankingEntry
 from epoch_assay.engine.group import PairedComparison, paired_comparison
 from epoch_assay.engine.subject_metrics import MetricTable
 
@@ -28,14 +28,6 @@ class MeanInterval:
     ci_low: float
     ci_high: float
 
-    def to_json(self) -> dict[str, Any]:
-        return {
-            "n_subjects": self.n_subjects,
-            "mean": _finite_or_none(self.mean),
-            "ci_low": _finite_or_none(self.ci_low),
-            "ci_high": _finite_or_none(self.ci_high),
-        }
-
 
 @dataclass(frozen=True)
 class RankedPipeline:
@@ -47,13 +39,19 @@ class RankedPipeline:
     score: MeanInterval
     vs_reference: PairedComparison | None
 
-    def to_json(self, reference: str) -> dict[str, Any]:
-        return {
-            "rank": self.rank,
-            "pipeline": self.pipeline,
-            **self.score.to_json(),
-            "vs_reference": None if self.vs_reference is None else self.vs_reference.to_json(reference),
-        }
+    def to_document(self, reference: str, metric: str, group: PipelineGroupResult | None) -> RankingEntry:
+        """The ranking entry of the result document, with the pipeline's group summary."""
+        return RankingEntry(
+            rank=self.rank,
+            pipeline=self.pipeline,
+            n_subjects=self.score.n_subjects,
+            mean=self.score.mean,
+            ci_low=self.score.ci_low,
+            ci_high=self.score.ci_high,
+            vs_reference=None if self.vs_reference is None else self.vs_reference.to_document(reference),
+            metric=metric,
+            group=group,
+        )
 
 
 def mean_intervals(values: np.ndarray, confidence: float = CONFIDENCE) -> list[MeanInterval]:
@@ -100,7 +98,3 @@ def _paired(values: np.ndarray, reference: np.ndarray) -> PairedComparison | Non
     """Comparison over the subjects with a value for both; None with fewer than two."""
     both = np.isfinite(values) & np.isfinite(reference)
     return paired_comparison(values[both], reference[both]) if np.count_nonzero(both) >= 2 else None
-
-
-def _finite_or_none(value: float) -> float | None:
-    return value if np.isfinite(value) else None

@@ -1,17 +1,13 @@
 """Score an epoch set: per-channel test of a window mean between two conditions, effect sizes,
 measurement error, the significant fraction over time and its bootstrap."""
 
-import math
-from dataclasses import dataclass
-from typing import Any
-
 import numpy as np
 
+from epoch_assay.engine.document.entry import BootstrapSummary, ChannelScore, PipelineScore, TimeCourse
 from epoch_assay.engine.epochs import EpochSet
 from epoch_assay.engine.errors import SpecError
 from epoch_assay.engine.scoring_spec import ScoringSpec, TimeCourseSpec
 from epoch_assay.engine.stats import (
-    BootstrapResult,
     ComparisonSettings,
     bootstrap_significant_fraction,
     compare_channels,
@@ -22,151 +18,9 @@ from epoch_assay.engine.stats import (
 from epoch_assay.engine.units import v_to_uv
 
 
-def _json_float(value: float) -> float | None:
-    """A float for JSON; NaN and infinities, which JSON cannot carry, become None."""
-    value = float(value)
-    return value if math.isfinite(value) else None
-
-
 def eeg_channel_names(epochs: EpochSet) -> tuple[str, ...]:
     """Names of the EEG channels of ``epochs``, bad ones included: the channels a lab uploaded."""
     return tuple(epochs.ch_names[index] for index in epochs.picks(exclude_bads=False))
-
-
-@dataclass(frozen=True)
-class ChannelScore:
-    """The test of one channel between the two conditions (first minus second).
-
-    t : Welch's or Student's t (also under permutation), or Mann–Whitney's U; NaN when undefined
-    mean_diff_uv : difference of the condition means of the window mean, in µV
-    hedges_g, hedges_g_ci : Hedges' g and its 95 % interval (Hedges & Olkin, 1985)
-    sme_uv : standardized measurement error of each condition's window mean, in µV
-    """
-
-    name: str
-    t: float
-    p: float
-    p_adjusted: float
-    significant: bool
-    mean_diff_uv: float
-    hedges_g: float
-    hedges_g_ci: tuple[float, float]
-    sme_uv: dict[str, float]
-
-    def to_json(self) -> dict[str, Any]:
-        return {
-            "name": self.name,
-            "t": _json_float(self.t),
-            "p": _json_float(self.p),
-            "p_adjusted": _json_float(self.p_adjusted),
-            "significant": bool(self.significant),
-            "mean_diff_uv": _json_float(self.mean_diff_uv),
-            "hedges_g": _json_float(self.hedges_g),
-            "hedges_g_ci": [_json_float(bound) for bound in self.hedges_g_ci],
-            "sme_uv": {label: _json_float(value) for label, value in self.sme_uv.items()},
-        }
-
-
-@dataclass(frozen=True)
-class BootstrapSummary:
-    """Median and 95 % interval of the significant fraction over resamples, and how they were drawn."""
-
-    median: float
-    ci_low: float
-    ci_high: float
-    resamples: int
-    trials_per_condition: int | None
-    mode: str
-    ci: str
-    trials_drawn: dict[str, int]
-    with_replacement: bool
-
-    @classmethod
-    def of(cls, result: BootstrapResult, conditions: tuple[str, str]) -> "BootstrapSummary":
-        return cls(
-            median=result.median,
-            ci_low=result.ci_low,
-            ci_high=result.ci_high,
-            resamples=result.resamples,
-            trials_per_condition=result.trials_per_condition,
-            mode=result.mode,
-            ci=result.ci,
-            trials_drawn=dict(zip(conditions, result.trials_drawn, strict=False)),
-            with_replacement=result.with_replacement,
-        )
-
-    def to_json(self) -> dict[str, Any]:
-        return {
-            "median": _json_float(self.median),
-            "ci_low": _json_float(self.ci_low),
-            "ci_high": _json_float(self.ci_high),
-            "resamples": int(self.resamples),
-            "trials_per_condition": None if self.trials_per_condition is None else int(self.trials_per_condition),
-            "mode": self.mode,
-            "ci": self.ci,
-            "trials_drawn": {label: int(count) for label, count in self.trials_drawn.items()},
-            "with_replacement": bool(self.with_replacement),
-        }
-
-
-@dataclass(frozen=True)
-class TimeCourse:
-    """Significant fraction of the scored channels at each sample or bin; information only.
-
-    times_s : centre of each sample or bin, in s
-    significant_fraction : one value per entry of ``times_s``
-    bin_s : the bin width asked for, None for every sample
-    """
-
-    times_s: tuple[float, ...]
-    significant_fraction: tuple[float, ...]
-    bin_s: float | None
-
-    def to_json(self) -> dict[str, Any]:
-        return {
-            "bin_s": self.bin_s,
-            "times_s": [round(time, 9) for time in self.times_s],
-            "significant_fraction": [_json_float(value) for value in self.significant_fraction],
-        }
-
-
-@dataclass(frozen=True)
-class PipelineScore:
-    """How strongly an epoch set separates the two conditions, and how noisy its scores are.
-
-    n_trials : trials of each of the two conditions, in spec order
-    channels : one score per scored channel (EEG, not bad), in channel order
-    significant_fraction : share of scored channels whose adjusted p is below alpha
-    significant_fraction_uploaded : significant scored channels over the uploaded EEG
-        channels, so that a channel dropped or flagged bad counts as not significant
-    channels_kept, channels_uploaded : number of scored and of uploaded EEG channels
-    median_sme_uv : per condition, the median over scored channels of the SME, in µV
-    time_course : significant fraction per sample or bin, None when the spec asks for none
-    bootstrap : summary over trial resamples, None when the spec asks for none
-    """
-
-    n_trials: dict[str, int]
-    channels: list[ChannelScore]
-    significant_fraction: float
-    significant_fraction_uploaded: float
-    channels_kept: int
-    channels_uploaded: int
-    median_sme_uv: dict[str, float]
-    time_course: TimeCourse | None
-    bootstrap: BootstrapSummary | None
-
-    def to_json(self) -> dict[str, Any]:
-        return {
-            "n_trials": {label: int(count) for label, count in self.n_trials.items()},
-            "channels": [channel.to_json() for channel in self.channels],
-            "significant_fraction": _json_float(self.significant_fraction),
-            "significant_fraction_uploaded": _json_float(self.significant_fraction_uploaded),
-            "channels_kept": int(self.channels_kept),
-            "channels_uploaded": int(self.channels_uploaded),
-            "median_sme_uv": {label: _json_float(value) for label, value in self.median_sme_uv.items()},
-            "time_course": None if self.time_course is None else self.time_course.to_json(),
-            "bootstrap": None if self.bootstrap is None else self.bootstrap.to_json(),
-        }
 
 
 def score_epochs(
@@ -213,7 +67,7 @@ def score_epochs(
             significant=bool(tests.significant[i]),
             mean_diff_uv=float(mean_diff[i]),
             hedges_g=float(effect.g[i]),
-            hedges_g_ci=(float(effect.ci_low[i]), float(effect.ci_high[i])),
+            hedges_g_ci=[float(effect.ci_low[i]), float(effect.ci_high[i])],
             sme_uv={label: float(values[i]) for label, values in sme.items()},
         )
         for i, name in enumerate(names)
@@ -258,9 +112,9 @@ def _time_course(
     significant = compare_channels(first, second, settings).significant
     times = np.add.reduceat(epochs.times, starts) / counts
     return TimeCourse(
-        times_s=tuple(float(time) for time in times),
-        significant_fraction=tuple(float(value) for value in significant.mean(axis=-1)),
         bin_s=spec.bin_s,
+        times_s=[round(float(time), 9) for time in times],
+        significant_fraction=[float(value) for value in significant.mean(axis=-1)],
     )
 
 
@@ -279,4 +133,14 @@ def _bootstrap_summary(first: np.ndarray, second: np.ndarray, spec: ScoringSpec)
         test=spec.test,
         ci=spec.bootstrap.ci,
     )
-    return BootstrapSummary.of(result, spec.conditions)
+    return BootstrapSummary(
+        median=result.median,
+        ci_low=result.ci_low,
+        ci_high=result.ci_high,
+        resamples=result.resamples,
+        trials_per_condition=result.trials_per_condition,
+        mode=result.mode,
+        ci=result.ci,
+        trials_drawn=dict(zip(spec.conditions, result.trials_drawn, strict=False)),
+        with_replacement=result.with_replacement,
+    )

@@ -14,11 +14,12 @@ upwards. Two rules avoid it:
 
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Annotated, Any, Literal, get_args
+from typing import Annotated, Literal, get_args
 
 import numpy as np
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
+from epoch_assay.engine.document.multiverse import SelectionOutcome
 from epoch_assay.engine.errors import SpecError
 from epoch_assay.engine.subject_metrics import MetricTable
 
@@ -73,17 +74,17 @@ class SelectionResult:
     winner_holdout_score: float | None
     reference_holdout_score: float | None
 
-    def to_json(self) -> dict[str, Any]:
-        return {
-            "rule": self.rule,
-            "metric": self.metric,
-            "winner": self.winner,
-            "tuning_subjects": list(self.tuning_subjects),
-            "holdout_subjects": list(self.holdout_subjects),
-            "winner_tuning_score": self.winner_tuning_score,
-            "winner_holdout_score": self.winner_holdout_score,
-            "reference_holdout_score": self.reference_holdout_score,
-        }
+    def to_document(self) -> SelectionOutcome:
+        return SelectionOutcome(
+            rule=self.rule,
+            metric=self.metric,
+            winner=self.winner,
+            tuning_subjects=list(self.tuning_subjects),
+            holdout_subjects=list(self.holdout_subjects),
+            winner_tuning_score=self.winner_tuning_score,
+            winner_holdout_score=self.winner_holdout_score,
+            reference_holdout_score=self.reference_holdout_score,
+        )
 
 
 def split_subjects(subjects: Sequence[str], split: SplitSpec) -> tuple[tuple[str, ...], tuple[str, ...]]:

@@ -78,7 +78,7 @@ def metric_table(results: Sequence[Entry], metric: str, pipelines: Sequence[str]
     row_of = {name: index for index, name in enumerate(pipelines)}
     column_of = {subject: index for index, subject in enumerate(subjects)}
     for entry in results:
-        value = None if "error" in entry else read(entry)
+        value = None if entry.get("error") is not None else read(entry)
         if value is None or entry["pipeline"] not in row_of:
             continue
         position = row_of[entry["pipeline"]], column_of[entry["subject"]]

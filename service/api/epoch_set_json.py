@@ -17,15 +17,16 @@ from starlette.types import Scope
 from epoch_assay.engine.errors import EpochSetFormatError
 from epoch_assay.engine.io.detect import FileFormat
 from epoch_assay.engine.io.json_epochs import parse_json_epochs
-from service.api.access import CallerDep
-from service.api.deps import BlobsDep, SessionDep, SettingsDep
-from service.api.epoch_set_store import save_epoch_set, stored_epoch_set
-from service.api.epoch_sets import epoch_set_out, new_epoch_set_row
-from service.api.idempotency import IdempotencyDep, canonical_fingerprint
-from service.api.lookups import study_by_code
+from service.domain.epoch_sets import new_epoch_set_row
 from service.errors import Unprocessable, format_error_to_unprocessable
+from service.http.access import CallerDep
+from service.http.deps import BlobsDep, SessionDep, SettingsDep
+from service.http.idempotency import IdempotencyDep, canonical_fingerprint
+from service.http.lookups import study_by_code
+from service.http.uploads import answer_upload, epoch_set_out
 from service.schemas.epoch_sets import SUBJECT_PATTERN
 from service.schemas.json_epoch_sets import JSON_MEDIA_TYPE
+from service.storage.epoch_sets import epoch_set_with_hash
 
 _SUBJECT = re.compile(SUBJECT_PATTERN)
 
@@ -63,35 +64,29 @@ def post_json_epoch_set(
     with blobs.staged(io.BytesIO(body)) as staged:
         if (replayed := idempotency.replay(canonical_fingerprint({"sha256": staged.sha256}))) is not None:
             return replayed
-        existing = stored_epoch_set(session, study, staged.sha256)
+        existing = epoch_set_with_hash(session, study.id, staged.sha256)
         if existing is not None:
             return idempotency.remember(status.HTTP_200_OK, epoch_set_out(existing, study.code))
         try:
             parsed = parse_json_epochs(body)
         except EpochSetFormatError as error:
             raise format_error_to_unprocessable(error) from None
-        _check_label("subject", parsed.subject, required=True)
-        _check_label("session", parsed.session, required=False)
-        row = new_epoch_set_row(study, parsed.subject, parsed.session, staged.sha256, staged.size, parsed.epochs)
+        subject = _checked_label("subject", parsed.subject)
+        if parsed.session is not None:
+            _checked_label("session", parsed.session)
+        row = new_epoch_set_row(study, subject, parsed.session, staged.sha256, staged.size, parsed.epochs)
         row.file_format = FileFormat.JSON.value
-        return save_epoch_set(
-            session,
-            study,
-            row,
-            [staged],
-            idempotency,
-            lambda r: epoch_set_out(r, study.code),
-            f"/v1/studies/{study.code}/epoch-sets",
-            settings.max_attempts,
+        return answer_upload(
+            session, study, row, [staged], idempotency, lambda r: epoch_set_out(r, study.code), settings.max_attempts
         )
 
 
-def _check_label(key: str, value: str | None, *, required: bool) -> None:
-    if value is None and not required:
-        return
+def _checked_label(key: str, value: str | None) -> str:
+    """``value`` when it is a valid subject or session label; else 422 naming ``key``."""
     if value is None or not _SUBJECT.match(value):
         shown = "missing" if value is None else f"{value!r}, which does not match {SUBJECT_PATTERN}"
         raise Unprocessable(
             f"{key} is {shown}; give it as a short id such as sub-01",
             errors=[{"loc": ["body", key], "msg": f"{key} must match {SUBJECT_PATTERN}"}],
         )
+    return value

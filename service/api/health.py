@@ -4,16 +4,16 @@ from datetime import timedelta
 
 from fastapi import APIRouter, Request, Response
 from prometheus_client import CONTENT_TYPE_LATEST, generate_latest
-from sqlalchemy import text
 from sqlalchemy.exc import SQLAlchemyError
 from sqlalchemy.orm import Session
 
-from service.api.access import CallerDep
-from service.api.deps import SessionDep, SettingsDep
-from service.api.responses import errors
 from service.errors import ServiceUnavailable
+from service.http.access import CallerDep
+from service.http.deps import SessionDep, SettingsDep
+from service.http.responses import errors
 from service.schemas.operations import Health, Readiness
 from service.storage import queue
+from service.storage.db import ping
 from service.storage.ids import utc_now
 
 router = APIRouter(tags=["operations"])
@@ -21,7 +21,7 @@ router = APIRouter(tags=["operations"])
 
 def _database_reachable(session: Session) -> None:
     try:
-        session.execute(text("SELECT 1"))
+        ping(session)
     except SQLAlchemyError as error:
         raise ServiceUnavailable(
             f"the database does not answer ({type(error).__name__}); check "

@@ -9,27 +9,29 @@ import hashlib
 import json
 from collections.abc import Iterator
 from contextlib import contextmanager
-from typing import Annotated
+from typing import Annotated, TypeVar
 
 from fastapi import APIRouter, File, Form, Response, UploadFile, status
 from pydantic import BaseModel, Field, ValidationError
 
 from epoch_assay.engine.errors import EpochSetFormatError, EpochSetTooLargeError
 from epoch_assay.engine.recording import ChannelSpec, EpochingSpec, epoch_recording, load_recording, plan_epochs
-from service.api.access import CallerDep
-from service.api.deps import BlobsDep, SessionDep, SettingsDep
-from service.api.epoch_set_store import save_epoch_set, stored_epoch_set
-from service.api.epoch_sets import epoch_set_out, new_epoch_set_row
-from service.api.idempotency import IdempotencyDep, canonical_fingerprint
-from service.api.lookups import study_by_code
-from service.api.responses import BLOB_STORE_DOWN, errors
+from service.domain.epoch_sets import new_epoch_set_row
 from service.errors import Unprocessable, format_error_to_unprocessable, too_large_to_payload_error
+from service.http.access import CallerDep
+from service.http.deps import BlobsDep, SessionDep, SettingsDep
+from service.http.idempotency import IdempotencyDep, canonical_fingerprint
+from service.http.lookups import study_by_code
+from service.http.responses import BLOB_STORE_DOWN, errors
+from service.http.uploads import answer_upload, epoch_set_out
 from service.schemas.epoch_sets import SUBJECT_PATTERN, EpochSetOut
 from service.storage.blobs import BlobStore, StagedBlob
+from service.storage.epoch_sets import epoch_set_with_hash
 from service.storage.models import EpochSet
 
 router = APIRouter(prefix="/v1/studies/{code}/recordings", tags=["recordings"])
 RECORDING_SOURCE = "recording"
+Spec = TypeVar("Spec", bound=BaseModel)
 
 
 class RecordingOut(EpochSetOut):
@@ -56,14 +58,14 @@ def recording_out(row: EpochSet, study_code: str) -> RecordingOut:
     )
 
 
-def _parsed(model: type[BaseModel], text: str, field: str) -> BaseModel:
+def _parsed(model: type[Spec], text: str, field: str) -> Spec:
     try:
         return model.model_validate_json(text)
     except ValidationError as error:
         problems = [{"loc": ["body", field, *item["loc"]], "msg": item["msg"]} for item in error.errors()]
         shown = "; ".join(f"{'.'.join(str(p) for p in item['loc'][1:])}: {item['msg']}" for item in problems[:5])
         raise Unprocessable(
-            f"{shown}. Give {field} as JSON, see the README's recordings section", errors=problems
+            f"{shown}. Give {field} as JSON, see docs/inputs.md, Continuous recordings", errors=problems
         ) from None
 
 
@@ -136,7 +138,7 @@ def upload_recording(
         fingerprint = canonical_fingerprint({"sha256": identity, "subject": subject, "session": session_label})
         if (replayed := idempotency.replay(fingerprint)) is not None:
             return replayed
-        existing = stored_epoch_set(session, study, identity)
+        existing = epoch_set_with_hash(session, study.id, identity)
         if existing is not None:
             return idempotency.remember(status.HTTP_200_OK, recording_out(existing, study.code))
         try:
@@ -160,13 +162,6 @@ def upload_recording(
         row.epoching, row.channels = epoching_spec.model_dump(mode="json"), channel_spec.model_dump(mode="json")
         row.events_found = {"found": plan.events_found, "dropped_at_edges": plan.dropped_at_edges}
         staged = [staged_file] + ([staged_events] if staged_events else [])
-        return save_epoch_set(
-            session,
-            study,
-            row,
-            staged,
-            idempotency,
-            lambda r: recording_out(r, study.code),
-            f"/v1/studies/{study.code}/epoch-sets",
-            settings.max_attempts,
+        return answer_upload(
+            session, study, row, staged, idempotency, lambda r: recording_out(r, study.code), settings.max_attempts
         )

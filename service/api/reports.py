@@ -1,19 +1,20 @@
 """Reports: a run's results as a self-contained HTML page and as single figures; a study's page."""
 
 import json
-from typing import Annotated, Any, Literal
+from typing import Annotated, Literal
 
 from fastapi import APIRouter, Path, Response
 from fastapi.responses import HTMLResponse
-from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from service.api.access import CallerDep
-from service.api.deps import SessionDep
-from service.api.locked_pipelines import ORIGIN as ARRIVAL_ORIGIN
-from service.api.lookups import run_by_id, study_by_code
-from service.api.responses import errors
-from service.errors import Conflict, NotFound
+from epoch_assay.engine.document import RunResultDocument, upgrade_document
+from service.domain.locked_pipelines import ARRIVAL_ORIGIN, locked_pipeline_of
+from service.domain.runs import stored_result_document
+from service.errors import NotFound
+from service.http.access import CallerDep
+from service.http.deps import SessionDep
+from service.http.lookups import run_by_id, study_by_code
+from service.http.responses import errors
 from service.report import catalogue
 from service.report.figures import arrival_figure, figure_bytes
 from service.report.html import (
@@ -26,8 +27,9 @@ from service.report.html import (
     study_report_html,
 )
 from service.report.summary import Arrival
-from service.storage import queue
-from service.storage.models import EpochSet, LockedPipeline, Run, RunEpochSet, RunResult, Study
+from service.storage.epoch_sets import epoch_sets_of_run, epoch_sets_of_study
+from service.storage.models import EpochSet, Run, Study
+from service.storage.runs import latest_runs_of_study, succeeded_documents_of_study
 
 router = APIRouter(tags=["reports"])
 STUDY_REPORT_RUNS = 200
@@ -36,16 +38,8 @@ HTML_CONTENT = {"text/html": {"schema": {"type": "string"}}}
 IMAGE_CONTENT = {media: {"schema": {"type": "string", "format": "binary"}} for media in MEDIA_TYPES.values()}
 
 
-def _document(session: Session, run: Run) -> dict[str, Any]:
-    result = session.get(RunResult, run.id)
-    if run.status != queue.SUCCEEDED or result is None:
-        hint = (
-            f"it failed: {run.error}"
-            if run.status == queue.FAILED
-            else f"poll GET /v1/runs/{run.id} until status is succeeded"
-        )
-        raise Conflict(f"run {run.id} is {run.status}, so it has no report yet; {hint}")
-    return json.loads(result.document)
+def _document(session: Session, run: Run) -> RunResultDocument:
+    return stored_result_document(session, run, "report yet")
 
 
 def _epoch_set_facts(row: EpochSet) -> EpochSetFacts:
@@ -62,12 +56,7 @@ def _epoch_set_facts(row: EpochSet) -> EpochSetFacts:
 
 
 def _run_facts(session: Session, run: Run) -> RunFacts:
-    rows = session.scalars(
-        select(EpochSet)
-        .join(RunEpochSet, RunEpochSet.epoch_set_id == EpochSet.id)
-        .where(RunEpochSet.run_id == run.id)
-        .order_by(RunEpochSet.position)
-    )
+    rows = epoch_sets_of_run(session, run.id)
     return RunFacts(
         id=run.id,
         study_code=run.study.code,
@@ -140,12 +129,7 @@ def get_run_figure(
 def get_study_report(code: str, session: SessionDep, caller: CallerDep) -> HTMLResponse:
     """The study's page: its runs so far (newest first) and its epoch sets as they arrived."""
     study: Study = study_by_code(session, code, caller, "read")
-    runs = session.scalars(
-        select(Run)
-        .where(Run.study_id == study.id)
-        .order_by(Run.created_at.desc(), Run.id.desc())
-        .limit(STUDY_REPORT_RUNS)
-    )
+    runs = latest_runs_of_study(session, study.id, STUDY_REPORT_RUNS)
     rows = [
         RunSummaryRow(
             id=run.id,
@@ -157,12 +141,7 @@ def get_study_report(code: str, session: SessionDep, caller: CallerDep) -> HTMLR
         )
         for run in runs
     ]
-    epoch_sets = [
-        _epoch_set_facts(row)
-        for row in session.scalars(
-            select(EpochSet).where(EpochSet.study_id == study.id).order_by(EpochSet.created_at, EpochSet.id)
-        )
-    ]
+    epoch_sets = [_epoch_set_facts(row) for row in epoch_sets_of_study(session, study.id)]
     arrivals = [
         Arrival(
             label=f"{item.subject}/{item.session}" if item.session else item.subject,
@@ -172,7 +151,7 @@ def get_study_report(code: str, session: SessionDep, caller: CallerDep) -> HTMLR
         for item in epoch_sets
     ]
     arrival_png = figure_bytes(arrival_figure(arrivals), "png") if arrivals else None
-    locked = session.get(LockedPipeline, study.id)
+    locked = locked_pipeline_of(session, study)
     locked_facts = (
         None
         if locked is None
@@ -198,43 +177,34 @@ def get_study_report(code: str, session: SessionDep, caller: CallerDep) -> HTMLR
     )
 
 
-def _latest_compared(session: Session, study: Study) -> tuple[str, dict[str, Any]] | None:
+def _latest_compared(session: Session, study: Study) -> tuple[str, RunResultDocument] | None:
     """The newest succeeded run that compared pipelines (not a score on arrival): its id and result document."""
-    succeeded = session.scalars(
-        select(Run)
-        .where(Run.study_id == study.id, Run.status == queue.SUCCEEDED)
-        .order_by(Run.created_at.desc(), Run.id.desc())
-    )
-    run = next((run for run in succeeded if run.spec.get("origin") != ARRIVAL_ORIGIN), None)
-    result = None if run is None else session.get(RunResult, run.id)
-    return None if result is None else (run.id, json.loads(result.document))
+    latest = None
+    for run, document in succeeded_documents_of_study(session, study.id):
+        if run.spec.get("origin") != ARRIVAL_ORIGIN:
+            latest = (run.id, document)
+    return None if latest is None else (latest[0], upgrade_document(json.loads(latest[1])))
 
 
 def _quality_on_arrival(session: Session, study: Study) -> list[ArrivalQuality]:
     """What the locked pipeline found in each epoch set scored on arrival, oldest first."""
-    scored = session.execute(
-        select(Run, RunResult.document)
-        .join(RunResult, RunResult.run_id == Run.id)
-        .where(Run.study_id == study.id, Run.status == queue.SUCCEEDED)
-        .order_by(Run.created_at, Run.id)
-    ).all()
     quality = []
-    for run, document in scored:
+    for run, document in succeeded_documents_of_study(session, study.id):
         if run.spec.get("origin") != ARRIVAL_ORIGIN:
             continue
-        for entry in json.loads(document)["results"]:
+        for entry in upgrade_document(json.loads(document)).results:
             quality.append(
                 ArrivalQuality(
-                    epoch_set=entry["epoch_set"],
-                    subject=entry["subject"],
-                    session=entry.get("session"),
+                    epoch_set=entry.epoch_set,
+                    subject=entry.subject,
+                    session=entry.session,
                     scored_at=run.created_at,
-                    pipeline=entry["pipeline"],
-                    n_trials=entry.get("n_trials") or {},
-                    median_sme_uv=entry.get("median_sme_uv") or {},
-                    channels_kept=entry.get("channels_kept"),
-                    channels_uploaded=entry.get("channels_uploaded"),
-                    error=entry.get("error"),
+                    pipeline=entry.pipeline,
+                    n_trials=entry.n_trials or {},
+                    median_sme_uv=entry.median_sme_uv or {},
+                    channels_kept=entry.channels_kept,
+                    channels_uploaded=entry.channels_uploaded,
+                    error=entry.error,
                 )
             )
     return quality

@@ -1,23 +1,21 @@
 """Webhooks: per-study URLs that receive a signed JSON event when a run succeeds or fails."""
 
-import base64
-import secrets
 from typing import Annotated
 
 from fastapi import APIRouter, Query, Response, status
-from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from service.api.access import CallerDep
-from service.api.deps import SessionDep
-from service.api.idempotency import IdempotencyDep, canonical_fingerprint
-from service.api.lookups import study_by_code
-from service.api.responses import errors
+from service.domain.webhooks import register_webhook
 from service.errors import NotFound
+from service.http.access import CallerDep
+from service.http.deps import SessionDep
+from service.http.idempotency import IdempotencyDep, canonical_fingerprint
+from service.http.lookups import study_by_code
+from service.http.responses import errors
 from service.schemas.webhooks import DeliveryOut, DeliveryPage, WebhookCreate, WebhookCreated, WebhookOut
 from service.storage import outbox
-from service.storage.ids import new_id
-from service.storage.models import Study, Webhook, WebhookDelivery
+from service.storage.models import Study, Webhook
+from service.storage.webhooks import latest_deliveries, webhook_in_study, webhooks_of_study
 
 router = APIRouter(prefix="/v1/studies/{code}/webhooks", tags=["webhooks"])
 SIGNING = (
@@ -27,13 +25,6 @@ SIGNING = (
     "where the key is the base64 after `whsec_` in the secret; any Standard Webhooks verifier checks it. "
     "Failed deliveries are retried with exponential backoff."
 )
-# Key length in bytes; Standard Webhooks asks for 24 to 64.
-SECRET_KEY_BYTES = 32
-
-
-def new_webhook_secret() -> str:
-    """A signing secret in the Standard Webhooks form: ``whsec_`` and the base64 of random key bytes."""
-    return "whsec_" + base64.b64encode(secrets.token_bytes(SECRET_KEY_BYTES)).decode()
 
 
 def webhook_out(hook: Webhook, study_code: str) -> WebhookOut:
@@ -48,8 +39,8 @@ def webhook_out(hook: Webhook, study_code: str) -> WebhookOut:
 
 
 def _webhook_of(session: Session, study: Study, webhook_id: str) -> Webhook:
-    hook = session.get(Webhook, webhook_id)
-    if hook is None or hook.study_id != study.id:
+    hook = webhook_in_study(session, study.id, webhook_id)
+    if hook is None:
         raise NotFound(
             f"no webhook {webhook_id!r} in study {study.code!r}; list them with GET /v1/studies/{study.code}/webhooks"
         )
@@ -69,16 +60,7 @@ def create_webhook(
     study = study_by_code(session, code, caller, "write")
     if (replayed := idempotency.replay(canonical_fingerprint(body.model_dump(mode="json")))) is not None:
         return replayed
-    hook = Webhook(
-        id=new_id("wh"),
-        study_id=study.id,
-        url=str(body.url),
-        secret=new_webhook_secret(),
-        events=list(body.events),
-        description=body.description,
-    )
-    session.add(hook)
-    session.flush()
+    hook = register_webhook(session, study, str(body.url), list(body.events), body.description)
     created = WebhookCreated(**webhook_out(hook, study.code).model_dump(), secret=hook.secret)
     return idempotency.remember(
         status.HTTP_201_CREATED, created, location=f"/v1/studies/{study.code}/webhooks/{hook.id}"
@@ -89,10 +71,7 @@ def create_webhook(
 def list_webhooks(code: str, session: SessionDep, caller: CallerDep) -> list[WebhookOut]:
     """The study's webhooks, oldest first (write keys; secrets are never shown again)."""
     study = study_by_code(session, code, caller, "write")
-    hooks = session.scalars(
-        select(Webhook).where(Webhook.study_id == study.id).order_by(Webhook.created_at, Webhook.id)
-    )
-    return [webhook_out(hook, study.code) for hook in hooks]
+    return [webhook_out(hook, study.code) for hook in webhooks_of_study(session, study.id)]
 
 
 @router.get("/{webhook_id}", response_model=WebhookOut, responses=errors(401, 403, 404))
@@ -121,12 +100,7 @@ def list_deliveries(
     """The delivery log: each event sent to this webhook, newest first, with every attempt (write keys)."""
     study = study_by_code(session, code, caller, "write")
     hook = _webhook_of(session, study, webhook_id)
-    rows = session.scalars(
-        select(WebhookDelivery)
-        .where(WebhookDelivery.webhook_id == hook.id)
-        .order_by(WebhookDelivery.created_at.desc(), WebhookDelivery.id.desc())
-        .limit(limit)
-    )
+    rows = latest_deliveries(session, hook.id, limit)
     return DeliveryPage(
         deliveries=[
             DeliveryOut(

@@ -3,10 +3,11 @@
 
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Any
+from functools import partial
 
 from matplotlib.figure import Figure
 
+from epoch_assay.engine.document import RunResultDocument
 from service.report import figures, summary, topomaps
 
 BEST_SHOWN = 2
@@ -26,7 +27,7 @@ def topomap_name(pipeline: str) -> str:
     return f"topomap-{pipeline}"
 
 
-def run_figures(document: dict[str, Any]) -> list[ReportFigure]:
+def run_figures(document: RunResultDocument) -> list[ReportFigure]:
     """Every figure available for ``document``, in report order."""
     found: list[ReportFigure] = []
     ranking = summary.ranking(document)
@@ -44,7 +45,7 @@ def run_figures(document: dict[str, Any]) -> list[ReportFigure]:
     found.extend(_topomaps(document, reference))
     courses = summary.time_courses(document)
     if courses:
-        window = tuple(document["scoring"]["window_s"])
+        window = document.scoring.window_s
         found.append(
             ReportFigure(
                 "time-course",
@@ -55,7 +56,7 @@ def run_figures(document: dict[str, Any]) -> list[ReportFigure]:
         )
     kept = summary.kept_counts(document)
     if kept:
-        conditions = list(document["scoring"]["conditions"])
+        conditions = list(document.scoring.conditions)
         found.append(
             ReportFigure(
                 "kept",
@@ -79,7 +80,7 @@ def run_figures(document: dict[str, Any]) -> list[ReportFigure]:
     return found
 
 
-def _topomaps(document: dict[str, Any], reference: str) -> list[ReportFigure]:
+def _topomaps(document: RunResultDocument, reference: str) -> list[ReportFigure]:
     placed = {}
     for name in summary.pipeline_names(document):
         channel_map = summary.channel_map(document, name)
@@ -97,13 +98,13 @@ def _topomaps(document: dict[str, Any], reference: str) -> list[ReportFigure]:
                 f"Welch t per channel, mean over {located.map.n_epoch_sets} epoch set(s); white dots: significant after "
                 f"correction in at least half of them. All maps of this run share the colour scale ±{limit:.1f}."
                 + left_out,
-                lambda located=located: topomaps.topomap_figure(located, reference, limit),
+                partial(topomaps.topomap_figure, located, reference, limit),
             )
         )
     return found
 
 
-def embedded_names(document: dict[str, Any], available: list[ReportFigure]) -> list[str]:
+def embedded_names(document: RunResultDocument, available: list[ReportFigure]) -> list[str]:
     """The figures the HTML page shows: all but the scalp maps, of which the reference and the best few."""
     shown_maps = {topomap_name(name) for name in summary.best_pipelines(summary.ranking(document).rows, BEST_SHOWN)}
     return [item.name for item in available if not item.name.startswith("topomap-") or item.name in shown_maps]

@@ -49,14 +49,14 @@ def ranking_figure(rows: Sequence[tuple[str, float, float, float, bool]], *, des
     the order to show; ``description`` says what point and bar are. The reference is drawn as its own errorbar container (label "reference"),
     the others as one container (label "pipelines"), so their data can be read back.
     """
-    rows = [RankingRow(*row) for row in rows]
-    figure, (ax,) = _figure(1.2 + 0.45 * max(len(rows), 1))
-    positions = list(range(len(rows)))[::-1]
+    ranked = [RankingRow(*row) for row in rows]
+    figure, (ax,) = _figure(1.2 + 0.45 * max(len(ranked), 1))
+    positions = list(range(len(ranked)))[::-1]
     for is_reference, colour, marker, label in (
         (False, pipeline_colour(0), "o", PIPELINES_LABEL),
         (True, REFERENCE_COLOUR, "D", REFERENCE_LABEL),
     ):
-        chosen = [(y, row) for y, row in zip(positions, rows, strict=False) if row.is_reference == is_reference]
+        chosen = [(y, row) for y, row in zip(positions, ranked, strict=False) if row.is_reference == is_reference]
         if not chosen:
             continue
         ys = [y for y, _ in chosen]
@@ -76,9 +76,9 @@ def ranking_figure(rows: Sequence[tuple[str, float, float, float, bool]], *, des
             label=label,
         )
     ax.set_yticks(
-        positions, [f"{row.name} (reference)" if row.is_reference else row.name for row in rows], fontsize=FONT_SIZE
+        positions, [f"{row.name} (reference)" if row.is_reference else row.name for row in ranked], fontsize=FONT_SIZE
     )
-    ax.set_ylim(-0.7, len(rows) - 0.3)
+    ax.set_ylim(-0.7, len(ranked) - 0.3)
     ax.set_xlim(0.0, 1.0)
     ax.xaxis.set_major_formatter(PercentFormatter(xmax=1.0))
     ax.set_xlabel(f"Significant channels (% of scored)\n{description}", fontsize=FONT_SIZE)

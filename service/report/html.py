@@ -13,6 +13,8 @@ from html import escape
 from typing import Any
 from urllib.parse import quote
 
+from epoch_assay.engine.document import RunResultDocument
+from epoch_assay.engine.document.run import RunProvenance
 from service.report.catalogue import ReportFigure
 from service.report.summary import verdict_facts, verdict_text
 
@@ -161,10 +163,10 @@ CAUTION = (
 )
 
 
-def run_report_html(document: dict[str, Any], run: RunFacts, shown: Sequence[tuple[ReportFigure, bytes]]) -> str:
+def run_report_html(document: RunResultDocument, run: RunFacts, shown: Sequence[tuple[ReportFigure, bytes]]) -> str:
     """The run report page: inputs and provenance, then the figures in ``shown`` (with their PNG bytes)."""
-    scoring = document["scoring"]
-    first, second = (escape(label) for label in scoring["conditions"])
+    scoring = document.scoring
+    first, second = (escape(label) for label in scoring.conditions)
     body = [
         f"<h1>Run report {escape(run.id)}</h1>",
         f'<p class="sub">Study {_code(run.study_code)} — {escape(run.study_title)} · status {escape(run.status)} · '
@@ -172,23 +174,23 @@ def run_report_html(document: dict[str, Any], run: RunFacts, shown: Sequence[tup
         f'<p class="caution">{escape(CAUTION)}</p>',
         verdict_html(document),
         "<h2>Results</h2>",
-        f"<p>Contrast <strong>{first} − {second}</strong>, window {scoring['window_s'][0]:g}–"
-        f"{scoring['window_s'][1]:g} s, α = {scoring['alpha']:g}, correction {escape(scoring['correction'])}.</p>",
+        f"<p>Contrast <strong>{first} − {second}</strong>, window {scoring.window_s[0]:g}–"
+        f"{scoring.window_s[1]:g} s, α = {scoring.alpha:g}, correction {escape(scoring.correction)}.</p>",
         _figures_html(shown),
         _errors_html(document),
         "<h2>Inputs</h2>",
         _epoch_sets_html(run.epoch_sets),
         "<h3>Pipelines</h3>",
-        _pipelines_html(run.pipelines, document["provenance"].get("pipeline_hashes", {})),
+        _pipelines_html(run.pipelines, document.provenance.pipeline_hashes),
         "<h3>Scoring</h3>",
-        f"<p>{_code(json.dumps(scoring, sort_keys=True))}</p>",
+        f"<p>{_code(json.dumps(scoring.model_dump(mode='json'), sort_keys=True))}</p>",
         "<h2>Provenance</h2>",
-        _provenance_html(document["provenance"]),
+        _provenance_html(document.provenance),
     ]
     return _page(f"epoch-assay run {run.id}", "".join(body))
 
 
-def verdict_html(document: dict[str, Any], run_id: str | None = None) -> str:
+def verdict_html(document: RunResultDocument, run_id: str | None = None) -> str:
     """The plain-language verdict paragraph of a result document; ``run_id`` names and links the run."""
     text = escape(verdict_text(verdict_facts(document)))
     if run_id is None:
@@ -213,15 +215,13 @@ def _figures_html(shown: Sequence[tuple[ReportFigure, bytes]]) -> str:
     return "".join(parts)
 
 
-def _errors_html(document: dict[str, Any]) -> str:
-    failed = [entry for entry in document["results"] if entry.get("error")]
-    warned = [entry for entry in document["results"] if entry.get("warnings")]
+def _errors_html(document: RunResultDocument) -> str:
+    failed = [(entry, entry.error) for entry in document.results if entry.error]
+    warned = [entry for entry in document.results if entry.warnings]
     if not failed and not warned:
         return ""
-    rows = [
-        [escape(e["pipeline"]), escape(e["subject"]), f'<span class="bad">{escape(e["error"])}</span>'] for e in failed
-    ]
-    rows += [[escape(e["pipeline"]), escape(e["subject"]), escape("; ".join(e["warnings"]))] for e in warned]
+    rows = [[escape(e.pipeline), escape(e.subject), f'<span class="bad">{escape(error)}</span>'] for e, error in failed]
+    rows += [[escape(e.pipeline), escape(e.subject), escape("; ".join(e.warnings))] for e in warned]
     return "<h3>Errors and warnings</h3>" + _table(["pipeline", "subject", "message"], rows)
 
 
@@ -257,15 +257,15 @@ def _step_text(step: dict[str, Any]) -> str:
     return f"{step['step']}({params})"
 
 
-def _provenance_html(provenance: dict[str, Any]) -> str:
-    software = ", ".join(f"{name} {version}" for name, version in provenance.get("software", {}).items())
-    seeds = ", ".join(f"{name}: {seed}" for name, seed in provenance.get("seeds", {}).items())
+def _provenance_html(provenance: RunProvenance) -> str:
+    software = ", ".join(f"{name} {version}" for name, version in provenance.software.items())
+    seeds = ", ".join(f"{name}: {seed}" for name, seed in provenance.seeds.model_dump().items())
     rows = [
         ["software", escape(software)],
         ["seeds", escape(seeds or "—")],
-        ["scoring hash", _code(provenance.get("scoring_hash", ""))],
+        ["scoring hash", _code(provenance.scoring_hash)],
     ]
-    rows += [[f"file {escape(es)}", _code(sha)] for es, sha in provenance.get("epoch_set_sha256", {}).items()]
+    rows += [[f"file {escape(es)}", _code(sha)] for es, sha in provenance.epoch_set_sha256.items()]
     return _table(["what", "value"], rows)
 
 
@@ -320,7 +320,7 @@ def study_report_html(
     arrival_png: bytes | None,
     locked: LockedFacts | None,
     quality: Sequence[ArrivalQuality],
-    latest: tuple[str, dict[str, Any]] | None = None,
+    latest: tuple[str, RunResultDocument] | None = None,
 ) -> str:
     """The study page: the verdict of the ``latest`` scored run (its id and result document), the runs so
     far, the locked pipeline, data quality on arrival, the epoch sets."""

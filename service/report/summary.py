@@ -1,18 +1,22 @@
-"""What the report shows, read from a result document: small named records, no plotting.
+"""What the report shows, read from a result document (``RunResultDocument``): small named records,
+no plotting.
 
 Every figure is drawn from these records, so a figure can be checked against numbers that
-were put into it. Optional fields (the top-level ``ranking``, and per entry ``channels_kept``,
-``median_sme_uv``, ``time_course``) are used when the document has them; a document without
-them still gives a ranking (from the per-entry scores), the scalp maps and the kept-trials figure.
+were put into it. Parts that may be null (the top-level ``ranking`` and ``group``, per entry
+``time_course``) are used when the document has them; a document without them still gives a
+ranking (from the per-entry scores), the scalp maps and the kept-trials figure.
 """
 
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Any, NamedTuple
+from typing import NamedTuple
 
 import numpy as np
 from scipy import stats
+
+from epoch_assay.engine.document import ResultEntry, RunResultDocument
+from epoch_assay.engine.document.multiverse import PipelineGroupResult, RankingEntry
 
 
 class RankingRow(NamedTuple):
@@ -78,29 +82,29 @@ class SmeSummary:
     median_uv: dict[str, float]
 
 
-def pipeline_names(document: dict[str, Any]) -> list[str]:
+def pipeline_names(document: RunResultDocument) -> list[str]:
     """Pipeline names in the order of the run spec."""
-    return list(document["provenance"]["pipeline_hashes"])
+    return list(document.provenance.pipeline_hashes)
 
 
-def reference_pipeline(document: dict[str, Any]) -> str:
+def reference_pipeline(document: RunResultDocument) -> str:
     """The pipeline others are compared with: ``scoring.reference_pipeline``, else the run's first pipeline."""
-    return document["scoring"].get("reference_pipeline") or pipeline_names(document)[0]
+    return document.scoring.reference_pipeline or pipeline_names(document)[0]
 
 
-def scored_entries(document: dict[str, Any], pipeline: str) -> list[dict[str, Any]]:
+def scored_entries(document: RunResultDocument, pipeline: str) -> list[ResultEntry]:
     """The entries of ``pipeline`` that were scored (entries with an ``error`` are left out)."""
-    return [entry for entry in document["results"] if entry["pipeline"] == pipeline and entry.get("error") is None]
+    return [entry for entry in document.results if entry.pipeline == pipeline and entry.error is None]
 
 
-def ranking(document: dict[str, Any]) -> Ranking:
+def ranking(document: RunResultDocument) -> Ranking:
     """The document's own ``ranking`` when it has one; else pipelines ordered by their estimate, best first:
     from the ``group`` summary when there is one, else from the entries themselves."""
-    if document.get("ranking"):
-        return _ranking_of_document(document["ranking"])
+    if document.ranking:
+        return _ranking_of_document(document.ranking)
     reference = reference_pipeline(document)
-    if document.get("group"):
-        return _ranking_of_group(document["group"], reference)
+    if document.group:
+        return _ranking_of_group(document.group, reference)
     rows, labels = [], set()
     for name in pipeline_names(document):
         found = _row_from_entries(name, scored_entries(document, name), name == reference)
@@ -112,46 +116,46 @@ def ranking(document: dict[str, Any]) -> Ranking:
     return Ranking(rows=rows, description=description)
 
 
-def _ranking_of_document(entries: list[dict[str, Any]]) -> Ranking:
-    """Rows from ranking entries (``epoch_assay.engine.ranking.RankedPipeline.to_json``), in their rank order."""
+def _ranking_of_document(entries: list[RankingEntry]) -> Ranking:
+    """Rows from the document's ranking entries, in their rank order."""
     rows = []
-    for entry in sorted(entries, key=lambda item: item["rank"]):
-        if entry.get("mean") is None:
+    for entry in sorted(entries, key=lambda item: item.rank):
+        if entry.mean is None:
             continue
-        mean = float(entry["mean"])
-        low = mean if entry.get("ci_low") is None else float(entry["ci_low"])
-        high = mean if entry.get("ci_high") is None else float(entry["ci_high"])
-        rows.append(RankingRow(entry["pipeline"], mean, low, high, entry.get("vs_reference") is None))
+        mean = entry.mean
+        low = mean if entry.ci_low is None else entry.ci_low
+        high = mean if entry.ci_high is None else entry.ci_high
+        rows.append(RankingRow(entry.pipeline, mean, low, high, entry.vs_reference is None))
     return Ranking(rows=rows, description="mean over subjects, 95 % t interval")
 
 
-def _ranking_of_group(groups: list[dict[str, Any]], reference: str) -> Ranking:
+def _ranking_of_group(groups: list[PipelineGroupResult], reference: str) -> Ranking:
     """Rows from the per-pipeline group summaries: mean over subjects with a t interval from its SE."""
     rows = []
     for group in groups:
-        fraction = group.get("significant_fraction")
-        if not fraction or fraction.get("mean") is None:
+        fraction = group.significant_fraction
+        if fraction is None or fraction.mean is None:
             continue
-        mean, n = float(fraction["mean"]), int(group["n_subjects"])
-        half = 0.0 if fraction.get("se") is None or n < 2 else float(stats.t.ppf(0.975, n - 1) * fraction["se"])
-        rows.append(RankingRow(group["pipeline"], mean, mean - half, mean + half, group["pipeline"] == reference))
+        mean, n = fraction.mean, group.n_subjects
+        half = 0.0 if fraction.se is None or n < 2 else float(stats.t.ppf(0.975, n - 1) * fraction.se)
+        rows.append(RankingRow(group.pipeline, mean, mean - half, mean + half, group.pipeline == reference))
     rows.sort(key=lambda row: -row.estimate)
     return Ranking(rows=rows, description="mean over subjects, 95 % t interval")
 
 
-def _row_from_entries(name: str, entries: list[dict[str, Any]], is_reference: bool) -> tuple[RankingRow, str] | None:
+def _row_from_entries(name: str, entries: list[ResultEntry], is_reference: bool) -> tuple[RankingRow, str] | None:
     """One epoch set: its bootstrap median and interval. Several: the mean and a t interval over epoch sets."""
     fractions = np.array(
-        [entry["significant_fraction"] for entry in entries if entry.get("significant_fraction") is not None],
+        [entry.significant_fraction for entry in entries if entry.significant_fraction is not None],
         dtype=float,
     )
     if fractions.size == 0:
         return None
     if fractions.size == 1:
-        boot = entries[0].get("bootstrap")
-        if boot and None not in (boot.get("median"), boot.get("ci_low"), boot.get("ci_high")):
+        boot = entries[0].bootstrap
+        if boot is not None and boot.median is not None and boot.ci_low is not None and boot.ci_high is not None:
             return RankingRow(
-                name, boot["median"], boot["ci_low"], boot["ci_high"], is_reference
+                name, boot.median, boot.ci_low, boot.ci_high, is_reference
             ), "bootstrap median over trial resamples, 2.5–97.5 percentiles"
         return RankingRow(
             name, float(fractions[0]), float(fractions[0]), float(fractions[0]), is_reference
@@ -161,79 +165,78 @@ def _row_from_entries(name: str, entries: list[dict[str, Any]], is_reference: bo
     return RankingRow(name, mean, mean - half, mean + half, is_reference), "mean over epoch sets, 95 % t interval"
 
 
-def channel_map(document: dict[str, Any], pipeline: str) -> ChannelMap | None:
+def channel_map(document: RunResultDocument, pipeline: str) -> ChannelMap | None:
     """Mean t per channel over the epoch sets of ``pipeline``; None when none was scored.
 
     A channel missing from some epoch sets (dropped by a step, say) is averaged over the others.
     """
-    entries = [entry for entry in scored_entries(document, pipeline) if entry.get("channels")]
-    if not entries:
+    channel_lists = [entry.channels for entry in scored_entries(document, pipeline) if entry.channels]
+    if not channel_lists:
         return None
     names: list[str] = []
-    for entry in entries:
-        names.extend(channel["name"] for channel in entry["channels"] if channel["name"] not in names)
+    for channels in channel_lists:
+        names.extend(channel.name for channel in channels if channel.name not in names)
     index = {name: i for i, name in enumerate(names)}
     t_sum, t_count, significant_count = (np.zeros(len(names)) for _ in range(3))
-    for entry in entries:
-        for channel in entry["channels"]:
-            i = index[channel["name"]]
-            if channel["t"] is not None:
-                t_sum[i] += channel["t"]
+    for channels in channel_lists:
+        for channel in channels:
+            i = index[channel.name]
+            if channel.t is not None:
+                t_sum[i] += channel.t
                 t_count[i] += 1
-            significant_count[i] += bool(channel["significant"])
+            significant_count[i] += channel.significant
     with np.errstate(invalid="ignore", divide="ignore"):
         mean_t = np.where(t_count > 0, t_sum / np.maximum(t_count, 1), np.nan)
     return ChannelMap(
         pipeline=pipeline,
         ch_names=tuple(names),
         t=mean_t,
-        significant=significant_count >= len(entries) / 2,
-        n_epoch_sets=len(entries),
+        significant=significant_count >= len(channel_lists) / 2,
+        n_epoch_sets=len(channel_lists),
     )
 
 
-def kept_counts(document: dict[str, Any]) -> list[KeptCounts]:
+def kept_counts(document: RunResultDocument) -> list[KeptCounts]:
     """Per pipeline in spec order: mean trials per condition and mean channels scored."""
-    conditions = list(document["scoring"]["conditions"])
+    conditions = list(document.scoring.conditions)
     kept = []
     for name in pipeline_names(document):
-        entries = [entry for entry in scored_entries(document, name) if entry.get("n_trials")]
+        entries = [entry for entry in scored_entries(document, name) if entry.n_trials]
         if not entries:
             continue
-        trials = {label: float(np.mean([entry["n_trials"].get(label, 0) for entry in entries])) for label in conditions}
+        trials = {
+            label: float(np.mean([(entry.n_trials or {}).get(label, 0) for entry in entries])) for label in conditions
+        }
         channels = float(np.mean([_channels_kept(entry) for entry in entries]))
         kept.append(KeptCounts(pipeline=name, trials=trials, channels=channels))
     return kept
 
 
-def _channels_kept(entry: dict[str, Any]) -> int:
-    kept = entry.get("channels_kept")
-    return int(kept) if kept is not None else len(entry.get("channels") or [])
+def _channels_kept(entry: ResultEntry) -> int:
+    return entry.channels_kept if entry.channels_kept is not None else len(entry.channels or [])
 
 
-def time_courses(document: dict[str, Any]) -> list[TimeCourse]:
+def time_courses(document: RunResultDocument) -> list[TimeCourse]:
     """Per pipeline with a time course in its entries: the mean curve over epoch sets on a shared time axis."""
     courses = []
     for name in pipeline_names(document):
-        curves = [entry["time_course"] for entry in scored_entries(document, name) if entry.get("time_course")]
+        curves = [entry.time_course for entry in scored_entries(document, name) if entry.time_course is not None]
         if not curves:
             continue
-        times = np.asarray(curves[0]["times_s"], dtype=float)
-        same_axis = [curve for curve in curves if np.array_equal(np.asarray(curve["times_s"], dtype=float), times)]
-        fraction = np.mean([np.asarray(curve["significant_fraction"], dtype=float) for curve in same_axis], axis=0)
+        times = np.asarray(curves[0].times_s, dtype=float)
+        same_axis = [curve for curve in curves if np.array_equal(np.asarray(curve.times_s, dtype=float), times)]
+        fraction = np.mean(
+            [np.array(curve.significant_fraction, dtype=float) for curve in same_axis], axis=0
+        )  # null (undefined) entries become NaN
         courses.append(TimeCourse(pipeline=name, times_s=times, fraction=fraction))
     return courses
 
 
-def sme_summaries(document: dict[str, Any]) -> list[SmeSummary]:
+def sme_summaries(document: RunResultDocument) -> list[SmeSummary]:
     """Per pipeline whose entries carry ``median_sme_uv`` ({condition: µV}): the mean over epoch sets."""
     summaries = []
     for name in pipeline_names(document):
-        medians = [
-            entry["median_sme_uv"]
-            for entry in scored_entries(document, name)
-            if isinstance(entry.get("median_sme_uv"), dict)
-        ]
+        medians = [entry.median_sme_uv for entry in scored_entries(document, name) if entry.median_sme_uv]
         if not medians:
             continue
         labels = list(medians[0])
@@ -291,32 +294,31 @@ class VerdictFacts:
     reference_holdout_score: float | None
 
 
-def verdict_facts(document: dict[str, Any]) -> VerdictFacts:
+def verdict_facts(document: RunResultDocument) -> VerdictFacts:
     """The fields of ``document`` the verdict reads (the one place that knows where they are)."""
-    ranking_entries = [entry for entry in document.get("ranking") or [] if isinstance(entry, dict)]
-    selection = document.get("selection") if isinstance(document.get("selection"), dict) else None
-    if selection is not None and "winner" not in selection:
-        selection = None
-    top = min(ranking_entries, key=lambda entry: entry["rank"]) if ranking_entries else None
-    pipeline = selection["winner"] if selection else (top["pipeline"] if top else None)
-    chosen = next((entry for entry in ranking_entries if entry["pipeline"] == pipeline), None)
-    versus = (chosen or {}).get("vs_reference") or {}
-    interval = versus.get("mean_difference_ci")
+    entries = list(document.ranking or [])
+    selection = document.selection if document.selection is not None and document.selection.winner else None
+    top = min(entries, key=lambda entry: entry.rank) if entries else None
+    pipeline = selection.winner if selection else (top.pipeline if top else None)
+    chosen = next((entry for entry in entries if entry.pipeline == pipeline), None)
+    versus = chosen.vs_reference if chosen is not None else None
+    interval = versus.mean_difference_ci if versus is not None else None
     return VerdictFacts(
         pipeline=pipeline,
-        metric=(selection or chosen or {}).get("metric"),
-        n_pipelines=len(ranking_entries) or len(pipeline_names(document)),
-        n_subjects=(chosen or {}).get("n_subjects"),
-        reference=versus.get("reference_pipeline") or reference_pipeline(document),
-        difference=versus.get("mean_difference"),
-        difference_ci=tuple(interval) if interval else None,
-        p_adjusted=versus.get("p_adjusted"),
-        p_unadjusted=versus.get("paired_t_p"),
-        selection_rule=selection["rule"] if selection else None,
-        tuning_subjects=tuple(selection.get("tuning_subjects") or ()) if selection else (),
-        holdout_subjects=tuple(selection.get("holdout_subjects") or ()) if selection else (),
-        winner_holdout_score=selection.get("winner_holdout_score") if selection else None,
-        reference_holdout_score=selection.get("reference_holdout_score") if selection else None,
+        metric=selection.metric if selection else (chosen.metric if chosen else None),
+        n_pipelines=len(entries) or len(pipeline_names(document)),
+        n_subjects=chosen.n_subjects if chosen else None,
+        reference=versus.reference_pipeline if versus else reference_pipeline(document),
+        difference=versus.mean_difference if versus else None,
+        difference_ci=(interval[0], interval[1]) if interval else None,
+        # p_adjusted (max-t over the pipelines compared) arrives with the comparisons work; read it when present.
+        p_adjusted=getattr(versus, "p_adjusted", None),
+        p_unadjusted=versus.paired_t_p if versus else None,
+        selection_rule=selection.rule if selection else None,
+        tuning_subjects=tuple(selection.tuning_subjects or ()) if selection else (),
+        holdout_subjects=tuple(selection.holdout_subjects or ()) if selection else (),
+        winner_holdout_score=selection.winner_holdout_score if selection else None,
+        reference_holdout_score=selection.reference_holdout_score if selection else None,
     )
 
 

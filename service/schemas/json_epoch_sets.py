@@ -18,6 +18,7 @@ JSON_EPOCH_SET_OPENAPI: dict[str, Any] = {
                         "data": {
                             "type": "array",
                             "description": "Nested list (n_trials, n_channels, n_times), in `unit`.",
+                            "items": {"type": "array", "items": {"type": "array", "items": {"type": "number"}}},
                         },
                         "sfreq": {"type": "number"},
                         "tmin": {"type": "number"},
@@ -30,7 +31,13 @@ JSON_EPOCH_SET_OPENAPI: dict[str, Any] = {
                         "unit": {"type": "string", "enum": ["V", "uV"]},
                         "positions": {
                             "type": "array",
-                            "description": "[x, y, z] per channel, in m; null where unknown.",
+                            "description": "[x, y, z] per channel, in m; null for an unknown coordinate.",
+                            "items": {
+                                "type": "array",
+                                "items": {"anyOf": [{"type": "number"}, {"type": "null"}]},
+                                "minItems": 3,
+                                "maxItems": 3,
+                            },
                         },
                         "montage": {"type": "string"},
                         "subject": {"type": "string", "pattern": SUBJECT_PATTERN},

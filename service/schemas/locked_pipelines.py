@@ -3,11 +3,12 @@
 from datetime import datetime
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
+from pydantic.config import JsonDict
 
 from epoch_assay.engine.pipeline import PipelineSpec
 from epoch_assay.engine.scoring_spec import ScoringSpec
 
-LOCK_EXAMPLE = {
+LOCK_EXAMPLE: JsonDict = {
     "pipeline": {
         "name": "hp0.5-avg",
         "steps": [{"step": "highpass", "cutoff_hz": 0.5}, {"step": "reference", "kind": "average"}],

@@ -4,6 +4,7 @@ from datetime import datetime
 from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
+from pydantic.config import JsonDict
 
 from epoch_assay.engine.errors import SpecError
 from epoch_assay.engine.grid import GridSpec, expand_grid
@@ -13,7 +14,7 @@ from epoch_assay.engine.selection import SelectionSpec
 
 RunStatus = Literal["queued", "running", "succeeded", "failed"]
 
-RUN_EXAMPLE = {
+RUN_EXAMPLE: JsonDict = {
     "study": "READ-01",
     "epoch_sets": ["es_3f9c0a1b7d2e4f60"],
     "pipelines": [
@@ -41,7 +42,9 @@ class RunCreate(BaseModel):
     pipelines: list[PipelineSpec] | None = Field(
         None, min_length=1, max_length=512, description="The pipelines to score; or give a grid instead."
     )
-    grid: GridSpec | None = Field(None, description="Factors whose levels combine into the pipelines (see README).")
+    grid: GridSpec | None = Field(
+        None, description="Factors whose levels combine into the pipelines (see docs/steps.md, Grids)."
+    )
     scoring: ScoringSpec
     selection: SelectionSpec | None = Field(None, description="How to choose a winner without circularity.")
 
@@ -104,7 +107,7 @@ class ProgressDetail(BaseModel):
     eta_s: float | None = Field(description="Time left if the rest goes at the pace so far, in s.")
 
 
-RUN_OUT_EXAMPLE = {
+RUN_OUT_EXAMPLE: JsonDict = {
     "id": "run_0123456789abcdef",
     "study": "READ-01",
     "status": "running",
@@ -139,85 +142,3 @@ class RunPage(BaseModel):
 
     runs: list[RunOut]
     next_cursor: str | None = Field(description="Pass as ?cursor= for the next page; null on the last page.")
-
-
-class ChannelResult(BaseModel):
-    name: str
-    t: float | None
-    p: float | None
-    p_adjusted: float | None
-    significant: bool
-
-
-class BootstrapResult(BaseModel):
-    median: float
-    ci_low: float
-    ci_high: float
-    resamples: int
-    trials_per_condition: int
-
-
-class PipelineResult(BaseModel):
-    pipeline: str
-    pipeline_hash: str
-    epoch_set: str
-    subject: str
-    session: str | None
-    n_trials: dict[str, int] | None = None
-    channels: list[ChannelResult] | None = None
-    significant_fraction: float | None = None
-    bootstrap: BootstrapResult | None = None
-    provenance: list[dict] = Field(description="One record per applied step.")
-    warnings: list[str]
-    error: str | None = Field(None, description="Why this epoch set could not be scored with this pipeline.")
-
-
-RESULT_EXAMPLE = {
-    "schema_version": 1,
-    "run": "run_0123456789abcdef",
-    "study": "READ-01",
-    "scoring": RUN_EXAMPLE["scoring"],
-    "provenance": {
-        "software": {"epoch-assay": "0.1.0"},
-        "scoring_hash": "5d2c…",
-        "pipeline_hashes": {"raw": "9f2c…"},
-        "epoch_set_sha256": {"es_3f9c0a1b7d2e4f60": "9b1c…"},
-        "seeds": {"bootstrap": 7},
-    },
-    "results": [
-        {
-            "pipeline": "raw",
-            "pipeline_hash": "9f2c…",
-            "epoch_set": "es_3f9c0a1b7d2e4f60",
-            "subject": "sub-01",
-            "session": "ses-01",
-            "n_trials": {"congruent": 70, "incongruent": 70},
-            "channels": [{"name": "Pz", "t": -4.1, "p": 0.0001, "p_adjusted": 0.002, "significant": True}],
-            "significant_fraction": 0.41,
-            "bootstrap": {
-                "median": 0.38,
-                "ci_low": 0.22,
-                "ci_high": 0.53,
-                "resamples": 1000,
-                "trials_per_condition": 40,
-            },
-            "provenance": [],
-            "warnings": [],
-        }
-    ],
-}
-
-
-class RunResultDocument(BaseModel):
-    model_config = ConfigDict(json_schema_extra={"examples": [RESULT_EXAMPLE]})
-
-    schema_version: int
-    run: str
-    study: str
-    scoring: dict
-    provenance: dict
-    results: list[PipelineResult]
-    cache: dict | None = Field(None, description="Step-cache lookups of the run: hits and misses.")
-    ranking: list[dict] | None = Field(None, description="Every pipeline, best first, against the reference.")
-    factor_effects: dict | None = Field(None, description="Grid runs: mixed-model effects of each factor.")
-    selection: dict | None = Field(None, description="The winner by the run's selection rule.")

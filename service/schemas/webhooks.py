@@ -4,10 +4,11 @@ from datetime import datetime
 from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field, HttpUrl, field_validator
+from pydantic.config import JsonDict
 
 EventType = Literal["run.succeeded", "run.failed"]
 
-WEBHOOK_EXAMPLE = {
+WEBHOOK_EXAMPLE: JsonDict = {
     "id": "wh_5a1d0c9e8b7f6a43",
     "study": "READ-01",
     "url": "https://lims.example.org/hooks/epoch-assay",
@@ -86,7 +87,7 @@ class DeliveryAttempt(BaseModel):
     seconds: float
 
 
-DELIVERY_EXAMPLE = {
+DELIVERY_EXAMPLE: JsonDict = {
     "id": "dlv_77b0e3d1c2a45f68",
     "event_id": "evt_0c1d2e3f4a5b6c7d",
     "event_type": "run.succeeded",

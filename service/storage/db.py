@@ -2,8 +2,9 @@
 
 from collections.abc import Iterator
 from contextlib import contextmanager
+from typing import Any
 
-from sqlalchemy import Engine, create_engine, event
+from sqlalchemy import Engine, create_engine, event, text
 from sqlalchemy.orm import Session, sessionmaker
 
 SQLITE_BUSY_TIMEOUT_MS = 30_000
@@ -18,7 +19,7 @@ def make_engine(url: str) -> Engine:
     return create_engine(url, pool_pre_ping=True)
 
 
-def _configure_sqlite_connection(dbapi_connection, _record) -> None:  # type: ignore[no-untyped-def]
+def _configure_sqlite_connection(dbapi_connection: Any, _record: Any) -> None:
     # WAL lets readers go on while a worker writes; the busy timeout makes concurrent
     # writers wait for the lock instead of failing with "database is locked".
     cursor = dbapi_connection.cursor()
@@ -50,3 +51,8 @@ class Database:
 
     def dispose(self) -> None:
         self.engine.dispose()
+
+
+def ping(session: Session) -> None:
+    """Ask the database a trivial question; SQLAlchemyError when it does not answer."""
+    session.execute(text("SELECT 1"))

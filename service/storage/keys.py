@@ -16,13 +16,12 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from service.storage.ids import new_id, utc_now
-from service.storage.models import ApiKey, Study
+from service.storage.models import API_KEY_LABEL_LENGTH, ApiKey, Study
 
 Role = Literal["admin", "write", "read"]
 ROLES: tuple[Role, ...] = ("admin", "write", "read")
 TOKEN_PREFIX = "ea_"
-# The column is VARCHAR(200): PostgreSQL refuses a longer value (SQLite would have kept it).
-LABEL_MAX_CHARACTERS = ApiKey.__table__.c.label.type.length
+LABEL_MAX_CHARACTERS = API_KEY_LABEL_LENGTH
 
 
 class KeyProblem(ValueError):

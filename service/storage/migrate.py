@@ -9,7 +9,16 @@ from alembic.runtime.migration import MigrationContext
 from alembic.script import ScriptDirectory
 from sqlalchemy import Engine
 
-MIGRATIONS_DIR = Path(importlib.util.find_spec("epoch_assay.migrations").submodule_search_locations[0])
+
+def _migrations_dir() -> Path:
+    """The installed folder of the epoch_assay.migrations package (the Alembic environment)."""
+    spec = importlib.util.find_spec("epoch_assay.migrations")
+    if spec is None or not spec.submodule_search_locations:
+        raise RuntimeError("epoch_assay.migrations is not installed; reinstall epoch-assay")
+    return Path(spec.submodule_search_locations[0])
+
+
+MIGRATIONS_DIR = _migrations_dir()
 
 
 def alembic_config(database_url: str) -> Config:

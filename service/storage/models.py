@@ -26,6 +26,10 @@ class UTCDateTime(TypeDecorator[datetime]):
         return value.replace(tzinfo=UTC) if value.tzinfo is None else value.astimezone(UTC)
 
 
+# The API key label column is VARCHAR of this length: PostgreSQL refuses a longer value (SQLite would keep it).
+API_KEY_LABEL_LENGTH = 200
+
+
 class Base(DeclarativeBase):
     pass
 
@@ -137,7 +141,7 @@ class RunPipeline(Base):
 
 
 class RunResult(Base):
-    """The result document of a succeeded run (JSON text, see worker.result_document)."""
+    """The result document of a succeeded run: JSON text built by worker.run_job, shaped as service.schemas.runs."""
 
     __tablename__ = "run_results"
 
@@ -186,7 +190,7 @@ class ApiKey(Base):
     token_sha256: Mapped[str] = mapped_column(String(64), unique=True)
     role: Mapped[str] = mapped_column(String(16))
     study_id: Mapped[str | None] = mapped_column(ForeignKey("studies.id", ondelete="CASCADE"), nullable=True)
-    label: Mapped[str | None] = mapped_column(String(200), nullable=True)
+    label: Mapped[str | None] = mapped_column(String(API_KEY_LABEL_LENGTH), nullable=True)
     created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utc_now)
     revoked_at: Mapped[datetime | None] = mapped_column(UTCDateTime, nullable=True)
 

@@ -17,7 +17,7 @@ import json
 from dataclasses import dataclass
 from datetime import datetime, timedelta
 
-from sqlalchemy import and_, or_, select, update
+from sqlalchemy import ColumnElement, and_, or_, select, update
 from sqlalchemy.orm import Session
 
 from service.storage.ids import new_id, utc_now
@@ -97,7 +97,7 @@ class DueDelivery:
     attempt: int
 
 
-def _due(now: datetime):  # type: ignore[no-untyped-def]
+def _due(now: datetime) -> ColumnElement[bool]:
     return and_(
         WebhookDelivery.status == PENDING,
         WebhookDelivery.next_attempt_at <= now,
@@ -127,6 +127,8 @@ def claim_delivery(session: Session, lease_seconds: float) -> DueDelivery | None
     if row is None:
         return None
     hook = session.get(Webhook, row.webhook_id)
+    # A delivery is deleted with its webhook (ON DELETE CASCADE), and the row is locked by this claim.
+    assert hook is not None
     return DueDelivery(
         id=row.id,
         event_id=row.event_id,

@@ -18,7 +18,7 @@ from dataclasses import dataclass
 from datetime import datetime, timedelta
 from typing import Any
 
-from sqlalchemy import ColumnElement, and_, delete, func, or_, select, update
+from sqlalchemy import ColumnElement, CursorResult, Update, and_, delete, func, or_, select, update
 from sqlalchemy.orm import Session
 
 from service.storage import outbox
@@ -42,7 +42,7 @@ def enqueue(session: Session, run_id: str, *, max_attempts: int) -> Job:
     return job
 
 
-def _claimable(now: datetime):  # type: ignore[no-untyped-def]
+def _claimable(now: datetime) -> ColumnElement[bool]:
     return and_(
         Job.attempts < Job.max_attempts,
         or_(
@@ -101,11 +101,12 @@ def heartbeat(
 ) -> bool:
     """Renew the lease (and record progress and its detail). False when the job is no longer this worker's."""
     now = utc_now()
-    renewed = session.execute(
+    renewed = _rows_changed(
+        session,
         update(Job)
         .where(Job.id == job.id, Job.worker_id == worker_id, Job.status == RUNNING)
-        .values(lease_expires_at=now + timedelta(seconds=lease_seconds), heartbeat_at=now)
-    ).rowcount
+        .values(lease_expires_at=now + timedelta(seconds=lease_seconds), heartbeat_at=now),
+    )
     if renewed and progress is not None:
         detail = {} if progress_detail is None else {"progress_detail": progress_detail}
         session.execute(update(Run).where(Run.id == job.run_id).values(progress=progress, **detail))
@@ -137,7 +138,8 @@ def retry_or_fail(session: Session, job: ClaimedJob, worker_id: str, error: str,
         reason = f"failed {job.attempt} times; last error: {error}"
         return FAILED if _finish(session, job.id, job.run_id, FAILED, reason, now, Job.worker_id == worker_id) else None
     wait = backoff_seconds * 2 ** (job.attempt - 1)
-    requeued = session.execute(
+    requeued = _rows_changed(
+        session,
         update(Job)
         .where(Job.id == job.id, Job.worker_id == worker_id, Job.status == RUNNING)
         .values(
@@ -146,8 +148,8 @@ def retry_or_fail(session: Session, job: ClaimedJob, worker_id: str, error: str,
             lease_expires_at=None,
             error=error,
             available_at=now + timedelta(seconds=wait),
-        )
-    ).rowcount
+        ),
+    )
     if not requeued:
         return None
     note = f"attempt {job.attempt} of {held.max_attempts} failed ({error}); trying again in {wait:g} s"
@@ -157,11 +159,12 @@ def retry_or_fail(session: Session, job: ClaimedJob, worker_id: str, error: str,
 
 def release(session: Session, job: ClaimedJob, worker_id: str) -> bool:
     """Hand a job back to the queue (a worker shutting down); the attempt is not counted."""
-    released = session.execute(
+    released = _rows_changed(
+        session,
         update(Job)
         .where(Job.id == job.id, Job.worker_id == worker_id, Job.status == RUNNING)
-        .values(status=QUEUED, worker_id=None, lease_expires_at=None, available_at=None, attempts=Job.attempts - 1)
-    ).rowcount
+        .values(status=QUEUED, worker_id=None, lease_expires_at=None, available_at=None, attempts=Job.attempts - 1),
+    )
     if released:
         session.execute(update(Run).where(Run.id == job.run_id).values(status=QUEUED, progress=0.0))
     return bool(released)
@@ -186,11 +189,12 @@ def _finish(
     exhausted job, a worker completing while its job is taken over) only the first changes it: on PostgreSQL
     the second waits for the row and finds it no longer running, on SQLite writers take turns.
     """
-    finished = session.execute(
+    finished = _rows_changed(
+        session,
         update(Job)
         .where(Job.id == job_id, Job.status == RUNNING, still)
-        .values(status=status, error=error, finished_at=now, lease_expires_at=None)
-    ).rowcount
+        .values(status=status, error=error, finished_at=now, lease_expires_at=None),
+    )
     if not finished:
         return False
     progress = 1.0 if status == SUCCEEDED else Run.progress
@@ -234,3 +238,10 @@ def workers_seen_since(session: Session, since: datetime) -> int:
 def queue_depth(session: Session) -> int:
     """Number of jobs waiting to be claimed."""
     return int(session.scalar(select(func.count()).select_from(Job).where(Job.status == QUEUED)) or 0)
+
+
+def _rows_changed(session: Session, statement: Update) -> int:
+    """Run an UPDATE; how many rows it changed (the result of a DML statement is a CursorResult)."""
+    result = session.execute(statement)
+    assert isinstance(result, CursorResult)
+    return result.rowcount

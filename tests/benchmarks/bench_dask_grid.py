@@ -60,7 +60,7 @@ def main() -> None:
             started = time.perf_counter()
             document = execute_run(
                 "run_grid", "BENCH", spec, refs, lambda ref: sets[ref.id], lambda _: None, execution=execution
-            )
+            ).model_dump(mode="json")
             return document, time.perf_counter() - started
 
     cores = default_workers()

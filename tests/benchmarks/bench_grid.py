@@ -151,13 +151,17 @@ def main() -> None:
 
     def grid_run(cache_dir: Path, window_s: tuple[float, float]) -> Callable[[], dict]:
         spec, execution = grid_spec(size, window_s), worker_execution(cache_dir, workers=1)
-        return lambda: execute_run("run_grid", "BENCH", spec, refs, load, lambda _: None, execution=execution)
+        return lambda: execute_run(
+            "run_grid", "BENCH", spec, refs, load, lambda _: None, execution=execution
+        ).model_dump(mode="json")
 
     def independent_runs() -> list[dict]:
         entries = []
         for pipeline in pipelines:
             spec = {"pipelines": [pipeline], "scoring": scoring((0.3, 0.5))}
-            entries += execute_run("run_one", "BENCH", spec, refs, load, lambda _: None)["results"]
+            entries += execute_run("run_one", "BENCH", spec, refs, load, lambda _: None).model_dump(mode="json")[
+                "results"
+            ]
         return entries
 
     print(

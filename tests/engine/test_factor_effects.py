@@ -131,7 +131,7 @@ def test_high_pass_raises_the_significant_fraction_when_some_subjects_drift():
                 {
                     "pipeline": leaf.pipeline.name,
                     "subject": f"sub-{subject}",
-                    **score_epochs(leaf.epochs, scoring).to_json(),
+                    **score_epochs(leaf.epochs, scoring).model_dump(mode="json"),
                 }
             )
     table = metric_table(entries, "significant_fraction", [point.pipeline.name for point in points])

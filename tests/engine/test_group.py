@@ -46,14 +46,14 @@ def test_vs_reference_wilcoxon_p_equals_scipy(study):
     clean = group_summary(study, ["raw", "clean"], SPEC)[1]
     # Reference: scipy.stats.wilcoxon (Virtanen et al., 2020) on the paired per-subject fractions
     expected = stats.wilcoxon(fractions(study, "clean") - fractions(study, "raw")).pvalue
-    assert clean["vs_reference"]["wilcoxon_p"] == pytest.approx(expected, rel=1e-12)
+    assert clean.vs_reference.wilcoxon_p == pytest.approx(expected, rel=1e-12)
 
 
 def test_vs_reference_paired_t_p_equals_scipy(study):
     clean = group_summary(study, ["raw", "clean"], SPEC)[1]
     # Reference: scipy.stats.ttest_rel (Virtanen et al., 2020)
     expected = stats.ttest_rel(fractions(study, "clean"), fractions(study, "raw")).pvalue
-    assert clean["vs_reference"]["paired_t_p"] == pytest.approx(expected, rel=1e-12)
+    assert clean.vs_reference.paired_t_p == pytest.approx(expected, rel=1e-12)
 
 
 def test_mean_difference_interval_equals_statsmodels_t_interval():
@@ -68,31 +68,31 @@ def test_mean_difference_interval_equals_statsmodels_t_interval():
 
 def test_reference_pipeline_has_no_comparison_and_defaults_to_the_first(study):
     raw, clean = group_summary(study, ["raw", "clean"], SPEC)
-    assert raw["vs_reference"] is None
-    assert clean["vs_reference"]["reference_pipeline"] == "raw"
+    assert raw.vs_reference is None
+    assert clean.vs_reference.reference_pipeline == "raw"
 
 
 def test_named_reference_pipeline_is_used(study):
     raw, clean = group_summary(study, ["raw", "clean"], SPEC.model_copy(update={"reference_pipeline": "clean"}))
-    assert clean["vs_reference"] is None and raw["vs_reference"]["reference_pipeline"] == "clean"
+    assert clean.vs_reference is None and raw.vs_reference.reference_pipeline == "clean"
 
 
 def test_fewer_than_two_subjects_give_no_comparison_and_no_group_test():
     entries = [entry("raw", "s0", 0.2, [1, 2, 3]), entry("clean", "s0", 0.3, [1, 2, 3])]
     _raw, clean = group_summary(entries, ["raw", "clean"], SPEC)
-    assert clean["vs_reference"] is None and clean["group_test"] is None and clean["n_subjects"] == 1
+    assert clean.vs_reference is None and clean.group_test is None and clean.n_subjects == 1
 
 
 def test_entries_with_error_are_left_out_and_counted(study):
     clean = group_summary(study, ["raw", "clean"], SPEC)[1]
-    assert clean["n_subjects"] == 8 and clean["n_entries_with_error"] == 1
+    assert clean.n_subjects == 8 and clean.n_entries_with_error == 1
 
 
 def test_fraction_summary_is_mean_median_and_standard_error(study):
     raw = group_summary(study, ["raw", "clean"], SPEC)[0]
     values = fractions(study, "raw")
     # Reference: scipy.stats.sem (Virtanen et al., 2020)
-    assert raw["significant_fraction"] == pytest.approx(
+    assert raw.significant_fraction.model_dump() == pytest.approx(
         {"mean": values.mean(), "median": np.median(values), "se": stats.sem(values)}, rel=1e-12
     )
 
@@ -123,13 +123,13 @@ def test_group_test_equals_scipy_one_sample_t_with_the_runs_correction(study):
     # Reference: scipy.stats.ttest_1samp (Virtanen et al., 2020) and statsmodels multipletests("holm")
     # (Seabold & Perktold, 2010)
     expected = stats.ttest_1samp(diffs, 0.0, axis=0)
-    channels = raw["group_test"]["channels"]
-    np.testing.assert_allclose([c["t"] for c in channels], expected.statistic, rtol=1e-10)
-    np.testing.assert_allclose([c["p"] for c in channels], expected.pvalue, rtol=1e-8)
+    channels = raw.group_test.channels
+    np.testing.assert_allclose([c.t for c in channels], expected.statistic, rtol=1e-10)
+    np.testing.assert_allclose([c.p for c in channels], expected.pvalue, rtol=1e-8)
     np.testing.assert_allclose(
-        [c["p_adjusted"] for c in channels], multipletests(expected.pvalue, method="holm")[1], rtol=1e-8
+        [c.p_adjusted for c in channels], multipletests(expected.pvalue, method="holm")[1], rtol=1e-8
     )
-    assert raw["group_test"]["significant_fraction"] == np.mean([c["significant"] for c in channels])
+    assert raw.group_test.significant_fraction == np.mean([c.significant for c in channels])
 
 
 def test_group_max_stat_uses_sign_flips_like_mne():

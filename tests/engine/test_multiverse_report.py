@@ -2,6 +2,7 @@
 
 import numpy as np
 
+from epoch_assay.engine.document.multiverse import PipelineGroupResult
 from epoch_assay.engine.grid import GridSpec, expand_grid
 from epoch_assay.engine.multiverse_report import factor_effects_document, ranking_document, selection_document
 from epoch_assay.engine.selection import ContrastBlindSpec, SplitSpec, TuningHoldoutSpec
@@ -27,41 +28,50 @@ RESULTS = [
 ]
 
 
+def group_entry(name: str) -> PipelineGroupResult:
+    return PipelineGroupResult(
+        pipeline=name,
+        n_subjects=6,
+        n_entries_with_error=0,
+        significant_fraction=None,
+        median_sme_uv=None,
+        vs_reference=None,
+        group_test=None,
+    )
+
+
 def test_ranking_lists_every_pipeline_best_first_with_its_group_entry():
-    group = [{"pipeline": name, "n_subjects": 6} for name in NAMES]
+    group = [group_entry(name) for name in NAMES]
     ranking = ranking_document(RESULTS, NAMES, NAMES[0], "significant_fraction", group)
-    assert sorted(e["pipeline"] for e in ranking) == sorted(NAMES)
-    assert ranking[0]["pipeline"].startswith("hp=1") and ranking[0]["group"] == {
-        "pipeline": ranking[0]["pipeline"],
-        "n_subjects": 6,
-    }
-    means = [e["mean"] for e in ranking]
+    assert sorted(e.pipeline for e in ranking) == sorted(NAMES)
+    assert ranking[0].pipeline.startswith("hp=1") and ranking[0].group == group_entry(ranking[0].pipeline)
+    means = [e.mean for e in ranking]
     assert means == sorted(means, reverse=True)
 
 
 def test_factor_effects_name_every_factor_and_level():
     document = factor_effects_document(RESULTS, GRID, POINTS)
-    assert set(document["factors"]) == {"hp", "bl"}
-    assert set(document["factors"]["hp"]["levels"]) == {"none", "1"}
-    assert document["factors"]["hp"]["levels"]["1"]["estimate"] > 0
+    assert document.factors is not None and set(document.factors) == {"hp", "bl"}
+    assert set(document.factors["hp"].levels) == {"none", "1"}
+    assert document.factors["hp"].levels["1"].estimate > 0
 
 
 def test_factor_effects_that_cannot_be_fitted_say_why():
     document = factor_effects_document([e for e in RESULTS if e["subject"] == "s0"], GRID, POINTS)
-    assert "at least two subjects" in document["error"]
+    assert "at least two subjects" in document.error and document.factors is None
 
 
 def test_selection_by_split_reports_both_sides():
     document = selection_document(RESULTS, NAMES, NAMES[0], TuningHoldoutSpec(split=SplitSpec(fraction=0.5, seed=3)))
-    assert len(document["tuning_subjects"]) == 3 and len(document["holdout_subjects"]) == 3
-    assert document["winner"] in NAMES and document["reference_holdout_score"] is not None
+    assert len(document.tuning_subjects) == 3 and len(document.holdout_subjects) == 3
+    assert document.winner in NAMES and document.reference_holdout_score is not None
 
 
 def test_contrast_blind_selection_on_trials_kept_picks_the_pipeline_keeping_most():
     document = selection_document(RESULTS, NAMES, NAMES[0], ContrastBlindSpec(metric="trials_kept"))
-    assert document["winner"] == NAMES[0]
+    assert document.winner == NAMES[0]
 
 
 def test_selection_that_cannot_run_reports_an_error():
     document = selection_document(RESULTS, NAMES, NAMES[0], TuningHoldoutSpec(tuning_subjects=["nobody"]))
-    assert document["rule"] == "tuning_holdout" and "nobody" in document["error"]
+    assert document.rule == "tuning_holdout" and "nobody" in document.error and document.winner is None

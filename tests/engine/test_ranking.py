@@ -23,7 +23,7 @@ def test_comparison_with_reference_matches_scipy_paired_t_interval():
     # Reference: scipy.stats.ttest_rel(...).confidence_interval() (Virtanen et al., 2020, SciPy 1.0)
     ci = stats.ttest_rel(VALUES[2], VALUES[0]).confidence_interval(0.95)
     np.testing.assert_allclose([entry.vs_reference.ci_low, entry.vs_reference.ci_high], [ci.low, ci.high])
-    assert entry.to_json("ref")["vs_reference"]["reference_pipeline"] == "ref"
+    assert entry.to_document("ref", TABLE.metric, None).vs_reference.reference_pipeline == "ref"
 
 
 def test_pipelines_are_sorted_best_mean_first_with_ranks_from_one():
@@ -41,6 +41,6 @@ def test_pipeline_without_scores_sorts_last_and_the_reference_has_no_comparison(
     values = VALUES.copy()
     values[1] = np.nan
     ranking = rank_pipelines(MetricTable(TABLE.metric, TABLE.pipelines, TABLE.subjects, values), "ref")
-    assert ranking[-1].pipeline == "p1" and ranking[-1].to_json("ref")["mean"] is None
+    assert ranking[-1].pipeline == "p1" and ranking[-1].to_document("ref", TABLE.metric, None).mean is None
     assert next(e for e in ranking if e.pipeline == "ref").vs_reference is None
     assert ranking[-1].vs_reference is None

@@ -1,4 +1,4 @@
-"""Scoring an epoch set: window means, per-channel tests and fields, fractions, time course, bootstrap, JSON."""
+"""Scoring an epoch set: window means, per-channel tests and fields, fractions, time course, bootstrap, JSON form."""
 
 import json
 
@@ -108,11 +108,11 @@ def test_no_bootstrap_spec_gives_no_bootstrap(epochs):
     assert score_epochs(epochs, SPEC).bootstrap is None
 
 
-def test_to_json_is_json_with_nan_as_null(epochs):
+def test_undefined_statistics_are_null_in_the_json_form(epochs):
     flat = epochs.data.copy()
     flat[:, 3, :] = 2.0 * MICROVOLT
     score = score_epochs(epochs.with_changes(data=flat), WITH_BOOTSTRAP)
-    decoded = json.loads(json.dumps(score.to_json(), allow_nan=False))
+    decoded = json.loads(json.dumps(score.model_dump(mode="json"), allow_nan=False))
     flat_channel = decoded["channels"][3]
     assert {key: flat_channel[key] for key in ("name", "t", "p", "p_adjusted", "significant", "hedges_g")} == {
         "name": "E4",
@@ -123,44 +123,6 @@ def test_to_json_is_json_with_nan_as_null(epochs):
         "hedges_g": None,
     }
     assert flat_channel["hedges_g_ci"] == [None, None]
-
-
-def test_to_json_has_exactly_the_documented_keys(epochs):
-    document = score_epochs(epochs, WITH_BOOTSTRAP).to_json()
-    assert set(document) == {
-        "n_trials",
-        "channels",
-        "significant_fraction",
-        "significant_fraction_uploaded",
-        "channels_kept",
-        "channels_uploaded",
-        "median_sme_uv",
-        "time_course",
-        "bootstrap",
-    }
-    assert set(document["channels"][0]) == {
-        "name",
-        "t",
-        "p",
-        "p_adjusted",
-        "significant",
-        "mean_diff_uv",
-        "hedges_g",
-        "hedges_g_ci",
-        "sme_uv",
-    }
-    assert set(document["bootstrap"]) == {
-        "median",
-        "ci_low",
-        "ci_high",
-        "resamples",
-        "trials_per_condition",
-        "mode",
-        "ci",
-        "trials_drawn",
-        "with_replacement",
-    }
-    assert set(document["time_course"]) == {"bin_s", "times_s", "significant_fraction"}
 
 
 def test_too_few_trials_for_the_bootstrap_is_a_spec_error(epochs):

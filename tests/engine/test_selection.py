@@ -101,7 +101,7 @@ def null_study(simulation: int, n_subjects: int) -> list[dict]:
                 {
                     "pipeline": leaf.pipeline.name,
                     "subject": f"s{subject}",
-                    **score_epochs(leaf.epochs, NULL_SCORING).to_json(),
+                    **score_epochs(leaf.epochs, NULL_SCORING).model_dump(mode="json"),
                 }
             )
     return entries

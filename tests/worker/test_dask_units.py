@@ -20,7 +20,7 @@ from distributed import Client, LocalCluster
 
 from epoch_assay.engine.epochs import EpochSet
 from epoch_assay.engine.tree import build_tree
-from tests.api.helpers import without_timing
+from tests.service.api.helpers import without_timing
 from tests.support.dask_tasks import state_counts
 from tests.support.live import free_port
 from tests.worker.test_multiverse import GRID, PIPELINES
@@ -60,9 +60,21 @@ def run(execution: ExecutionSettings, on_detail=None) -> dict:
     spec = {"grid": GRID.model_dump(mode="json"), "scoring": SLOW_SCORING}
     pool = ThreadPoolExecutor(max_workers=1)
     try:
-        return pool.submit(
-            execute_run, "run_dask", "DASK", spec, REFS, load, lambda _: None, execution=execution, on_detail=on_detail
-        ).result(timeout=RUN_TIMEOUT_S)
+        return (
+            pool.submit(
+                execute_run,
+                "run_dask",
+                "DASK",
+                spec,
+                REFS,
+                load,
+                lambda _: None,
+                execution=execution,
+                on_detail=on_detail,
+            )
+            .result(timeout=RUN_TIMEOUT_S)
+            .model_dump(mode="json")
+        )
     finally:
         pool.shutdown(wait=False, cancel_futures=True)
 

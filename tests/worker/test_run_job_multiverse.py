@@ -1,5 +1,7 @@
 """execute_run with a grid: same entries as the listed pipelines, plus cache, ranking, factor effects, selection."""
 
+from epoch_assay.engine.document import ResultEntry, RunResultDocument
+from epoch_assay.engine.document.multiverse import CacheCounts
 from epoch_assay.engine.grid import GridSpec, expand_grid
 from epoch_assay.engine.tree import build_tree
 from tests.engine.conftest import random_epoch_set
@@ -26,50 +28,57 @@ def load(ref: EpochSetRef):
     return epochs.with_changes(data=data)
 
 
-def grid_run(tmp_path=None, **extra) -> dict:
+def grid_run(tmp_path=None, **extra) -> RunResultDocument:
     execution = ExecutionSettings(workers=1, cache_dir=tmp_path, cache_max_bytes=10**9)
     spec = {"grid": GRID, "scoring": SCORING, **extra}
     return execute_run("run_x", "S", spec, REFS, load, lambda _: None, execution=execution)
 
 
-def without_timing(entries: list[dict]) -> list[dict]:
-    return [{**e, "provenance": [{**r, "seconds": 0} for r in e["provenance"]]} for e in entries]
+def without_timing(entries: list[ResultEntry]) -> list[dict]:
+    return [
+        {**e.model_dump(mode="json"), "provenance": [r.model_dump(mode="json") | {"seconds": 0} for r in e.provenance]}
+        for e in entries
+    ]
 
 
 def test_grid_run_gives_the_entries_of_the_same_pipelines_listed():
     listed = [pipeline.model_dump(mode="json") for pipeline in PIPELINES]
     plain = execute_run("run_x", "S", {"pipelines": listed, "scoring": SCORING}, REFS, load, lambda _: None)
-    assert without_timing(grid_run()["results"]) == without_timing(plain["results"])
+    assert without_timing(grid_run().results) == without_timing(plain.results)
 
 
 def test_result_counts_cache_hits_of_a_second_run(tmp_path):
     first = grid_run(tmp_path)
     second = grid_run(tmp_path)
-    assert first["cache"] == {"hits": 0, "misses": STEPS} and second["cache"] == {"hits": STEPS, "misses": 0}
+    assert first.cache == CacheCounts(hits=0, misses=STEPS) and second.cache == CacheCounts(hits=STEPS, misses=0)
 
 
 def test_ranking_has_every_pipeline_with_its_group_summary():
     document = grid_run()
-    assert sorted(e["pipeline"] for e in document["ranking"]) == sorted(g["pipeline"] for g in document["group"])
-    assert all(e["group"]["pipeline"] == e["pipeline"] for e in document["ranking"])
+    assert document.ranking is not None and document.group is not None
+    assert sorted(e.pipeline for e in document.ranking) == sorted(g.pipeline for g in document.group)
+    assert all(e.group is not None and e.group.pipeline == e.pipeline for e in document.ranking)
 
 
 def test_grid_run_reports_factor_effects_of_every_factor():
-    assert set(grid_run()["factor_effects"]["factors"]) == {"highpass", "baseline"}
+    effects = grid_run().factor_effects
+    assert effects is not None and set(effects.factors or ()) == {"highpass", "baseline"}
 
 
 def test_listed_pipelines_have_no_factor_effects_or_selection():
     listed = [{"name": "raw", "steps": []}, {"name": "bl", "steps": [{"step": "baseline", "window_s": [-0.1, 0.0]}]}]
     document = execute_run("run_x", "S", {"pipelines": listed, "scoring": SCORING}, REFS, load, lambda _: None)
-    assert document["factor_effects"] is None and document["selection"] is None
+    assert document.factor_effects is None and document.selection is None
 
 
 def test_selection_with_tuning_subjects_is_reported():
     selection = {"rule": "tuning_holdout", "tuning_subjects": ["sub-0", "sub-1"], "metric": "significant_fraction"}
-    document = grid_run(selection=selection)["selection"]
-    assert document["holdout_subjects"] == ["sub-2", "sub-3"] and document["winner"] in {
-        p["pipeline"] for p in grid_run()["group"]
-    }
+    outcome = grid_run(selection=selection).selection
+    assert (
+        outcome is not None
+        and outcome.holdout_subjects == ["sub-2", "sub-3"]
+        and outcome.winner in {p.pipeline for p in grid_run().group or ()}
+    )
 
 
 def test_progress_detail_counts_units_and_gives_an_eta():

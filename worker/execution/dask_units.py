@@ -26,7 +26,7 @@ treats as a failed attempt and retries with backoff.
 import uuid
 from collections.abc import Callable, Collection, Iterable
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, Generic
 
 import dask.config
 from dask.utils import parse_timedelta
@@ -62,7 +62,9 @@ def run_units_on_dask(
     project installed (or on their ``PYTHONPATH``).
     """
     with connect(scheduler_address) as client:
-        backend = _ClusterBackend(client, PENDING_PER_WORKER * max(sum(client.nthreads().values()), 1))
+        backend: _ClusterBackend[Result] = _ClusterBackend(
+            client, PENDING_PER_WORKER * max(sum(client.nthreads().values()), 1)
+        )
         return run_bounded(units, backend, ProgressClock(total, on_progress))
 
 
@@ -98,7 +100,7 @@ class _Scattered:
     users: int = 0
 
 
-class _ClusterBackend:
+class _ClusterBackend(Generic[Result]):
     """Units as Dask tasks; shared inputs scattered once and held while a unit may still need them."""
 
     def __init__(self, client: Client, capacity: int) -> None:

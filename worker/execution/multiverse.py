@@ -128,7 +128,7 @@ def execute_multiverse(
                 )
 
     outcomes = _run(units(), len(sources) * len(branches), on_progress, settings)
-    results = []
+    results: list[Entry] = []
     for index in range(len(sources)):
         entries: dict[str, Entry] = {}
         for outcome in outcomes[index * len(branches) : (index + 1) * len(branches)]:

@@ -200,17 +200,17 @@ def run_bounded(
 
 
 @dataclass
-class _PoolBackend:
+class _PoolBackend(Generic[Result]):
     executor: ProcessPoolExecutor
     capacity: int
 
-    def submit(self, unit: Unit[Result], index: int) -> Future:
+    def submit(self, unit: Unit[Result], index: int) -> Future[Result]:
         return self.executor.submit(unit)
 
-    def wait_first(self, pending: Collection[Future]) -> Iterable[Future]:
+    def wait_first(self, pending: Collection[Future[Result]]) -> Iterable[Future[Result]]:
         return wait(pending, return_when=FIRST_COMPLETED).done
 
-    def collect(self, handle: Future) -> Result:
+    def collect(self, handle: Future[Result]) -> Result:
         return handle.result()
 
     def cancel(self, pending: Collection[Future]) -> None:

@@ -90,7 +90,7 @@ class DiskStepCache:
         handle, temporary = tempfile.mkstemp(dir=self.folder, prefix=f".{key}.", suffix=".tmp")
         try:
             with os.fdopen(handle, "wb") as stream:
-                np.savez(stream, **arrays)
+                np.savez(stream, allow_pickle=False, **arrays)
             os.replace(temporary, self._path(key))
         except BaseException:
             Path(temporary).unlink(missing_ok=True)

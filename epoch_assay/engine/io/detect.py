@@ -57,7 +57,7 @@ def detect_format(path: Path, allowed: tuple[FileFormat, ...]) -> FileFormat:
         raise EpochSetFormatError(
             "file",
             f"the file's first bytes match none of the formats read here ({names})",
-            "Upload the file as written by its program, unchanged; see the README's input formats",
+            "Upload the file as written by its program, unchanged; see docs/inputs.md",
         )
     if found not in allowed:
         raise EpochSetFormatError(

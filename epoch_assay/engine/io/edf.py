@@ -150,8 +150,8 @@ def read_continuous(path: Path, file_format: FileFormat, *, max_array_bytes: int
     recording = epoch_set_from_arrays(
         {
             "data": data,
-            "sfreq": np.float64(raw.info["sfreq"]),
-            "tmin": np.float64(0.0),
+            "sfreq": np.array(raw.info["sfreq"], dtype=np.float64),
+            "tmin": np.array(0.0, dtype=np.float64),
             "ch_names": np.array(raw.ch_names, dtype=str),
             "labels": np.array([RECORDING_LABEL]),
             "ch_types": np.array(

@@ -34,8 +34,8 @@ def read_fif_epochs(path: Path, *, max_array_bytes: int) -> EpochSet:
     return epoch_set_from_arrays(
         {
             "data": data,
-            "sfreq": np.float64(epochs.info["sfreq"]),
-            "tmin": np.float64(epochs.tmin),
+            "sfreq": np.array(epochs.info["sfreq"], dtype=np.float64),
+            "tmin": np.array(epochs.tmin, dtype=np.float64),
             "ch_names": np.array(epochs.ch_names, dtype=str),
             "labels": np.array(labels, dtype=str),
             "ch_types": np.array(

@@ -18,7 +18,7 @@ from epoch_assay.engine.io.npz import OPTIONAL_KEYS, REQUIRED_KEYS, epoch_set_fr
 
 IDENTITY_KEYS = ("subject", "session")
 _NUMERIC_KEYS = ("data", "sfreq", "tmin", "positions")
-_FIX = "Send a JSON object with the keys of the NPZ epoch-set file (see the README), arrays as nested lists"
+_FIX = "Send a JSON object with the keys of the NPZ epoch-set file (see docs/inputs.md), arrays as nested lists"
 
 
 @dataclass(frozen=True)

@@ -1,4 +1,4 @@
-"""The NPZ epoch-set file: see the README section "Epoch-set file (NPZ)".
+"""The NPZ epoch-set file: see "Epoch-set file (NPZ)" in docs/inputs.md.
 
 An NPZ file is a zip archive of ``.npy`` members, one per key:
 
@@ -71,6 +71,7 @@ def write_npz(epochs: EpochSet, path: Path) -> None:
     with open(path, "wb") as handle:
         np.savez(
             handle,
+            allow_pickle=False,
             data=epochs.data,
             sfreq=np.float64(epochs.sfreq),
             tmin=np.float64(epochs.tmin),

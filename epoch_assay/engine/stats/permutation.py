@@ -11,7 +11,7 @@ p = (1 + #{|t*| >= |t|}) / (1 + n_permutations), so they are never zero (Phipson
 p = #{|t*| >= |t|} / 2**n.
 """
 
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 
 import numpy as np
@@ -170,7 +170,9 @@ class _Exceedances:
     family_max: np.ndarray
 
 
-def _exceedances(statistic, chunks: Iterator[np.ndarray], observed: np.ndarray) -> _Exceedances:
+def _exceedances(
+    statistic: Callable[[np.ndarray], np.ndarray], chunks: Iterator[np.ndarray], observed: np.ndarray
+) -> _Exceedances:
     """Count, over all chunks, permuted |t| (and family-maximum |t|) at least the observed |t|.
 
     observed : array, shape (..., n_channels); the statistic of a chunk has shape

@@ -46,7 +46,7 @@ def rest_reference_weights(positions: np.ndarray) -> np.ndarray:
 
 def _positions_key(positions: np.ndarray) -> tuple[tuple[float, float, float], ...]:
     # Rounded to a nanometre so that the same layout read twice hits the cache.
-    return tuple(tuple(round(float(value), 9) for value in row) for row in np.asarray(positions))
+    return tuple((round(float(x), 9), round(float(y), 9), round(float(z), 9)) for x, y, z in np.asarray(positions))
 
 
 @lru_cache(maxsize=16)
