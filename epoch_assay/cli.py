@@ -9,6 +9,7 @@ import signal
 import socket
 import subprocess
 import sys
+import threading
 import time
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -98,8 +99,65 @@ def _check_blob_store(settings: Settings) -> None:
         ) from None
 
 
-def _storage_argv(settings: Settings) -> list[str]:
-    return ["--data-dir", str(settings.data_dir), "--database-url", settings.resolved_database_url]
+def _storage_env(settings: Settings) -> dict[str, str]:
+    """The environment of a child process (worker, server) with this process's storage settings.
+
+    Passed through the environment, not the command line: the database URL may hold a password,
+    and every user of the machine can read a process's arguments.
+    """
+    return {
+        **os.environ,
+        "EPOCH_ASSAY_DATA_DIR": str(settings.data_dir),
+        "EPOCH_ASSAY_DATABASE_URL": settings.resolved_database_url,
+    }
+
+
+# Waits before starting a dead embedded worker again: 1 s doubled at each death in a row, at most 60 s
+# (common practice for restarting a crashing process); a worker that ran this long resets the count.
+WORKER_RESTART_SECONDS = (1.0, 60.0)
+WORKER_STABLE_SECONDS = 300.0
+
+
+class EmbeddedWorker:
+    """The worker process of ``serve``, started again whenever it exits until ``stop``."""
+
+    def __init__(self, env: dict[str, str]) -> None:
+        self._env = env
+        self._stopping = threading.Event()
+        self._lock = threading.Lock()
+        self.process = self._spawn()
+        self._watcher = threading.Thread(target=self._watch, name="embedded-worker", daemon=True)
+        self._watcher.start()
+
+    def _spawn(self) -> subprocess.Popen:
+        return subprocess.Popen([sys.executable, "-m", "epoch_assay", "worker"], env=self._env)
+
+    def _watch(self) -> None:
+        deaths = 0
+        while True:
+            started = time.monotonic()
+            code = self.process.wait()
+            if self._stopping.is_set():
+                return
+            deaths = 1 if time.monotonic() - started > WORKER_STABLE_SECONDS else deaths + 1
+            first, longest = WORKER_RESTART_SECONDS
+            wait = min(first * 2 ** (deaths - 1), longest)
+            print(
+                f"epoch-assay serve: the worker exited with code {code}; starting it again in {wait:g} s",
+                file=sys.stderr,
+            )
+            if self._stopping.wait(wait):
+                return
+            with self._lock:
+                if self._stopping.is_set():
+                    return
+                self.process = self._spawn()
+
+    def stop(self) -> None:
+        with self._lock:
+            self._stopping.set()
+        _stop_child(self.process)
+        self._watcher.join(timeout=5.0)
 
 
 def _serve_api(settings: Settings, host: str, port: int) -> None:
@@ -129,11 +187,11 @@ def cmd_serve(args: argparse.Namespace) -> int:
     # than dying of the signal) lets the finally below stop the worker instead of leaving it orphaned.
     for stop_signal in (signal.SIGTERM, signal.SIGINT):
         signal.signal(stop_signal, _exit_on_signal)
-    worker = subprocess.Popen([sys.executable, "-m", "epoch_assay", "worker", *_storage_argv(settings)])
+    worker = EmbeddedWorker(_storage_env(settings))
     try:
         _serve_api(settings, args.host, args.port)
     finally:
-        _stop_child(worker)
+        worker.stop()
     return 0
 
 
@@ -143,6 +201,8 @@ def _exit_on_signal(signum: int, _frame: object) -> None:
 
 def _stop_child(process: subprocess.Popen, timeout_s: float = 60.0) -> None:
     """SIGTERM (a worker then hands its job back), and SIGKILL if it does not stop in time."""
+    if process.poll() is not None:
+        return
     process.terminate()
     try:
         process.wait(timeout=timeout_s)
@@ -163,7 +223,7 @@ def cmd_worker(args: argparse.Namespace) -> int:
 def cmd_migrate(args: argparse.Namespace) -> int:
     settings = _settings(args)
     _prepare(settings)
-    print(f"database at the newest schema: {settings.resolved_database_url}")
+    print(f"database at the newest schema: {_without_password(settings.resolved_database_url)}")
     return 0
 
 
@@ -280,25 +340,14 @@ def cmd_demo(args: argparse.Namespace) -> int:
     base_url = f"http://{args.host}:{args.port}"
     # The demo is for one person at this machine: no keys, and log lines for people rather than machines,
     # in a file unless asked for on the console, so the demo's own output stays readable.
-    env = {"EPOCH_ASSAY_LOG_FORMAT": "text", **os.environ}
+    env = {"EPOCH_ASSAY_LOG_FORMAT": "text", **_storage_env(settings)}
     logging.getLogger("httpx").setLevel(logging.WARNING)
     log_path = settings.data_dir / "demo-server.log"
     log_path.parent.mkdir(parents=True, exist_ok=True)
     with contextlib.ExitStack() as stack:
         log_file = None if args.server_log == "console" else stack.enter_context(log_path.open("a"))
         server = subprocess.Popen(
-            [
-                sys.executable,
-                "-m",
-                "epoch_assay",
-                "serve",
-                "--open",
-                "--host",
-                args.host,
-                "--port",
-                str(args.port),
-                *_storage_argv(settings),
-            ],
+            [sys.executable, "-m", "epoch_assay", "serve", "--open", "--host", args.host, "--port", str(args.port)],
             env=env,
             stdout=log_file,
             stderr=subprocess.STDOUT if log_file else None,

@@ -18,7 +18,7 @@ from service.api import (
 from service.errors import PayloadTooLarge, install_problem_handlers, problem
 from service.http.responses import install_problem_openapi
 from service.metrics import ServiceMetrics
-from service.middleware import RequestContext
+from service.middleware import KeyBeforeBody, LocalOnly, RequestContext
 from service.settings import Settings
 from service.storage.blobs import open_blob_store
 from service.storage.db import Database
@@ -99,6 +99,10 @@ def create_app(settings: Settings) -> FastAPI:
     app.add_middleware(
         BodySizeLimit, max_upload_bytes=settings.max_upload_bytes, max_json_bytes=settings.max_json_body_bytes
     )
+    if settings.open:
+        app.add_middleware(LocalOnly)
+    else:
+        app.add_middleware(KeyBeforeBody, database=app.state.database)
     # Added last, so it is outermost: it sees (and times) the 413 answers of the size limit too.
     app.add_middleware(RequestContext, metrics=app.state.metrics)
     return app

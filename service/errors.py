@@ -125,7 +125,17 @@ def install_problem_handlers(app: FastAPI) -> None:
 
     @app.exception_handler(BlobStoreUnavailable)
     async def _blob_store_down(_request: Request, error: BlobStoreUnavailable) -> JSONResponse:
-        return problem(503, "blob-store-unavailable", "Blob store unavailable", str(error), {"Retry-After": "30"})
+        # The error names the store's location and the driver's message: for the log, not for the caller.
+        log.warning("blob store unavailable: %s", error)
+        return problem(
+            503,
+            "blob-store-unavailable",
+            "Blob store unavailable",
+            "the file store could not keep the file; nothing was stored. Retry later; if this goes on, the "
+            "operator should check that the store is reachable and has room (see the service's log)",
+            {"Retry-After": "30"},
+            request_id=request_id_var.get(),
+        )
 
     @app.exception_handler(RequestValidationError)
     async def _validation_error(_request: Request, error: RequestValidationError) -> JSONResponse:

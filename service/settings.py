@@ -1,5 +1,6 @@
 """All settings of the service and the worker, read from flags or ``EPOCH_ASSAY_*`` variables."""
 
+import ipaddress
 from functools import cached_property
 from pathlib import Path
 from urllib.parse import urlsplit
@@ -22,7 +23,16 @@ class Settings(BaseSettings):
     )
     max_upload_bytes: int = Field(512 * MIB, gt=0, description="Largest accepted request body, in bytes.")
     max_array_bytes: int = Field(
-        4096 * MIB, gt=0, description="Largest total size of the arrays an uploaded file may declare, in bytes."
+        2048 * MIB,
+        gt=0,
+        description="Largest total size of the arrays an uploaded file may declare, and of a recording cut into "
+        "epochs, in bytes.",
+    )
+    max_compression_ratio: float = Field(
+        10.0,
+        ge=1.0,
+        description="Most an NPZ file's arrays may declare, as a multiple of the file's size (plus 1 MiB); "
+        "recorded EEG compresses about 1x to 4x (measured on our own files), a zip bomb about 1000x.",
     )
     max_json_body_bytes: int = Field(8 * MIB, gt=0, description="Largest JSON request body (run specs), in bytes.")
     lease_seconds: float = Field(
@@ -47,13 +57,30 @@ class Settings(BaseSettings):
     webhook_backoff_max_seconds: float = Field(
         3600.0, gt=0.0, description="Longest wait between two delivery attempts."
     )
-    webhook_timeout_seconds: float = Field(10.0, gt=0.0, le=300.0, description="Timeout of one delivery request.")
+    webhook_timeout_seconds: float = Field(
+        5.0, gt=0.0, le=300.0, description="Timeout of one delivery request (connect, send and answer), in s."
+    )
+    webhook_allowed_networks: str = Field(
+        "",
+        description="Comma-separated CIDR networks webhooks may reach although they are loopback, private, "
+        "link-local or reserved (e.g. 10.20.0.0/16 for a LIMS on the lab's network); empty: none.",
+    )
+    max_webhooks_per_study: int = Field(10, ge=1, le=1000, description="Most webhooks one study may have.")
+    webhook_senders: int = Field(
+        4, ge=1, le=64, description="Deliveries a worker sends at once, never two for the same study."
+    )
     worker_stale_seconds: float = Field(
         60.0, gt=0.0, description="/readyz wants a worker heard from within this many seconds."
     )
     max_pipelines: int = Field(
         512, ge=1, le=100_000, description="Most pipelines a run may have, listed or expanded from a grid."
     )
+    max_run_units: int = Field(
+        20_000,
+        ge=1,
+        description="Most pipelines × epoch sets one run may have (each pair adds a score to the stored result).",
+    )
+    max_steps_per_pipeline: int = Field(64, ge=1, le=10_000, description="Most steps one pipeline may have.")
     cache_dir: Path | None = Field(None, description="Folder of the step cache; default data_dir/step-cache.")
     cache_max_bytes: int = Field(
         8192 * MIB, ge=0, description="Largest total size of the step cache, in bytes; 0 turns the cache off."
@@ -104,6 +131,28 @@ class Settings(BaseSettings):
                 f"{', '.join(DASK_SCHEMES)}, such as tcp://scheduler.lab:8786"
             )
         return address
+
+    @field_validator("webhook_allowed_networks")
+    @classmethod
+    def _networks(cls, networks: str) -> str:
+        for part in networks.split(","):
+            if part.strip():
+                try:
+                    ipaddress.ip_network(part.strip(), strict=False)
+                except ValueError:
+                    raise ValueError(
+                        f"{part.strip()!r} is not a network in CIDR notation, such as 10.20.0.0/16"
+                    ) from None
+        return networks
+
+    @cached_property
+    def allowed_webhook_networks(self) -> tuple[ipaddress.IPv4Network | ipaddress.IPv6Network, ...]:
+        """The networks of ``webhook_allowed_networks``, parsed."""
+        return tuple(
+            ipaddress.ip_network(part.strip(), strict=False)
+            for part in self.webhook_allowed_networks.split(",")
+            if part.strip()
+        )
 
     @model_validator(mode="after")
     def _heartbeat_within_lease(self) -> "Settings":

@@ -19,8 +19,7 @@ from typing import Any
 
 from pydantic import TypeAdapter
 
-from epoch_assay.engine import ENGINE_VERSION
-from epoch_assay.engine.document import RESULT_SCHEMA_VERSION, ResultEntry, RunResultDocument, StepProvenance
+from epoch_assay.engine.document import RESULT_SCHEMA_VERSION, ResultEntry, RunResultDocument
 from epoch_assay.engine.document.multiverse import CacheCounts
 from epoch_assay.engine.document.run import RunProvenance, Seeds
 from epoch_assay.engine.epochs import EpochSet
@@ -29,12 +28,13 @@ from epoch_assay.engine.grid import GridSpec, expand_grid
 from epoch_assay.engine.group import group_summary
 from epoch_assay.engine.multiverse_report import (
     DEFAULT_METRIC,
+    exploratory_note,
     factor_effects_document,
     ranking_document,
     selection_document,
 )
 from epoch_assay.engine.pipeline import PipelineSpec, apply_pipeline
-from epoch_assay.engine.provenance import StepRecord
+from epoch_assay.engine.provenance import StepProvenanceBase
 from epoch_assay.engine.recording import ContinuousInput, apply_two_stage
 from epoch_assay.engine.scoring import eeg_channel_names, score_epochs
 from epoch_assay.engine.scoring_spec import ScoringSpec
@@ -64,7 +64,6 @@ def _hash_json(value: Any) -> str:
 def software_versions() -> dict[str, str]:
     versions = {name: version(name) for name in REPORTED_PACKAGES}
     versions["python"] = platform.python_version()
-    versions["engine"] = ENGINE_VERSION
     return versions
 
 
@@ -94,25 +93,26 @@ def score_leaf(leaf: LeafOutput, source: EpochSet, scoring: ScoringSpec, ref: Ep
 def _scored_entry(
     pipeline: PipelineSpec,
     processed: EpochSet,
-    records: list[StepRecord],
+    records: list[StepProvenanceBase],
     uploaded: tuple[str, ...],
     scoring: ScoringSpec,
     ref: EpochSetRef,
 ) -> ResultEntry:
-    source = {
-        "pipeline": pipeline.name,
-        "pipeline_hash": pipeline.spec_hash(),
-        "epoch_set": ref.id,
-        "subject": ref.subject,
-        "session": ref.session,
-        "provenance": [StepProvenance.of(record) for record in records],
-        "warnings": [warning for record in records for warning in record.warnings],
-    }
     try:
-        score = score_epochs(processed, scoring, uploaded_eeg_channels=uploaded)
-    except SpecError as error:
-        return ResultEntry(**source, error=f"{'.'.join(str(part) for part in error.loc)}: {error.message}")
-    return ResultEntry(**source, **dict(score))
+        score, error = score_epochs(processed, scoring, uploaded_eeg_channels=uploaded), None
+    except SpecError as failure:
+        score, error = None, f"{'.'.join(str(part) for part in failure.loc)}: {failure.message}"
+    return ResultEntry(
+        pipeline=pipeline.name,
+        pipeline_hash=pipeline.spec_hash(),
+        epoch_set=ref.id,
+        subject=ref.subject,
+        session=ref.session,
+        **(dict(score) if score is not None else {}),
+        provenance=records,
+        warnings=[warning for record in records for warning in record.warnings],
+        error=error,
+    )
 
 
 def execute_run(
@@ -171,7 +171,10 @@ def execute_run(
         results=results,
         group=group,
         cache=CacheCounts(hits=outcome.cache.hits, misses=outcome.cache.misses),
-        ranking=ranking_document(entries, names, reference, selection.metric if selection else DEFAULT_METRIC, group),
+        ranking=ranking_document(
+            entries, names, reference, selection.metric if selection else DEFAULT_METRIC, group, seed=scoring.seed
+        ),
         factor_effects=factor_effects_document(entries, grid, points) if grid is not None else None,
         selection=selection_document(entries, names, reference, selection) if selection is not None else None,
+        exploratory=exploratory_note(selection),
     )

@@ -6,8 +6,13 @@ attempt, so a deploy does not wait for a long run and loses nothing but the unit
 attempt raises is retried with backoff up to ``max_attempts``, except when retrying cannot
 help (the stored file is gone or malformed, the spec cannot run). Each worker also sends the
 webhook events in a thread (``worker.delivery``).
+
+A database error (SQLite "locked" after its wait, a dropped PostgreSQL connection) does not end
+the worker: the loop waits with backoff and goes on, and a computed result whose storing fails is
+kept and stored again (the lease is renewed meanwhile), so the run is not computed twice.
 """
 
+import json
 import logging
 import os
 import signal
@@ -25,7 +30,7 @@ from epoch_assay.engine.errors import EpochSetFormatError, EpochSetTooLargeError
 from epoch_assay.engine.io import read_epoch_set_file
 from epoch_assay.engine.recording import ChannelSpec, ContinuousInput, EpochingSpec, load_recording
 from service.settings import Settings
-from service.storage.worker_port import BlobCorruptError, ClaimedJob, WorkerStore
+from service.storage.worker_port import BlobCorruptError, ClaimedJob, StoreError, WorkerStore
 from worker.delivery import Deliverer
 from worker.execution.multiverse import ExecutionSettings
 from worker.execution.parallel import Progress
@@ -41,6 +46,38 @@ PERMANENT_ERRORS = (
     SpecError,
     ValidationError,
 )
+
+
+# Waits after consecutive database errors: 0.5 s doubled each time, at most 30 s (common practice for
+# retrying a shared resource: exponential backoff with a cap). A result is stored up to this many times.
+DATABASE_BACKOFF_SECONDS = (0.5, 30.0)
+STORE_ATTEMPTS = 20
+
+
+def database_backoff(failures: int) -> float:
+    """The wait after ``failures`` consecutive database errors, in s."""
+    first, longest = DATABASE_BACKOFF_SECONDS
+    return min(first * 2 ** (failures - 1), longest)
+
+
+def failure_reason(error: Exception) -> str:
+    """A failed attempt in our own words for the run's ``error``: no server paths, no library text."""
+    if isinstance(error, EpochSetFormatError | EpochSetTooLargeError | SpecError):
+        return str(error)  # written by the engine, about the user's input
+    if isinstance(error, FileNotFoundError):
+        return "a file of this run is no longer stored; upload the epoch set again and start a new run"
+    if isinstance(error, BlobCorruptError):
+        return (
+            f"the stored file {error.sha256} failed its integrity check (it is damaged); restore it from a backup "
+            "of the blob store, or delete the runs that use its epoch set, delete the epoch set and upload the "
+            "file again"
+        )
+    if isinstance(error, ValidationError):
+        return "the run's stored spec is not valid for this version of the service; start a new run"
+    return (
+        f"the worker hit an internal error ({type(error).__name__}); the operator finds the details in the "
+        "worker's log under this run's id"
+    )
 
 
 class LeaseLost(Exception):
@@ -137,13 +174,27 @@ class Worker:
         delivery.start()
         log.info("worker %s ready", self.worker_id)
         try:
+            failures = 0
             while not self._stopping.is_set():
-                if not self.run_one():
+                try:
+                    busy = self.run_one()
+                    failures = 0
+                except Exception:  # a database error most often; whatever it was, the loop goes on
+                    failures += 1
+                    log.exception(
+                        "the worker loop hit an error; waiting before the next try", extra={"failures": failures}
+                    )
+                    self._stopping.wait(database_backoff(failures))
+                    continue
+                if not busy:
                     self._stopping.wait(self.settings.poll_seconds)
         finally:
             stop_delivery.set()
             delivery.join(timeout=self.settings.webhook_timeout_seconds + 5)
-            self.store.forget_worker(self.worker_id)
+            try:
+                self.store.forget_worker(self.worker_id)
+            except StoreError:
+                log.warning("could not remove this worker from the list of live workers; it ages out")
             self.store.close()
             log.info("worker %s stopped", self.worker_id)
 
@@ -157,7 +208,7 @@ class Worker:
         log.info("claimed a job", extra=context)
         with Heartbeat(self.store, job, self.worker_id, self.settings, self._stopping) as beat:
             try:
-                document = self._execute(job, beat)
+                document = json.dumps(self._execute(job, beat).model_dump(mode="json"), allow_nan=False)
             except LeaseLost:
                 log.warning("lost the lease (or the run was deleted); dropping the work", extra=context)
                 return True
@@ -168,12 +219,28 @@ class Worker:
             except Exception as error:
                 self._record_failure(job, error, context)
                 return True
-        if self.store.store_result(job, self.worker_id, document.model_dump(mode="json")):
-            log.info("job succeeded", extra=context)
+            self._store_result(job, document, beat, context)
         return True
 
+    def _store_result(self, job: ClaimedJob, document: str, beat: Heartbeat, context: dict[str, object]) -> None:
+        """Store a computed result (JSON text), trying again with backoff on database errors while the lease is held."""
+        for attempt in range(1, STORE_ATTEMPTS + 1):
+            try:
+                if self.store.store_result(job, self.worker_id, document):
+                    log.info("job succeeded", extra=context)
+                return
+            except StoreError:
+                log.warning(
+                    "storing the result failed; keeping it and trying again",
+                    exc_info=True,
+                    extra=context | {"store_attempt": attempt},
+                )
+                if beat.lost or self._stopping.wait(database_backoff(attempt)):
+                    break
+        log.error("the result could not be stored; the job is left to be taken up again", extra=context)
+
     def _record_failure(self, job: ClaimedJob, error: Exception, context: dict[str, object]) -> None:
-        reason = f"{type(error).__name__}: {error}"
+        reason = failure_reason(error)
         outcome = self.store.record_failure(
             job,
             self.worker_id,
@@ -231,4 +298,8 @@ class Worker:
                     max_array_bytes=self.settings.max_array_bytes,
                 )
         with self.store.local_copy(ref.sha256) as path:
-            return read_epoch_set_file(path, max_array_bytes=self.settings.max_array_bytes)[0]
+            return read_epoch_set_file(
+                path,
+                max_array_bytes=self.settings.max_array_bytes,
+                max_compression_ratio=self.settings.max_compression_ratio,
+            )[0]

@@ -393,7 +393,7 @@ def _brain_response(
     waveform = np.exp(-0.5 * ((times[None, :] - latency[:, None]) / config.effect_width_s) ** 2)
     gain = head_model().effect_gain
     pattern = gain / -gain[CH_NAMES.index("Pz")]
-    return np.asarray(uv_to_v(peak_uv))[:, None, None] * pattern[None, :, None] * waveform[:, None, :]
+    return uv_to_v(peak_uv)[:, None, None] * pattern[None, :, None] * waveform[:, None, :]
 
 
 def _background(config: SimulationConfig, n_trials: int, rng: np.random.Generator) -> np.ndarray:
@@ -439,8 +439,8 @@ def _drift(config: SimulationConfig, session_times: np.ndarray, rng: np.random.G
     session_times : array, shape (n_trials, n_times), in s since the session began
     """
     n_channels = len(CH_NAMES)
-    channel_rms = uv_to_v(config.drift_uv) * _subject_scale(config, rng)
-    channel_rms = channel_rms * np.exp(DRIFT_CHANNEL_SPREAD * rng.standard_normal(n_channels))
+    subject_rms = uv_to_v(config.drift_uv) * _subject_scale(config, rng)
+    channel_rms = subject_rms * np.exp(DRIFT_CHANNEL_SPREAD * rng.standard_normal(n_channels))
     freqs = rng.uniform(*DRIFT_FREQ_HZ, size=(n_channels, DRIFT_COMPONENTS))
     phases = rng.uniform(0.0, 2.0 * np.pi, size=(n_channels, DRIFT_COMPONENTS))
     # K sinusoids of amplitude A have an RMS of A * sqrt(K / 2).
@@ -470,4 +470,4 @@ def _blinks(config: SimulationConfig, times: np.ndarray, n_trials: int, rng: np.
     peak_uv = rng.uniform(*config.blink_uv, size=n_trials) * has_blink
     phase = (times[None, :] - start[:, None]) / duration[:, None]
     bump = np.where((phase >= 0.0) & (phase <= 1.0), np.sin(np.pi * phase) ** 2, 0.0)
-    return np.asarray(uv_to_v(peak_uv))[:, None, None] * head_model().blink_pattern[None, :, None] * bump[:, None, :]
+    return uv_to_v(peak_uv)[:, None, None] * head_model().blink_pattern[None, :, None] * bump[:, None, :]

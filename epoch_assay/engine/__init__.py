@@ -3,5 +3,3 @@
 Internal units are SI (V, s, Hz). Microvolts appear only where users give thresholds
 or read results, converted by :mod:`epoch_assay.engine.units`.
 """
-
-ENGINE_VERSION = "0.1.0"

@@ -8,6 +8,9 @@ import numpy as np
 
 SCORED_CHANNEL_TYPES = ("eeg",)
 CHANNEL_TYPES = ("eeg", "eog", "misc", "stim")
+# Per-trial arrays an upload may carry are named with this prefix; TRIAL_ID_KEY names each trial.
+TRIAL_ARRAY_PREFIX = "trial_"
+TRIAL_ID_KEY = "trial_id"
 
 
 @dataclass(frozen=True)
@@ -25,6 +28,8 @@ class EpochSetMeta:
     ch_types: tuple[str, ...]
     condition_counts: dict[str, int]
     has_positions: bool = False
+    # Channels marked bad; empty where unknown (the service does not store them with an epoch set).
+    bads: frozenset[str] = frozenset()
 
     @property
     def tmax(self) -> float:
@@ -52,6 +57,8 @@ class EpochSet:
     positions : array, shape (n_channels, 3), in m (head coordinates), NaN where unknown;
         None when no channel has a position
     bads : names of channels flagged bad (left out of references and scoring)
+    trial_arrays : per-trial arrays kept from the file (key → array, shape (n_trials,)),
+        such as ``trial_id``; they follow the trials when trials are removed
     """
 
     data: np.ndarray
@@ -62,6 +69,7 @@ class EpochSet:
     labels: np.ndarray
     positions: np.ndarray | None = None
     bads: frozenset[str] = field(default_factory=frozenset)
+    trial_arrays: dict[str, np.ndarray] = field(default_factory=dict)
 
     def __post_init__(self) -> None:
         n_trials, n_channels, _ = self.data.shape
@@ -69,6 +77,8 @@ class EpochSet:
             raise ValueError("ch_names and ch_types must have one entry per channel")
         if self.labels.shape != (n_trials,):
             raise ValueError("labels must have one entry per trial")
+        if any(array.shape != (n_trials,) for array in self.trial_arrays.values()):
+            raise ValueError("every trial array must have one entry per trial")
 
     @property
     def n_trials(self) -> int:
@@ -116,6 +126,15 @@ class EpochSet:
             ch_types=self.ch_types,
             condition_counts=self.condition_counts(),
             has_positions=self.positions is not None and bool(np.isfinite(self.positions).all(axis=1).any()),
+            bads=self.bads,
+        )
+
+    def select_trials(self, keep: np.ndarray) -> "EpochSet":
+        """The trials where ``keep`` (bool, shape (n_trials,)) is true, with their labels and trial arrays."""
+        return self.with_changes(
+            data=self.data[keep],
+            labels=self.labels[keep],
+            trial_arrays={key: array[keep] for key, array in self.trial_arrays.items()},
         )
 
     def with_changes(self, **changes: Any) -> "EpochSet":

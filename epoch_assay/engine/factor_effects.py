@@ -1,59 +1,89 @@
-"""Which settings of a grid matter: a linear mixed model of the per-subject metric on the factors.
+"""Which settings of a grid matter: per-subject factor contrasts tested across subjects.
 
-Model: ``y[s, p] = b0 + sum over factors of b[factor, level of p] + u[s] + e[s, p]``, one
-observation per subject ``s`` and pipeline ``p``, with a random intercept ``u[s]`` per
-subject (each subject has its own overall level, and pipelines are compared within subjects)
-and treatment coding: each factor's first level, in the order written, is its baseline, and
-a level's estimate is its difference from that baseline with the other factors held fixed.
-Fitted by REML with statsmodels ``MixedLM`` (Seabold & Perktold, 2010). A factor's ``p`` is
-the Wald chi-square test that all its level differences are zero; level intervals are
-estimate ± 1.96 standard errors (normal approximation, as statsmodels reports them).
+Two stages (the summary-statistic approach of Holmes & Friston, 1998). First, within each
+subject, the metric is averaged over the pipelines at each level of a factor (so over every
+setting of the other factors), and each level is compared with the factor's first level, in
+the order written: ``c[s, level] = mean_s(level) - mean_s(baseline)``, in the metric's own unit.
+Second, these contrasts are tested across subjects: a level's estimate is the mean of
+``c[s, level]`` over subjects with its Student t 95 % interval and one-sample t p; a factor's
+``p`` is the one-sample t test for a factor with two levels, and Hotelling's T² test that the
+mean contrast vector is zero for more levels (Hotelling, 1931; F form as in Mardia, Kent &
+Bibby, 1979, §5.2).
 
-A metric bounded in [0, 1] (the significant fraction) is analysed after the arcsine square
-root transform ``y = arcsin(sqrt(x))``, which makes the variance of a binomial proportion
-nearly independent of its mean (Bartlett, 1947; Anscombe, 1948) and keeps the values 0 and
-1 usable, where a logit would be infinite. Estimates are then differences in radians of the
-transformed scale: their sign and their test say which levels raise the metric; their size
-is not a difference of fractions.
+Because each subject contributes one contrast per level, the test's error term is the
+between-subject variation of the factor's effect itself. A model with only a random
+intercept per subject instead treats the pipelines of a subject as independent replicates
+and understates that variation when the effect differs between subjects, which inflates
+false positives (Barr et al., 2013).
+
+Missing values: a subject's level mean is over the pipelines it has a value for; a subject
+without any value at a level has no contrast for it. The omnibus test uses the subjects with
+every contrast of the factor.
 """
 
-import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
 from scipy import stats
-from statsmodels.regression.mixed_linear_model import MixedLM
 
 from epoch_assay.engine.document.multiverse import FactorEffectResult, FactorEffectsResult, LevelEffectResult
-from epoch_assay.engine.subject_metrics import BOUNDED_METRICS, MetricTable
+from epoch_assay.engine.subject_metrics import MetricTable
 
-_NORMAL_975 = float(stats.norm.ppf(0.975))
+CONFIDENCE = 0.95
 
 
 @dataclass(frozen=True)
 class LevelEffect:
-    """Difference from the factor's baseline level, in the analysed scale, with its 95 % interval."""
+    """Mean over subjects of the level's contrast with the baseline level, in the metric's unit.
+
+    ci_low, ci_high : Student t 95 % interval over subjects
+    t, p : one-sample t of the contrasts against zero and its two-sided p
+    n_subjects : subjects with a contrast for this level
+    """
 
     estimate: float
     ci_low: float
     ci_high: float
+    t: float
+    p: float
+    n_subjects: int
 
     def to_document(self) -> LevelEffectResult:
-        return LevelEffectResult(estimate=self.estimate, ci_low=self.ci_low, ci_high=self.ci_high)
+        return LevelEffectResult(
+            estimate=self.estimate,
+            ci_low=self.ci_low,
+            ci_high=self.ci_high,
+            t=self.t,
+            p=self.p,
+            n_subjects=self.n_subjects,
+        )
 
 
 @dataclass(frozen=True)
 class FactorEffect:
-    """Wald test of the factor (NaN for a factor with one level) and one effect per level."""
+    """The factor's test across subjects (NaN for one level or too few subjects) and one effect per level.
+
+    test : "one-sample t" for two levels, "Hotelling T²" for more, "none" for one level
+    statistic : t, or Hotelling's F; df : its degrees of freedom
+    n_subjects : subjects in the factor's test
+    """
 
     p: float
+    test: str
+    statistic: float
+    df: tuple[float, ...]
+    n_subjects: int
     baseline_level: str
     levels: dict[str, LevelEffect]
 
     def to_document(self) -> FactorEffectResult:
         return FactorEffectResult(
             p=self.p,
+            test=self.test,
+            statistic=self.statistic,
+            df=list(self.df),
+            n_subjects=self.n_subjects,
             baseline_level=self.baseline_level,
             levels={level: effect.to_document() for level, effect in self.levels.items()},
         )
@@ -61,10 +91,11 @@ class FactorEffect:
 
 @dataclass(frozen=True)
 class FactorEffects:
-    """The fitted model: ``scale`` is "arcsine_sqrt" or "identity"; ``warnings`` come from the fit."""
+    """Every factor of the grid; estimates are in the metric's own unit (``scale`` "identity")."""
 
     metric: str
     scale: str
+    method: str
     n_observations: int
     n_subjects: int
     factors: dict[str, FactorEffect]
@@ -74,6 +105,7 @@ class FactorEffects:
         return FactorEffectsResult(
             metric=self.metric,
             scale=self.scale,
+            method=self.method,
             n_observations=self.n_observations,
             n_subjects=self.n_subjects,
             factors={name: f.to_document() for name, f in self.factors.items()},
@@ -81,100 +113,129 @@ class FactorEffects:
         )
 
 
-@dataclass(frozen=True)
-class Design:
-    """The model's inputs: response (n_obs,), fixed-effects matrix (n_obs, n_columns), subject of each row,
-    and for each factor the columns of its non-baseline levels."""
-
-    response: np.ndarray
-    exog: np.ndarray
-    groups: np.ndarray
-    columns: dict[str, dict[str, int]]
+METHOD = (
+    "per-subject contrasts of each level with the factor's first level, averaged over the other factors, "
+    "tested across subjects (one-sample t; Hotelling T² for a factor of more than two levels)"
+)
 
 
-def analysed_scale(metric: str) -> str:
-    return "arcsine_sqrt" if metric in BOUNDED_METRICS else "identity"
+def subject_contrasts(
+    table: MetricTable, pipeline_levels: Mapping[str, Mapping[str, str]], factor: str, levels: Sequence[str]
+) -> np.ndarray:
+    """Per subject, each non-baseline level's mean minus the baseline level's mean.
 
-
-def build_design(
-    table: MetricTable, pipeline_levels: Mapping[str, Mapping[str, str]], factor_levels: Mapping[str, Sequence[str]]
-) -> Design:
-    """Long format of ``table`` with treatment-coded factors; missing values are left out.
-
-    pipeline_levels : pipeline name → {factor → level}
-    factor_levels : factor → its levels, the first being the baseline
+    Returns array, shape (n_subjects, len(levels) - 1), in the metric's unit; NaN where a
+    subject has no value at the level or at the baseline.
     """
-    columns: dict[str, dict[str, int]] = {}
-    next_column = 1
-    for factor, levels in factor_levels.items():
-        columns[factor] = {level: next_column + i for i, level in enumerate(levels[1:])}
-        next_column += len(levels) - 1
-    indicator_rows = np.zeros((len(table.pipelines), next_column))
-    indicator_rows[:, 0] = 1.0
-    for row, pipeline in enumerate(table.pipelines):
-        for factor, level in pipeline_levels[pipeline].items():
-            if level in columns[factor]:
-                indicator_rows[row, columns[factor][level]] = 1.0
-    observed = np.isfinite(table.values)
-    pipeline_index, subject_index = np.nonzero(observed)
-    response = table.values[observed]
-    if analysed_scale(table.metric) == "arcsine_sqrt":
-        response = np.arcsin(np.sqrt(np.clip(response, 0.0, 1.0)))
-    return Design(response=response, exog=indicator_rows[pipeline_index], groups=subject_index, columns=columns)
+    level_means = []
+    for level in levels:
+        rows = [i for i, name in enumerate(table.pipelines) if pipeline_levels[name].get(factor) == level]
+        values = table.values[rows]
+        present = np.isfinite(values)
+        count = present.sum(axis=0)
+        total = np.where(present, values, 0.0).sum(axis=0)
+        level_means.append(np.where(count > 0, total / np.maximum(count, 1), np.nan))
+    means = np.array(level_means).T
+    return means[:, 1:] - means[:, :1]
+
+
+def level_effect(contrasts: np.ndarray, confidence: float = CONFIDENCE) -> LevelEffect:
+    """One-sample t over subjects of one level's contrasts, shape (n_subjects,), NaN left out."""
+    values = contrasts[np.isfinite(contrasts)]
+    n = values.size
+    nan = float("nan")
+    if n < 2:
+        return LevelEffect(float(values.mean()) if n else nan, nan, nan, nan, nan, n)
+    mean = float(values.mean())
+    se = float(values.std(ddof=1) / np.sqrt(n))
+    half = float(stats.t.ppf(0.5 + confidence / 2, n - 1) * se)
+    if se == 0.0:
+        return LevelEffect(mean, mean, mean, nan, nan, n)
+    t = mean / se
+    return LevelEffect(mean, mean - half, mean + half, t, float(2 * stats.t.sf(abs(t), n - 1)), n)
+
+
+@dataclass(frozen=True)
+class HotellingResult:
+    """One-sample Hotelling T² test that a mean vector is zero, in its exact F form."""
+
+    t2: float
+    f: float
+    df: tuple[float, float]
+    p: float
+    n_subjects: int
+
+
+def hotelling_one_sample(contrasts: np.ndarray) -> HotellingResult:
+    """Test that the mean of the rows of ``contrasts`` is zero; rows with a NaN are left out.
+
+    contrasts : array, shape (n_subjects, k); needs n_subjects > k and a non-singular covariance
+    T² = n x̄ᵀ S⁻¹ x̄ and F = (n - k) / (k (n - 1)) T² ~ F(k, n - k) under normal rows.
+    """
+    rows = contrasts[np.all(np.isfinite(contrasts), axis=1)]
+    n, k = rows.shape
+    if n <= k:
+        return HotellingResult(float("nan"), float("nan"), (float(k), float(n - k)), float("nan"), n)
+    mean = rows.mean(axis=0)
+    covariance = np.atleast_2d(np.cov(rows, rowvar=False, ddof=1))
+    if np.linalg.matrix_rank(covariance) < k:
+        return HotellingResult(float("nan"), float("nan"), (float(k), float(n - k)), float("nan"), n)
+    t2 = float(n * mean @ np.linalg.solve(covariance, mean))
+    f = (n - k) / (k * (n - 1)) * t2
+    return HotellingResult(t2, f, (float(k), float(n - k)), float(stats.f.sf(f, k, n - k)), n)
 
 
 def factor_effects(
     table: MetricTable, pipeline_levels: Mapping[str, Mapping[str, str]], factor_levels: Mapping[str, Sequence[str]]
 ) -> FactorEffects:
-    """Fit the mixed model and report each factor's test and level effects.
+    """Each factor's test across subjects and its level effects.
 
-    Raises ``ValueError`` when the data cannot identify the model (fewer than two subjects,
-    or no variation), with the reason.
+    pipeline_levels : pipeline name → {factor → level}
+    factor_levels : factor → its levels, the first being the baseline
+
+    Raises ``ValueError`` when the data cannot be analysed (fewer than two subjects with a
+    value, or no variation), with the reason.
     """
-    design = build_design(table, pipeline_levels, factor_levels)
-    n_subjects = int(np.unique(design.groups).size)
+    observed = np.isfinite(table.values)
+    n_subjects = int(np.count_nonzero(observed.any(axis=0)))
     if n_subjects < 2:
         raise ValueError("factor effects need scored values from at least two subjects")
-    if np.ptp(design.response) == 0.0:
+    if np.ptp(table.values[observed]) == 0.0:
         raise ValueError(f"{table.metric} is the same for every pipeline and subject; there is nothing to explain")
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        fit = MixedLM(design.response, design.exog, groups=design.groups).fit(reml=True)
-    params = np.asarray(fit.fe_params)
-    covariance = np.asarray(fit.cov_params())[: params.size, : params.size]
-    standard_errors = np.sqrt(np.diag(covariance))
-    factors = {
-        factor: FactorEffect(
-            p=_wald_p(params, covariance, list(level_columns.values())),
-            baseline_level=levels[0],
-            levels={
-                levels[0]: LevelEffect(0.0, 0.0, 0.0),
-                **{
-                    level: LevelEffect(
-                        estimate=float(params[column]),
-                        ci_low=float(params[column] - _NORMAL_975 * standard_errors[column]),
-                        ci_high=float(params[column] + _NORMAL_975 * standard_errors[column]),
-                    )
-                    for level, column in level_columns.items()
-                },
-            },
-        )
-        for (factor, level_columns), levels in zip(design.columns.items(), factor_levels.values(), strict=False)
-    }
+    factors: dict[str, FactorEffect] = {}
+    notes: list[str] = []
+    for factor, levels in factor_levels.items():
+        contrasts = subject_contrasts(table, pipeline_levels, factor, levels)
+        effects = {level: level_effect(contrasts[:, i]) for i, level in enumerate(levels[1:])}
+        factors[factor] = _factor_test(factor, levels, contrasts, effects, notes)
     return FactorEffects(
         metric=table.metric,
-        scale=analysed_scale(table.metric),
-        n_observations=int(design.response.size),
+        scale="identity",
+        method=METHOD,
+        n_observations=int(np.count_nonzero(observed)),
         n_subjects=n_subjects,
         factors=factors,
-        warnings=tuple(dict.fromkeys(str(item.message) for item in caught)),
+        warnings=tuple(notes),
     )
 
 
-def _wald_p(params: np.ndarray, covariance: np.ndarray, columns: list[int]) -> float:
-    """p of the chi-square Wald test that ``params[columns]`` are all zero; NaN without columns."""
-    if not columns:
-        return float("nan")
-    estimate = params[columns]
-    statistic = float(estimate @ np.linalg.pinv(covariance[np.ix_(columns, columns)]) @ estimate)
-    return float(stats.chi2.sf(statistic, df=len(columns)))
+def _factor_test(
+    factor: str, levels: Sequence[str], contrasts: np.ndarray, effects: dict[str, LevelEffect], notes: list[str]
+) -> FactorEffect:
+    nan = float("nan")
+    baseline = {levels[0]: LevelEffect(0.0, 0.0, 0.0, nan, nan, int(np.isfinite(contrasts).any(axis=1).sum()))}
+    if len(levels) < 2:
+        return FactorEffect(nan, "none", nan, (), 0, levels[0], baseline)
+    if len(levels) == 2:
+        only = effects[levels[1]]
+        df = (float(only.n_subjects - 1),)
+        return FactorEffect(only.p, "one-sample t", only.t, df, only.n_subjects, levels[0], {**baseline, **effects})
+    result = hotelling_one_sample(contrasts)
+    if not np.isfinite(result.p):
+        notes.append(
+            f"{factor}: Hotelling's T² needs more subjects with every level ({result.n_subjects}) than "
+            f"non-baseline levels ({len(levels) - 1}) and contrasts that vary independently; no omnibus p"
+        )
+    return FactorEffect(
+        result.p, "Hotelling T²", result.f, result.df, result.n_subjects, levels[0], {**baseline, **effects}
+    )

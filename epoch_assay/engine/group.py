@@ -72,24 +72,36 @@ class PairedComparison:
 
 def paired_comparison(values: np.ndarray, reference: np.ndarray) -> PairedComparison:
     """Compare two arrays of shape (n_subjects,), paired by position; at least 2 subjects."""
+    return paired_comparisons(values[None, :], reference)[0]
+
+
+def paired_comparisons(values: np.ndarray, reference: np.ndarray) -> list[PairedComparison]:
+    """Compare each row of ``values``, shape (n_rows, n_subjects), with ``reference``, shape
+    (n_subjects,), paired by position; at least 2 subjects, no NaN. All rows in one call of each test."""
     differences = values - reference
-    n = differences.size
+    n = differences.shape[-1]
     if n < 2:
         raise ValueError(f"a paired comparison needs at least 2 subjects, got {n}")
-    mean = float(differences.mean())
-    half_width = stats.t.ppf(0.5 * (1 + CI_LEVEL), n - 1) * differences.std(ddof=1) / np.sqrt(n)
-    # Reference implementations: scipy.stats.wilcoxon and scipy.stats.ttest_rel (Virtanen et al., 2020).
-    wilcoxon_p = float(stats.wilcoxon(differences).pvalue) if np.any(differences != 0) else float("nan")
+    mean = differences.mean(axis=-1)
+    half_width = stats.t.ppf(0.5 * (1 + CI_LEVEL), n - 1) * differences.std(axis=-1, ddof=1) / np.sqrt(n)
+    # Reference implementations: scipy.stats.wilcoxon and scipy.stats.ttest_rel (Virtanen et al., 2020, SciPy 1.0).
+    nonzero = np.any(differences != 0, axis=-1)
+    wilcoxon_p = np.full(mean.shape, np.nan)
+    if nonzero.any():
+        wilcoxon_p[nonzero] = stats.wilcoxon(differences[nonzero], axis=-1).pvalue
     with np.errstate(divide="ignore", invalid="ignore"):
-        paired_t_p = float(stats.ttest_rel(values, reference).pvalue)
-    return PairedComparison(
-        n_subjects=n,
-        mean_difference=mean,
-        ci_low=mean - half_width,
-        ci_high=mean + half_width,
-        wilcoxon_p=wilcoxon_p,
-        paired_t_p=paired_t_p,
-    )
+        paired_t_p = np.atleast_1d(stats.ttest_rel(values, np.broadcast_to(reference, values.shape), axis=-1).pvalue)
+    return [
+        PairedComparison(
+            n_subjects=n,
+            mean_difference=float(mean[i]),
+            ci_low=float(mean[i] - half_width[i]),
+            ci_high=float(mean[i] + half_width[i]),
+            wilcoxon_p=float(wilcoxon_p[i]),
+            paired_t_p=float(paired_t_p[i]),
+        )
+        for i in range(mean.size)
+    ]
 
 
 @dataclass(frozen=True)
@@ -124,7 +136,7 @@ class GroupTest:
                     p=self.p[i],
                     p_adjusted=self.p_adjusted[i],
                     significant=bool(self.significant[i]),
-                    mean_diff_uv=v_to_uv(self.mean_diff[i]),
+                    mean_diff_uv=float(v_to_uv(self.mean_diff[i])),
                     n_subjects=int(self.n_subjects[i]),
                 )
                 for i, name in enumerate(self.names)
@@ -185,11 +197,13 @@ def subject_scores(entries: Iterable[dict[str, Any]], conditions: tuple[str, str
         by_subject.setdefault(entry["subject"], []).append(entry)
     names = tuple(dict.fromkeys(ch["name"] for group in by_subject.values() for e in group for ch in e["channels"]))
     column = {name: i for i, name in enumerate(names)}
-    fractions, smes, differences = [], {label: [] for label in conditions}, []
+    fractions: list[float] = []
+    smes: dict[str, list[float]] = {label: [] for label in conditions}
+    differences: list[np.ndarray] = []
     for group in by_subject.values():
-        fractions.append(np.mean([_number(e["significant_fraction"]) for e in group]))
+        fractions.append(float(np.mean([_number(e["significant_fraction"]) for e in group])))
         for label in conditions:
-            smes[label].append(np.mean([_number(e["median_sme_uv"][label]) for e in group]))
+            smes[label].append(float(np.mean([_number(e["median_sme_uv"][label]) for e in group])))
         per_set = np.full((len(group), len(names)), np.nan)
         for row, e in enumerate(group):
             for channel in e["channels"]:
@@ -201,7 +215,7 @@ def subject_scores(entries: Iterable[dict[str, Any]], conditions: tuple[str, str
         significant_fraction=np.array(fractions),
         median_sme_uv={label: np.array(values) for label, values in smes.items()},
         channel_names=names,
-        mean_diff=uv_to_v(np.array(differences).reshape(len(by_subject), len(names))),
+        mean_diff=np.asarray(uv_to_v(np.array(differences).reshape(len(by_subject), len(names)))),
     )
 
 

@@ -8,7 +8,7 @@ from pydantic import BaseModel, ConfigDict, Field
 
 from epoch_assay.engine.epochs import EpochSet, EpochSetMeta
 from epoch_assay.engine.errors import SpecError
-from epoch_assay.engine.provenance import StepRecord
+from epoch_assay.engine.provenance import StepProvenanceBase
 from epoch_assay.engine.steps import StepSpec
 
 
@@ -38,7 +38,7 @@ class PipelineSpec(BaseModel):
         return hashlib.sha256(self.canonical_json().encode()).hexdigest()
 
 
-def apply_pipeline(pipeline: PipelineSpec, epochs: EpochSet) -> tuple[EpochSet, list[StepRecord]]:
+def apply_pipeline(pipeline: PipelineSpec, epochs: EpochSet) -> tuple[EpochSet, list[StepProvenanceBase]]:
     """Apply each step in order; return the processed epoch set and one record per step."""
     records = []
     for step in pipeline.steps:

@@ -1,36 +1,93 @@
-"""What a step did, recorded next to every result."""
+"""What a step did, recorded next to every result, and the package versions that did it.
 
-from dataclasses import asdict, dataclass, field
+Every step's record has the fields of :class:`StepProvenanceBase`: the step's name, the
+implementation version of the step, its parameters, its warnings, its wall time and the
+stage it ran in. A step that reports more (channels it found bad, trials it removed,
+components it took out) declares those fields in its own :class:`StepOutputs` model. The
+record model of each step is built from its parameters and outputs by
+:class:`~epoch_assay.engine.steps.base.Step`, and
+:data:`epoch_assay.engine.steps.StepProvenance` is the union of all of them, told apart by
+``step``.
+"""
+
+from enum import StrEnum
+from functools import lru_cache
+from importlib.metadata import PackageNotFoundError, version
 from typing import Any
 
+from pydantic import BaseModel, ConfigDict, Field
 
-@dataclass
-class ComponentRemoved:
-    """An ICA component taken out of the data."""
+#: The distributions whose code computes every step's numbers: a new version of any of them
+#: may change a step's output, so each is part of every step-cache key. Steps that use more
+#: (scikit-learn, python-picard) add theirs in ``Step.dependencies``.
+NUMERICAL_PACKAGES = ("epoch-assay", "numpy", "scipy", "mne")
 
-    index: int
-    kind: str
-    score: float
+NOT_INSTALLED = "not installed"
 
 
-@dataclass
-class StepRecord:
-    """One record per applied step; fields stay empty where nothing changed.
+class Stage(StrEnum):
+    """Where a step runs when the service epochs a recording."""
 
-    ``seconds`` is the wall time the step took; ``stage`` is ``"epochs"`` for steps run on
-    epoched data and ``"continuous"`` for steps run on a recording before epoching.
-    """
+    CONTINUOUS = "continuous"
+    """On the continuous recording, before epoching."""
+    EPOCHS = "epochs"
+    """On the epochs (and on every uploaded epoch set)."""
 
-    step: str
-    params: dict[str, Any]
-    channels_flagged: dict[str, list[str]] = field(default_factory=dict)
-    channels_dropped: list[str] = field(default_factory=list)
-    channels_interpolated: list[str] = field(default_factory=list)
-    trials_removed: dict[str, int] = field(default_factory=dict)
-    components_removed: list[ComponentRemoved] = field(default_factory=list)
-    warnings: list[str] = field(default_factory=list)
-    seconds: float = 0.0
-    stage: str = "epochs"
+
+class StepOutputs(BaseModel):
+    """What a step reports beyond its parameters and warnings; nothing unless a step declares fields."""
+
+    model_config = ConfigDict(extra="forbid")
+
+
+class StepProvenanceBase(BaseModel):
+    """The fields every step's record has; ``step`` and ``params`` are narrowed per step."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    step: str = Field(description="Name of the step.")
+    version: int = Field(ge=1, description="Implementation version of the step that made the record.")
+    params: BaseModel = Field(description="The step's parameters, defaults filled in.")
+    warnings: list[str] = Field(default_factory=list, description="What the step warns about, in words.")
+    seconds: float = Field(
+        0.0,
+        ge=0.0,
+        description="Wall time the step took, in s (for an output taken from the step cache: when computed).",
+    )
+    stage: Stage = Field(Stage.EPOCHS, description="Whether the step ran on the recording or on the epochs.")
+    run: int | None = Field(
+        None,
+        ge=1,
+        description="The run (1-based) of a session a continuous-stage record belongs to; null for one run.",
+    )
 
     def to_json(self) -> dict[str, Any]:
-        return asdict(self)
+        """The record as JSON-compatible Python values."""
+        return self.model_dump(mode="json")
+
+
+def upgrade_legacy_record(record: dict[str, Any]) -> dict[str, Any]:
+    """A record stored before records were typed per step, in today's shape.
+
+    Those records had every step's output fields (empty where the step has none) and no
+    ``version``; each step was then at its first version.
+    """
+    legacy_output_fields = (
+        "channels_flagged",
+        "channels_dropped",
+        "channels_interpolated",
+        "trials_removed",
+        "components_removed",
+    )
+    upgraded = {name: value for name, value in record.items() if name not in legacy_output_fields or value}
+    upgraded.setdefault("version", 1)
+    return upgraded
+
+
+@lru_cache(maxsize=64)
+def installed_version(distribution: str) -> str:
+    """Version of an installed distribution (e.g. ``"scipy"``), or ``NOT_INSTALLED``."""
+    try:
+        return version(distribution)
+    except PackageNotFoundError:
+        return NOT_INSTALLED

@@ -1,20 +1,34 @@
 """Score an epoch set: per-channel test of a window mean between two conditions, effect sizes,
-measurement error, the significant fraction over time and its bootstrap."""
+measurement error, the significant fraction over time, its resampling and a smooth score."""
+
+from typing import cast
 
 import numpy as np
 
-from epoch_assay.engine.document.entry import BootstrapSummary, ChannelScore, PipelineScore, TimeCourse
+from epoch_assay.engine.document.entry import (
+    STATISTIC_NAMES,
+    BootstrapSummary,
+    ChannelScore,
+    FractionInterval,
+    MeanWelchT,
+    PipelineScore,
+    SubsetSpread,
+    TimeCourse,
+)
 from epoch_assay.engine.epochs import EpochSet
 from epoch_assay.engine.errors import SpecError
 from epoch_assay.engine.scoring_spec import ScoringSpec, TimeCourseSpec
 from epoch_assay.engine.stats import (
     ComparisonSettings,
+    bootstrap_mean_welch_t,
     bootstrap_significant_fraction,
     compare_channels,
     hedges_g,
+    mean_welch_t,
     standardized_measurement_error,
     window_means,
 )
+from epoch_assay.engine.stats.bootstrap import ResampledTest
 from epoch_assay.engine.units import v_to_uv
 
 
@@ -58,10 +72,13 @@ def score_epochs(
         for label, values in zip(spec.conditions, (first, second), strict=False)
     }
     mean_diff = v_to_uv(first.mean(axis=0) - second.mean(axis=0))
+    collapsed_mean = np.asarray(v_to_uv((first.mean(axis=0) + second.mean(axis=0)) / 2))
+    first_sme, second_sme = (np.asarray(sme[label]) for label in spec.conditions)
+    collapsed_sme = np.sqrt(first_sme**2 + second_sme**2) / 2
     channels = [
         ChannelScore(
             name=name,
-            t=float(tests.statistic[i]),
+            statistic=float(tests.statistic[i]),
             p=float(tests.pvalue[i]),
             p_adjusted=float(tests.p_adjusted[i]),
             significant=bool(tests.significant[i]),
@@ -69,6 +86,8 @@ def score_epochs(
             hedges_g=float(effect.g[i]),
             hedges_g_ci=[float(effect.ci_low[i]), float(effect.ci_high[i])],
             sme_uv={label: float(values[i]) for label, values in sme.items()},
+            collapsed_mean_uv=float(collapsed_mean[i]),
+            collapsed_sme_uv=float(collapsed_sme[i]),
         )
         for i, name in enumerate(names)
     ]
@@ -78,12 +97,14 @@ def score_epochs(
         n_trials={
             label: int(np.count_nonzero(rows)) for label, rows in zip(spec.conditions, in_condition, strict=False)
         },
+        statistic_name=STATISTIC_NAMES[spec.test],
         channels=channels,
         significant_fraction=float(tests.significant.mean()),
         significant_fraction_uploaded=significant_uploaded / len(uploaded) if uploaded else float("nan"),
         channels_kept=len(channels),
         channels_uploaded=len(uploaded),
         median_sme_uv={label: float(np.median(values)) for label, values in sme.items()},
+        mean_welch_t=_mean_welch_t(first, second, names, spec),
         time_course=_time_course(epochs, picks, in_condition, spec.time_course, spec.comparison()),
         bootstrap=_bootstrap_summary(first, second, spec),
     )
@@ -119,6 +140,10 @@ def _time_course(
 
 
 def _bootstrap_summary(first: np.ndarray, second: np.ndarray, spec: ScoringSpec) -> BootstrapSummary | None:
+    """The fraction over resamples: subset mean and spread (fixed, equalized) or percentile interval (all).
+
+    first, second : arrays, shape (n_trials, n_channels), window means of the scored channels, in V
+    """
     if spec.bootstrap is None:
         return None
     result = bootstrap_significant_fraction(
@@ -130,17 +155,49 @@ def _bootstrap_summary(first: np.ndarray, second: np.ndarray, spec: ScoringSpec)
         seed=spec.bootstrap.seed,
         alpha=spec.alpha,
         correction=spec.correction,
-        test=spec.test,
-        ci=spec.bootstrap.ci,
+        # ScoringSpec refuses a bootstrap with a test that cannot be resampled (the permutation test).
+        test=cast(ResampledTest, spec.test),
     )
-    return BootstrapSummary(
-        median=result.median,
-        ci_low=result.ci_low,
-        ci_high=result.ci_high,
-        resamples=result.resamples,
-        trials_per_condition=result.trials_per_condition,
+    if result.mode == "all":
+        return FractionInterval(
+            mode="all",
+            resamples=result.resamples,
+            trials_drawn=dict(zip(spec.conditions, result.trials_drawn, strict=True)),
+            ci="percentile",
+            ci_low=result.percentile_low,
+            ci_high=result.percentile_high,
+        )
+    kept = (first.shape[0], second.shape[0])
+    return SubsetSpread(
         mode=result.mode,
-        ci=result.ci,
-        trials_drawn=dict(zip(spec.conditions, result.trials_drawn, strict=False)),
-        with_replacement=result.with_replacement,
+        resamples=result.resamples,
+        trials_per_condition=result.trials_drawn[0],
+        share_of_trials_used={
+            label: drawn / count for label, drawn, count in zip(spec.conditions, result.trials_drawn, kept, strict=True)
+        },
+        subset_mean=result.mean,
+        spread_low=result.percentile_low,
+        spread_high=result.percentile_high,
+    )
+
+
+def _mean_welch_t(first: np.ndarray, second: np.ndarray, names: list[str], spec: ScoringSpec) -> MeanWelchT:
+    """The smooth score over the scored channels, or over those of ``spec.mean_t_channels`` that are scored.
+
+    first, second : arrays, shape (n_trials, n_channels), window means of the scored channels, in V
+    """
+    wanted = set(names) if spec.mean_t_channels is None else set(spec.mean_t_channels)
+    columns = [index for index, name in enumerate(names) if name in wanted]
+    if not columns:
+        return MeanWelchT(value=None, n_channels=0, ci_low=None, ci_high=None, resamples=0)
+    a, b = first[:, columns], second[:, columns]
+    if spec.bootstrap is None:
+        return MeanWelchT(value=mean_welch_t(a, b), n_channels=len(columns), ci_low=None, ci_high=None, resamples=0)
+    resampled = bootstrap_mean_welch_t(a, b, resamples=spec.bootstrap.resamples, seed=spec.bootstrap.seed)
+    return MeanWelchT(
+        value=resampled.observed,
+        n_channels=len(columns),
+        ci_low=resampled.ci_low,
+        ci_high=resampled.ci_high,
+        resamples=resampled.resamples,
     )

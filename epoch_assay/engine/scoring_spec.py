@@ -1,37 +1,52 @@
 """How a contrast between two conditions is scored: the scoring spec and its checks."""
 
+from typing import Literal
+
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
 from epoch_assay.engine.epochs import EpochSetMeta
 from epoch_assay.engine.errors import SpecError
-from epoch_assay.engine.stats import BootstrapMode, ComparisonSettings, CorrectionMethod, IntervalMethod, TrialTest
+from epoch_assay.engine.stats import (
+    CORRECTIONS,
+    TRIAL_TESTS,
+    BootstrapMode,
+    ComparisonSettings,
+    CorrectionMethod,
+    TrialTest,
+)
 from epoch_assay.engine.windows import check_window_in_epoch
 
 
 class BootstrapSpec(BaseModel):
-    """Resampling of trials to put a confidence interval on the significant fraction."""
+    """Resampling of trials: the significant fraction over subsets or resamples, and the smooth score's interval."""
 
     model_config = ConfigDict(extra="forbid", frozen=True)
 
     mode: BootstrapMode = Field(
         "fixed",
         description="fixed: trials_per_condition trials per condition without replacement; equalized: the smaller "
-        "condition's count from each, without replacement; all: each condition's own count, with replacement. "
-        "Compare artifact-rejection pipelines with equalized or all, since rejection removes trials.",
+        "condition's count from each, without replacement (both report the subset mean, the estimate of the "
+        "fraction at that many trials, and the 2.5/97.5 percentiles as a descriptive spread, not a confidence "
+        "interval); all: each condition's own count, with replacement (reports a 95 % percentile interval for the "
+        "fraction). Compare artifact-rejection pipelines with equalized or all, since rejection removes trials.",
     )
     trials_per_condition: int = Field(50, ge=2, description="Trials drawn per condition in fixed mode.")
-    resamples: int = Field(1000, ge=10, le=100_000, description="Number of bootstrap resamples.")
+    resamples: int = Field(1000, ge=10, le=100_000, description="Number of resamples.")
     seed: int = Field(7, ge=0, description="Seed of the random generator; same seed, same numbers.")
-    ci: IntervalMethod = Field(
-        "percentile", description="percentile, or bca (bias-corrected and accelerated; mode all)."
+    ci: Literal["percentile", "bca"] = Field(
+        "percentile",
+        description="Interval of the fraction in mode all: percentile. bca is refused: the significant fraction is "
+        "a step function, and BCa assumes a smooth statistic (Efron, 1987).",
     )
 
     @model_validator(mode="after")
-    def _bca_needs_all(self) -> "BootstrapSpec":
-        if self.ci == "bca" and self.mode != "all":
+    def _no_bca_on_a_step_function(self) -> "BootstrapSpec":
+        if self.ci == "bca":
             raise ValueError(
-                "ci 'bca' needs mode 'all': BCa corrects towards the fraction on all trials, which subsets of fewer "
-                "trials do not estimate; use mode 'all' or ci 'percentile'"
+                "ci 'bca' is not offered for the significant fraction: the fraction is a step function, jumping "
+                "whenever a channel's adjusted p crosses alpha, and the bias-corrected and accelerated interval assumes a smooth "
+                "statistic (Efron, 1987); in simulation its coverage fell far below 95 %. Use ci 'percentile' "
+                "with mode 'all'; the smooth score mean_welch_t gets its own percentile interval"
             )
         return self
 
@@ -56,8 +71,9 @@ class ScoringSpec(BaseModel):
     alpha: float = Field(0.05, gt=0.0, lt=1.0, description="Significance level applied to adjusted p-values.")
     test: TrialTest = Field(
         "welch",
-        description="Trial-level test: welch (unequal variances), student (pooled variance), mann_whitney (ranks; "
-        "the channel's t carries U) or permutation (label permutation of Welch's t).",
+        description="Trial-level test: "
+        + "; ".join(f"{kind.name}: {kind.description}" for kind in TRIAL_TESTS.values())
+        + ". The result names the channel statistic in statistic_name.",
     )
     n_permutations: int = Field(
         1000, ge=10, le=100_000, description="Permutations of the permutation test and of the group-level max_stat."
@@ -65,10 +81,17 @@ class ScoringSpec(BaseModel):
     seed: int = Field(7, ge=0, description="Seed of the permutations; same seed, same p-values.")
     correction: CorrectionMethod = Field(
         "fdr_bh",
-        description="Multiple-comparison correction across channels; max_stat (family-wise, from the maximum |t| "
-        "across channels) needs test permutation.",
+        description="Multiple-comparison correction across channels: "
+        + "; ".join(f"{correction.name}: {correction.description}" for correction in CORRECTIONS.values()),
     )
     bootstrap: BootstrapSpec | None = None
+    mean_t_channels: tuple[str, ...] | None = Field(
+        None,
+        min_length=1,
+        description="Channels averaged in the smooth score mean_welch_t; null for every scored channel. Welch t "
+        "values of opposite sign cancel in the mean (with an average reference they nearly must), so name the "
+        "channels where the effect is expected with one sign, chosen before seeing the data.",
+    )
     reference_pipeline: str | None = Field(
         None, description="Pipeline the group level compares the others with; default the run's first pipeline."
     )
@@ -118,6 +141,12 @@ class ScoringSpec(BaseModel):
                     f"Labels found (trials): {found}",
                 )
         check_window_in_epoch(self.window_s, meta, ("window_s",))
+        if self.mean_t_channels is not None and not set(self.mean_t_channels) & set(meta.ch_names):
+            raise SpecError(
+                ("mean_t_channels",),
+                f"none of the channels {', '.join(self.mean_t_channels)} is in this epoch set; name channels it "
+                f"has (for example {', '.join(meta.ch_names[:4])}), or null for every scored channel",
+            )
         if self.bootstrap is not None and self.bootstrap.mode == "fixed":
             for label in self.conditions:
                 count = meta.condition_counts.get(label, 0)

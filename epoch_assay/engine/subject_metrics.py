@@ -24,9 +24,46 @@ def _trials_kept(entry: Entry) -> float | None:
 
 
 def _median_sme(entry: Entry) -> float | None:
-    """Mean over the two conditions of the median SME over scored channels, in µV."""
+    """Mean over the two conditions of the median SME over scored channels, in µV; noise only."""
     per_condition = [value for value in (entry.get("median_sme_uv") or {}).values() if value is not None]
     return float(np.mean(per_condition)) if per_condition else None
+
+
+def _collapsed_columns(entry: Entry) -> tuple[np.ndarray, np.ndarray] | None:
+    """Per scored channel, the collapsed window mean and its SME, in µV; None without them."""
+    pairs = [
+        (channel["collapsed_mean_uv"], channel["collapsed_sme_uv"])
+        for channel in entry.get("channels") or ()
+        if channel.get("collapsed_mean_uv") is not None and channel.get("collapsed_sme_uv") is not None
+    ]
+    if not pairs:
+        return None
+    means, smes = np.array(pairs, dtype=float).T
+    return means, smes
+
+
+def _collapsed_snr(entry: Entry) -> float | None:
+    """Root mean square over scored channels of the collapsed ERP's window mean over its SME.
+
+    Each channel's ratio is a t of the collapsed ERP against zero. Squaring ignores its
+    polarity (an ERP is positive at some sites and negative at others); the mean over
+    channels lets every scored channel count once, so a focal ERP still raises it and no
+    single channel decides; under no signal its square has expectation near 1 whatever the
+    noise level, so lowering noise and signal together cannot raise it, while lowering
+    noise alone can.
+    """
+    columns = _collapsed_columns(entry)
+    if columns is None:
+        return None
+    means, smes = columns
+    usable = smes > 0
+    return float(np.sqrt(np.mean((means[usable] / smes[usable]) ** 2))) if usable.any() else None
+
+
+def _collapsed_erp(entry: Entry) -> float | None:
+    """Root mean square over scored channels of the collapsed ERP's window mean, in µV."""
+    columns = _collapsed_columns(entry)
+    return None if columns is None else float(np.sqrt(np.mean(columns[0] ** 2)))
 
 
 # metric → (how to read it from a result entry, whether a higher value is better)
@@ -34,6 +71,8 @@ METRICS: dict[str, tuple[Callable[[Entry], float | None], bool]] = {
     "significant_fraction": (_significant_fraction, True),
     "trials_kept": (_trials_kept, True),
     "median_sme": (_median_sme, False),
+    "collapsed_snr": (_collapsed_snr, True),
+    "collapsed_erp_uv": (_collapsed_erp, True),
 }
 BOUNDED_METRICS = frozenset({"significant_fraction"})
 

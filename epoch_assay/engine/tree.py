@@ -9,9 +9,12 @@ only the epoch sets on the current path, so memory grows with the depth of the t
 with the number of pipelines.
 
 Step outputs may be kept in a cache handed in by the caller (the engine itself touches no
-files); the key of a node is the SHA-256 of the source epoch set's SHA-256, the canonical
-JSON of the node's prefix and the engine version, so a different input, a different chain
-of steps or a new engine never reuses an output.
+files); the key of a node is the SHA-256 of the source epoch set's SHA-256 and, for every
+step of the node's prefix, its canonical JSON, its implementation version (``Step.version``)
+and the installed versions of the packages it depends on (``Step.dependencies``: numpy,
+scipy, mne, epoch-assay, and scikit-learn or python-picard for the ICA methods that use
+them). So a different input, a different chain of steps, a changed step or an upgraded
+package never reuses an output, even from a cache shared by several installations.
 """
 
 import hashlib
@@ -21,10 +24,10 @@ from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
 from typing import Protocol
 
-from epoch_assay.engine import ENGINE_VERSION
+from epoch_assay.engine import provenance
 from epoch_assay.engine.epochs import EpochSet
 from epoch_assay.engine.pipeline import PipelineSpec
-from epoch_assay.engine.provenance import StepRecord
+from epoch_assay.engine.provenance import StepProvenanceBase
 from epoch_assay.engine.steps.base import Step
 
 
@@ -33,7 +36,7 @@ class StepOutput:
     """What one step made of its input: the new epoch set and its provenance record."""
 
     epochs: EpochSet
-    record: StepRecord
+    record: StepProvenanceBase
 
 
 class StepCache(Protocol):
@@ -91,7 +94,7 @@ class LeafOutput:
 
     pipeline: PipelineSpec
     epochs: EpochSet
-    records: tuple[StepRecord, ...]
+    records: tuple[StepProvenanceBase, ...]
 
 
 def canonical_step_json(step: Step) -> str:
@@ -99,10 +102,19 @@ def canonical_step_json(step: Step) -> str:
     return json.dumps(step.model_dump(mode="json"), sort_keys=True, separators=(",", ":"))
 
 
+def step_fingerprint(step: Step) -> str:
+    """What identifies a step's computation: its canonical JSON, its version and its packages' versions."""
+    packages = {name: provenance.installed_version(name) for name in step.dependencies()}
+    return json.dumps(
+        {"step": canonical_step_json(step), "version": step.version, "packages": packages},
+        sort_keys=True,
+        separators=(",", ":"),
+    )
+
+
 def prefix_cache_key(source_sha256: str, prefix: Sequence[Step]) -> str:
-    """SHA-256 (hex) of the source epoch set's SHA-256, the prefix's canonical spec and the engine version."""
-    canonical = PipelineSpec(name="prefix", steps=list(prefix)).canonical_json()
-    return hashlib.sha256("\n".join((source_sha256, canonical, ENGINE_VERSION)).encode()).hexdigest()
+    """SHA-256 (hex) of the source epoch set's SHA-256 and the fingerprint of each step of the prefix, in order."""
+    return hashlib.sha256("\n".join((source_sha256, *map(step_fingerprint, prefix))).encode()).hexdigest()
 
 
 def build_tree(pipelines: Sequence[PipelineSpec]) -> PipelineTree:
@@ -141,7 +153,7 @@ def _pipelines_below(node: TreeNode) -> Iterator[PipelineSpec]:
 def _execute_node(
     node: TreeNode,
     epochs: EpochSet,
-    records: tuple[StepRecord, ...],
+    records: tuple[StepProvenanceBase, ...],
     source_sha256: str,
     cache: StepCache | None,
 ) -> Iterator[LeafOutput]:

@@ -73,7 +73,10 @@ def upload_epoch_set(
             return idempotency.remember(status.HTTP_200_OK, epoch_set_out(existing, study.code))
         try:
             epochs, file_format = read_epoch_set_file(
-                staged.path, max_array_bytes=settings.max_array_bytes, allowed=(FileFormat.NPZ, FileFormat.FIF)
+                staged.path,
+                max_array_bytes=settings.max_array_bytes,
+                max_compression_ratio=settings.max_compression_ratio,
+                allowed=(FileFormat.NPZ, FileFormat.FIF),
             )
         except EpochSetFormatError as error:
             raise format_error_to_unprocessable(error) from None

@@ -66,11 +66,15 @@ def readyz(session: SessionDep, settings: SettingsDep) -> Readiness:
                 }
             },
         },
-        **errors(401),
+        **errors(401, 403),
     },
 )
-def metrics(request: Request, session: SessionDep, _caller: CallerDep) -> Response:
-    """Prometheus metrics: queue depth, runs by state, run durations, failures, HTTP requests (any valid key)."""
+def metrics(request: Request, session: SessionDep, caller: CallerDep) -> Response:
+    """Prometheus metrics: queue depth, runs by state, run durations, failures, HTTP requests (admin keys).
+
+    The figures count every study, so a key of one study may not read them.
+    """
+    caller.require_admin()
     service_metrics = request.app.state.metrics
     service_metrics.refresh(session)
     return Response(generate_latest(service_metrics.registry), media_type=CONTENT_TYPE_LATEST)

@@ -8,6 +8,7 @@ from fastapi.responses import HTMLResponse
 from sqlalchemy.orm import Session
 
 from epoch_assay.engine.document import RunResultDocument, upgrade_document
+from service.domain.figures import run_figure_bytes
 from service.domain.locked_pipelines import ARRIVAL_ORIGIN, locked_pipeline_of
 from service.domain.runs import stored_result_document
 from service.errors import NotFound
@@ -83,7 +84,7 @@ def get_run_report(run_id: str, session: SessionDep, caller: CallerDep) -> HTMLR
     document = _document(session, run)
     available = catalogue.run_figures(document)
     shown = set(catalogue.embedded_names(document, available))
-    pictures = [(item, figure_bytes(item.draw(), "png")) for item in available if item.name in shown]
+    pictures = [(item, run_figure_bytes(session, run.id, item, "png")) for item in available if item.name in shown]
     return HTMLResponse(run_report_html(document, _run_facts(session, run), pictures))
 
 
@@ -115,7 +116,7 @@ def get_run_figure(
     if name not in available:
         raise NotFound(f"run {run.id} has no figure {name!r}; it has: {', '.join(available) or 'none'}")
     return Response(
-        content=figure_bytes(available[name].draw(), fmt),
+        content=run_figure_bytes(session, run.id, available[name], fmt),
         media_type=MEDIA_TYPES[fmt],
         headers={"Cache-Control": "private, max-age=3600"},
     )

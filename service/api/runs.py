@@ -7,6 +7,7 @@ from fastapi import APIRouter, Header, Query, Response, status
 
 from epoch_assay.engine.document import RunResultDocument
 from epoch_assay.engine.errors import SpecError
+from service.domain.run_limits import check_run_size
 from service.domain.runs import check_run_spec, epoch_sets_of_new_run, queue_run, stored_result_document
 from service.errors import NotAcceptable, spec_error_to_unprocessable
 from service.http.access import CallerDep
@@ -68,6 +69,7 @@ def create_run(
         pipelines = body.resolved_pipelines(settings.max_pipelines)
     except SpecError as error:
         raise spec_error_to_unprocessable(error) from None
+    check_run_size(pipelines, len(epoch_sets), settings)
     check_run_spec(pipelines, body.scoring, epoch_sets, from_grid=body.grid is not None)
     # A grid run also stores its expanded pipelines, so that readers of the spec see every name.
     spec = body.model_dump(mode="json") | {"pipelines": [pipeline.model_dump(mode="json") for pipeline in pipelines]}

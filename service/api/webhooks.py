@@ -8,7 +8,7 @@ from sqlalchemy.orm import Session
 from service.domain.webhooks import register_webhook
 from service.errors import NotFound
 from service.http.access import CallerDep
-from service.http.deps import SessionDep
+from service.http.deps import SessionDep, SettingsDep
 from service.http.idempotency import IdempotencyDep, canonical_fingerprint
 from service.http.lookups import study_by_code
 from service.http.responses import errors
@@ -23,7 +23,9 @@ SIGNING = (
     "headers `webhook-id`, `webhook-timestamp` (unix seconds) and "
     '`webhook-signature: v1,<base64 HMAC-SHA256(key, "<webhook-id>.<webhook-timestamp>.<body>")>`, '
     "where the key is the base64 after `whsec_` in the secret; any Standard Webhooks verifier checks it. "
-    "Failed deliveries are retried with exponential backoff."
+    "Failed deliveries are retried with exponential backoff. "
+    "The URL's host must resolve to public addresses "
+    "only (not loopback, private, link-local, multicast or reserved) unless the operator allows its network."
 )
 
 
@@ -55,12 +57,25 @@ def _webhook_of(session: Session, study: Study, webhook_id: str) -> Webhook:
     description="Register a webhook (write keys)." + SIGNING,
 )
 def create_webhook(
-    code: str, body: WebhookCreate, session: SessionDep, caller: CallerDep, idempotency: IdempotencyDep
+    code: str,
+    body: WebhookCreate,
+    session: SessionDep,
+    settings: SettingsDep,
+    caller: CallerDep,
+    idempotency: IdempotencyDep,
 ) -> Response:
     study = study_by_code(session, code, caller, "write")
     if (replayed := idempotency.replay(canonical_fingerprint(body.model_dump(mode="json")))) is not None:
         return replayed
-    hook = register_webhook(session, study, str(body.url), list(body.events), body.description)
+    hook = register_webhook(
+        session,
+        study,
+        str(body.url),
+        list(body.events),
+        body.description,
+        allowed_networks=settings.allowed_webhook_networks,
+        max_per_study=settings.max_webhooks_per_study,
+    )
     created = WebhookCreated(**webhook_out(hook, study.code).model_dump(), secret=hook.secret)
     return idempotency.remember(
         status.HTTP_201_CREATED, created, location=f"/v1/studies/{study.code}/webhooks/{hook.id}"

@@ -12,11 +12,12 @@ from epoch_assay.engine.epochs import EpochSetMeta
 from epoch_assay.engine.errors import SpecError
 from epoch_assay.engine.pipeline import PipelineSpec
 from epoch_assay.engine.scoring_spec import ScoringSpec
+from epoch_assay.engine.steps.filters import check_highpass_fits_epochs
 from service.errors import Conflict, Unprocessable, spec_error_to_unprocessable
 from service.storage import queue
 from service.storage.epoch_sets import epoch_sets_by_id
 from service.storage.ids import new_id
-from service.storage.models import EpochSet, Run, RunEpochSet, RunPipeline, Study
+from service.storage.models import RECORDING_SOURCE, EpochSet, Run, RunEpochSet, RunPipeline, Study
 from service.storage.runs import result_document
 
 
@@ -52,16 +53,24 @@ def check_run_spec(
     """Refuse (422), before anything is queued, a pipeline or scoring that cannot run on an epoch set.
 
     ``pipelines`` are the run's, listed or expanded from its grid; a grid pipeline's error is
-    located by its name under ``grid``.
+    located by its name under ``grid``. On epoch sets uploaded as epochs (not cut from a
+    recording) a high-pass edge whose three periods outlast the epoch is refused too, unless
+    its step allows short epochs.
     """
     for row in epoch_sets:
         meta = epoch_set_meta(row)
         for index, pipeline in enumerate(pipelines):
+            where = ("grid", pipeline.name) if from_grid else ("pipelines", index)
             try:
                 processed = pipeline.check(meta)
             except SpecError as error:
-                where = ("grid", pipeline.name) if from_grid else ("pipelines", index)
                 raise _located(error, row, *where) from None
+            if row.source != RECORDING_SOURCE:
+                try:
+                    check_highpass_fits_epochs(pipeline.steps, meta)
+                except SpecError as error:
+                    route = f"; a recording is uploaded with POST /v1/studies/{row.study.code}/recordings"
+                    raise _located(SpecError(error.loc, error.message + route), row, *where) from None
             try:
                 scoring.check(processed)
             except SpecError as error:

@@ -68,6 +68,10 @@ class Caller:
 
 
 OPEN_CALLER = Caller(id=OPEN_CALLER_ID, role="admin", study_id=None)
+MISSING_KEY = (
+    "this route needs an API key: send 'Authorization: Bearer <token>' (make one with `epoch-assay keys create`)"
+)
+UNKNOWN_KEY = "the API key is unknown or has been revoked; ask the operator for a valid one"
 
 
 def get_caller(
@@ -78,13 +82,10 @@ def get_caller(
     if request.app.state.settings.open:
         return OPEN_CALLER
     if credentials is None or credentials.scheme.lower() != "bearer":
-        raise Unauthorized(
-            "this route needs an API key: send 'Authorization: Bearer <token>' "
-            "(make one with `epoch-assay keys create`)"
-        )
+        raise Unauthorized(MISSING_KEY)
     key = find_active_key(session, credentials.credentials)
     if key is None:
-        raise Unauthorized("the API key is unknown or has been revoked; ask the operator for a valid one")
+        raise Unauthorized(UNKNOWN_KEY)
     request.state.caller_id = key.id
     return Caller(id=key.id, role=key.role, study_id=key.study_id)
 

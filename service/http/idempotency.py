@@ -23,13 +23,13 @@ from typing import Annotated, Any
 
 from fastapi import Depends, Header, Request, Response
 from pydantic import BaseModel
-from sqlalchemy import delete
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
 from service.errors import Conflict
 from service.http.access import CallerDep
 from service.http.deps import SessionDep, SettingsDep
+from service.storage.idempotency import forget_answers_before, kept_answer
 from service.storage.ids import utc_now
 from service.storage.models import IdempotencyRecord
 
@@ -57,7 +57,7 @@ class Idempotency:
         self._request_sha256 = hashlib.sha256(f"{self.method} {self.path} {fingerprint}".encode()).hexdigest()
         if self.key is None:
             return None
-        record = self.session.get(IdempotencyRecord, (self.caller_id, self.key))
+        record = kept_answer(self.session, self.caller_id, self.key)
         if record is None:
             return None
         if record.created_at < utc_now() - self.ttl:
@@ -79,7 +79,7 @@ class Idempotency:
         if self.key is None:
             return response
         now = utc_now()
-        self.session.execute(delete(IdempotencyRecord).where(IdempotencyRecord.created_at < now - self.ttl))
+        forget_answers_before(self.session, now - self.ttl)
         self.session.add(
             IdempotencyRecord(
                 caller_id=self.caller_id,
@@ -98,7 +98,7 @@ class Idempotency:
             self.session.flush()
         except IntegrityError:
             self.session.rollback()
-            winner = self.session.get(IdempotencyRecord, (self.caller_id, self.key))
+            winner = kept_answer(self.session, self.caller_id, self.key)
             if winner is None:
                 raise
             return self._answer(winner)

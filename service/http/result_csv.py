@@ -4,7 +4,7 @@ import csv
 import io
 from typing import Any
 
-from epoch_assay.engine.document import RunResultDocument
+from epoch_assay.engine.document import FractionInterval, RunResultDocument, SubsetSpread
 
 COLUMNS = (
     "run",
@@ -15,14 +15,21 @@ COLUMNS = (
     "subject",
     "session",
     "channel",
-    "t",
+    "statistic_name",
+    "statistic",
     "p",
     "p_adjusted",
     "significant",
     "significant_fraction",
-    "bootstrap_median",
+    "bootstrap_mode",
+    "bootstrap_subset_mean",
+    "bootstrap_spread_low",
+    "bootstrap_spread_high",
     "bootstrap_ci_low",
     "bootstrap_ci_high",
+    "mean_welch_t",
+    "mean_welch_t_ci_low",
+    "mean_welch_t_ci_high",
     "condition_a",
     "n_trials_a",
     "condition_b",
@@ -31,8 +38,8 @@ COLUMNS = (
 )
 CSV_EXAMPLE = (
     ",".join(COLUMNS) + "\r\n"
-    "run_0123456789abcdef,READ-01,raw,9f2c…,es_3f9c0a1b7d2e4f60,sub-01,ses-01,Pz,-4.1,0.0001,0.002,true,0.41,"
-    "0.38,0.22,0.53,incongruent,70,congruent,70,\r\n"
+    "run_0123456789abcdef,READ-01,raw,9f2c…,es_3f9c0a1b7d2e4f60,sub-01,ses-01,Pz,welch_t,-4.1,0.0001,0.002,true,"
+    "0.41,fixed,0.38,0.22,0.53,,,-1.9,-2.4,-1.4,incongruent,70,congruent,70,\r\n"
 )
 # Text a spreadsheet would run as a formula (OWASP, "CSV injection") is quoted with a leading apostrophe.
 _FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
@@ -51,7 +58,7 @@ def _rows(document: RunResultDocument) -> list[dict[str, Any]]:
     condition_a, condition_b = document.scoring.conditions
     rows = []
     for entry in document.results:
-        bootstrap = entry.bootstrap
+        bootstrap, mean_t = entry.bootstrap, entry.mean_welch_t
         n_trials = entry.n_trials or {}
         shared = {
             "run": document.run,
@@ -62,9 +69,15 @@ def _rows(document: RunResultDocument) -> list[dict[str, Any]]:
             "subject": entry.subject,
             "session": entry.session,
             "significant_fraction": entry.significant_fraction,
-            "bootstrap_median": None if bootstrap is None else bootstrap.median,
-            "bootstrap_ci_low": None if bootstrap is None else bootstrap.ci_low,
-            "bootstrap_ci_high": None if bootstrap is None else bootstrap.ci_high,
+            "bootstrap_mode": None if bootstrap is None else bootstrap.mode,
+            "bootstrap_subset_mean": bootstrap.subset_mean if isinstance(bootstrap, SubsetSpread) else None,
+            "bootstrap_spread_low": bootstrap.spread_low if isinstance(bootstrap, SubsetSpread) else None,
+            "bootstrap_spread_high": bootstrap.spread_high if isinstance(bootstrap, SubsetSpread) else None,
+            "bootstrap_ci_low": bootstrap.ci_low if isinstance(bootstrap, FractionInterval) else None,
+            "bootstrap_ci_high": bootstrap.ci_high if isinstance(bootstrap, FractionInterval) else None,
+            "mean_welch_t": None if mean_t is None else mean_t.value,
+            "mean_welch_t_ci_low": None if mean_t is None else mean_t.ci_low,
+            "mean_welch_t_ci_high": None if mean_t is None else mean_t.ci_high,
             "condition_a": condition_a,
             "n_trials_a": n_trials.get(condition_a),
             "condition_b": condition_b,
@@ -78,7 +91,8 @@ def _rows(document: RunResultDocument) -> list[dict[str, Any]]:
                 shared
                 | {
                     "channel": channel.name,
-                    "t": channel.t,
+                    "statistic_name": entry.statistic_name,
+                    "statistic": channel.statistic,
                     "p": channel.p,
                     "p_adjusted": channel.p_adjusted,
                     "significant": str(channel.significant).lower(),

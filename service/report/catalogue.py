@@ -5,12 +5,17 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from functools import partial
 
+import matplotlib
 from matplotlib.figure import Figure
 
 from epoch_assay.engine.document import RunResultDocument
 from service.report import figures, summary, topomaps
 
 BEST_SHOWN = 2
+# Raised whenever the drawing of any figure changes, so that figures kept by older code are drawn again.
+FIGURES_VERSION = 1
+#: The name kept figures are stored under: this code's figures version and the plotting library's.
+RENDERER = f"figures-{FIGURES_VERSION}-matplotlib-{matplotlib.__version__}"
 
 
 @dataclass(frozen=True)
@@ -72,8 +77,8 @@ def run_figures(document: RunResultDocument) -> list[ReportFigure]:
                 "sme",
                 "Standardised measurement error",
                 "Median over channels of the standardised measurement error of the window mean, per condition, in µV, "
-                "mean over epoch sets. It ignores the contrast, so it can guide the choice of pipeline without "
-                "inflating false positives.",
+                "mean over epoch sets. It ignores the contrast but measures noise only: a step that removes the "
+                "signal lowers it too, so a lower SME alone is no reason to prefer a pipeline.",
                 lambda: figures.sme_figure(sme),
             )
         )
@@ -95,7 +100,8 @@ def _topomaps(document: RunResultDocument, reference: str) -> list[ReportFigure]
             ReportFigure(
                 topomap_name(name),
                 f"Scalp map: {name}",
-                f"Welch t per channel, mean over {located.map.n_epoch_sets} epoch set(s); white dots: significant after "
+                f"{topomaps.statistic_label(located.map.statistic_name)} per channel, mean over "
+                f"{located.map.n_epoch_sets} epoch set(s); white dots: significant after "
                 f"correction in at least half of them. All maps of this run share the colour scale ±{limit:.1f}."
                 + left_out,
                 partial(topomaps.topomap_figure, located, reference, limit),

@@ -29,6 +29,18 @@ WIDTH_IN = 7.5
 PNG_DPI = 110
 FONT_SIZE = 10
 
+
+def plain_text(label: str) -> str:
+    """A user's label (pipeline, condition, epoch set) drawn as written, never as mathtext.
+
+    Matplotlib reads text holding a pair of unescaped ``$`` as mathtext, and a label such as
+    ``$\\frac$`` fails to parse, which would fail every drawing of the figure; an escaped ``\\$`` is
+    drawn as a plain dollar sign (matplotlib.text.Text._preprocess_math). Escaping, rather than
+    turning ``text.parse_math`` off through rcParams, keeps figures free of global state.
+    """
+    return label.replace("$", r"\$")
+
+
 REFERENCE_LABEL = "reference"
 PIPELINES_LABEL = "pipelines"
 
@@ -76,7 +88,9 @@ def ranking_figure(rows: Sequence[tuple[str, float, float, float, bool]], *, des
             label=label,
         )
     ax.set_yticks(
-        positions, [f"{row.name} (reference)" if row.is_reference else row.name for row in ranked], fontsize=FONT_SIZE
+        positions,
+        [plain_text(f"{row.name} (reference)" if row.is_reference else row.name) for row in ranked],
+        fontsize=FONT_SIZE,
     )
     ax.set_ylim(-0.7, len(ranked) - 0.3)
     ax.set_xlim(0.0, 1.0)
@@ -94,9 +108,9 @@ def time_course_figure(courses: Sequence[TimeCourse], window_s: tuple[float, flo
     others = 0
     for course in courses:
         if course.pipeline == reference:
-            colour, width, label = REFERENCE_COLOUR, 2.4, f"{course.pipeline} (reference)"
+            colour, width, label = REFERENCE_COLOUR, 2.4, plain_text(f"{course.pipeline} (reference)")
         else:
-            colour, width, label = pipeline_colour(others), 1.6, course.pipeline
+            colour, width, label = pipeline_colour(others), 1.6, plain_text(course.pipeline)
             others += 1
         ax.plot(course.times_s * 1e3, course.fraction, color=colour, linewidth=width, label=label)
     ax.axvline(0.0, color=INK, linewidth=0.8, linestyle=":")
@@ -121,10 +135,10 @@ def kept_figure(kept: Sequence[KeptCounts], conditions: Sequence[str]) -> Figure
             [item.trials[label] for item in kept],
             height=height,
             color=CONDITION_COLOURS[index % len(CONDITION_COLOURS)],
-            label=label,
+            label=plain_text(label),
         )
         trials_ax.bar_label(bars, fmt="%.0f", fontsize=FONT_SIZE - 2, padding=2)
-    trials_ax.set_yticks(positions, [item.pipeline for item in kept], fontsize=FONT_SIZE)
+    trials_ax.set_yticks(positions, [plain_text(item.pipeline) for item in kept], fontsize=FONT_SIZE)
     trials_ax.set_xlabel("Trials kept (mean per epoch set)", fontsize=FONT_SIZE)
     figure.legend(
         *trials_ax.get_legend_handles_labels(),
@@ -153,10 +167,14 @@ def sme_figure(summaries: Sequence[SmeSummary]) -> Figure:
         offsets = [y + 0.4 - height * (index + 0.5) for y in positions]
         values = [summary.median_uv.get(label, float("nan")) for summary in summaries]
         bars = ax.barh(
-            offsets, values, height=height, color=CONDITION_COLOURS[index % len(CONDITION_COLOURS)], label=label
+            offsets,
+            values,
+            height=height,
+            color=CONDITION_COLOURS[index % len(CONDITION_COLOURS)],
+            label=plain_text(label),
         )
         ax.bar_label(bars, fmt="%.2f", fontsize=FONT_SIZE - 2, padding=2)
-    ax.set_yticks(positions, [summary.pipeline for summary in summaries], fontsize=FONT_SIZE)
+    ax.set_yticks(positions, [plain_text(summary.pipeline) for summary in summaries], fontsize=FONT_SIZE)
     ax.set_xlabel("Standardised measurement error, median over channels (µV)", fontsize=FONT_SIZE)
     ax.set_title("Measurement precision per condition (lower is better)", fontsize=FONT_SIZE + 1, loc="left")
     figure.legend(
@@ -193,7 +211,7 @@ def arrival_figure(arrivals: Sequence[Arrival]) -> Figure:
             marker="os^v"[index % 4],
             color=CONDITION_COLOURS[index % len(CONDITION_COLOURS)],
             linewidth=1.6,
-            label=f"trials: {label}",
+            label=plain_text(f"trials: {label}"),
         )
     # Headroom above the highest count, so the markers stay clear of the title.
     ax.set_ylim(0, 1.2 * max((max(item.trials.values(), default=0) for item in arrivals), default=0) + 1)
@@ -210,7 +228,9 @@ def arrival_figure(arrivals: Sequence[Arrival]) -> Figure:
     )
     channels_ax.set_ylim(0, 1.2 * max(item.channels for item in arrivals) + 1)
     channels_ax.set_ylabel("Channels", fontsize=FONT_SIZE)
-    ax.set_xticks(positions, [item.label for item in arrivals], rotation=45, ha="right", fontsize=FONT_SIZE - 1)
+    ax.set_xticks(
+        positions, [plain_text(item.label) for item in arrivals], rotation=45, ha="right", fontsize=FONT_SIZE - 1
+    )
     ax.set_xlabel("Epoch sets in upload order", fontsize=FONT_SIZE)
     handles = ax.get_legend_handles_labels()[0] + channels_ax.get_legend_handles_labels()[0]
     ax.legend(handles=handles, fontsize=FONT_SIZE - 1, frameon=False, loc="lower left")

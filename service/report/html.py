@@ -158,8 +158,8 @@ def _figure(item: ReportFigure, png: bytes) -> str:
 
 CAUTION = (
     "Research software, not for clinical decisions. Picking the pipeline with the most significant channels "
-    "on the data you then test inflates false positives; choose on measures that ignore the contrast "
-    "(trials kept, SME) or on tuning subjects, and confirm on subjects that played no part in the choice."
+    "on the data you then test inflates false positives; choose on a measure that ignores the contrast "
+    "(the collapsed ERP over its SME) or on tuning subjects, and confirm on subjects that played no part in the choice."
 )
 
 
@@ -176,7 +176,9 @@ def run_report_html(document: RunResultDocument, run: RunFacts, shown: Sequence[
         "<h2>Results</h2>",
         f"<p>Contrast <strong>{first} − {second}</strong>, window {scoring.window_s[0]:g}–"
         f"{scoring.window_s[1]:g} s, α = {scoring.alpha:g}, correction {escape(scoring.correction)}.</p>",
+        _exploratory_html(document),
         _figures_html(shown),
+        _comparisons_html(document),
         _errors_html(document),
         "<h2>Inputs</h2>",
         _epoch_sets_html(run.epoch_sets),
@@ -197,6 +199,53 @@ def verdict_html(document: RunResultDocument, run_id: str | None = None) -> str:
         return f'<p class="verdict"><strong>Verdict.</strong> {text}</p>'
     link = f'<a href="../../runs/{quote(run_id, safe="")}/report">{escape(run_id)}</a>'
     return f'<p class="verdict"><strong>Verdict of the latest run, {link}.</strong> {text}</p>'
+
+
+def _exploratory_html(document: RunResultDocument) -> str:
+    """The document's ``exploratory`` note, shown above the figures it concerns."""
+    note = document.exploratory
+    if note is None:
+        return ""
+    parts = ", ".join(escape(part) for part in note.parts)
+    return f'<p class="caution"><strong>Exploratory: {parts}.</strong> {escape(note.reason)}.</p>'
+
+
+def _p_text(value: float | None) -> str:
+    return "–" if value is None else f"{value:.3g}"
+
+
+def _comparisons_html(document: RunResultDocument) -> str:
+    """The ranking against the reference, with p adjusted across the pipelines compared."""
+    entries = sorted(document.ranking or (), key=lambda item: item.rank)
+    if not entries:
+        return ""
+    rows, adjustment = [], None
+    for entry in entries:
+        versus, spread = entry.vs_reference, entry.rank_spread
+        adjustment = adjustment or (versus.adjustment if versus is not None else None)
+        rows.append(
+            [
+                str(entry.rank),
+                escape(entry.pipeline),
+                _p_text(entry.mean),
+                "–" if versus is None else _p_text(versus.mean_difference),
+                "–" if versus is None else _p_text(versus.paired_t_p),
+                "–" if versus is None else _p_text(versus.p_adjusted),
+                _p_text(entry.probability_best),
+                "–" if spread is None else f"{spread.low:g}–{spread.high:g}",
+            ]
+        )
+    return (
+        "<h3>Pipelines against the reference</h3>"
+        + _table(
+            ["rank", "pipeline", "mean", "Δ reference", "p (paired t)", "p adjusted", "P(best)", "rank spread"],
+            rows,
+            numeric=(0, 2, 3, 4, 5, 6),
+        )
+        + f"<p>p adjusted: {escape(adjustment or 'none')}. P(best) and rank spread: share of subject "
+        "bootstraps in which the pipeline is best, and 2.5–97.5 percentiles of its rank; descriptive, "
+        "not a probability or a confidence interval.</p>"
+    )
 
 
 def _figures_html(shown: Sequence[tuple[ReportFigure, bytes]]) -> str:

@@ -15,7 +15,7 @@ from typing import NamedTuple
 import numpy as np
 from scipy import stats
 
-from epoch_assay.engine.document import ResultEntry, RunResultDocument
+from epoch_assay.engine.document import FractionInterval, ResultEntry, RunResultDocument, SubsetSpread
 from epoch_assay.engine.document.multiverse import PipelineGroupResult, RankingEntry
 
 
@@ -39,15 +39,17 @@ class Ranking:
 
 @dataclass(frozen=True)
 class ChannelMap:
-    """Per-channel t of one pipeline, averaged over the epoch sets that scored it.
+    """Per-channel statistic of one pipeline, averaged over the epoch sets that scored it.
 
-    t : array, shape (n_channels,), dimensionless (Welch t, first minus second condition)
+    statistic : array, shape (n_channels,), dimensionless (first minus second condition)
+    statistic_name : what ``statistic`` is, as the entries name it (``welch_t``, ``mann_whitney_u``, …)
     significant : array of bool, shape (n_channels,): significant in at least half of the epoch sets
     """
 
     pipeline: str
     ch_names: tuple[str, ...]
-    t: np.ndarray
+    statistic: np.ndarray
+    statistic_name: str
     significant: np.ndarray
     n_epoch_sets: int
 
@@ -144,7 +146,7 @@ def _ranking_of_group(groups: list[PipelineGroupResult], reference: str) -> Rank
 
 
 def _row_from_entries(name: str, entries: list[ResultEntry], is_reference: bool) -> tuple[RankingRow, str] | None:
-    """One epoch set: its bootstrap median and interval. Several: the mean and a t interval over epoch sets."""
+    """One epoch set: its resampling summary. Several: the mean and a t interval over epoch sets."""
     fractions = np.array(
         [entry.significant_fraction for entry in entries if entry.significant_fraction is not None],
         dtype=float,
@@ -153,10 +155,19 @@ def _row_from_entries(name: str, entries: list[ResultEntry], is_reference: bool)
         return None
     if fractions.size == 1:
         boot = entries[0].bootstrap
-        if boot is not None and boot.median is not None and boot.ci_low is not None and boot.ci_high is not None:
+        if isinstance(boot, FractionInterval) and boot.ci_low is not None and boot.ci_high is not None:
             return RankingRow(
-                name, boot.median, boot.ci_low, boot.ci_high, is_reference
-            ), "bootstrap median over trial resamples, 2.5–97.5 percentiles"
+                name, float(fractions[0]), boot.ci_low, boot.ci_high, is_reference
+            ), "fraction on all trials, 95 % percentile bootstrap interval"
+        if (
+            isinstance(boot, SubsetSpread)
+            and boot.subset_mean is not None
+            and boot.spread_low is not None
+            and boot.spread_high is not None
+        ):
+            return RankingRow(
+                name, boot.subset_mean, boot.spread_low, boot.spread_high, is_reference
+            ), "mean over subsets of k trials, 2.5–97.5 percentiles over subsets (a spread, not a confidence interval)"
         return RankingRow(
             name, float(fractions[0]), float(fractions[0]), float(fractions[0]), is_reference
         ), "one epoch set, no bootstrap: no interval"
@@ -166,13 +177,14 @@ def _row_from_entries(name: str, entries: list[ResultEntry], is_reference: bool)
 
 
 def channel_map(document: RunResultDocument, pipeline: str) -> ChannelMap | None:
-    """Mean t per channel over the epoch sets of ``pipeline``; None when none was scored.
+    """Mean statistic per channel over the epoch sets of ``pipeline``; None when none was scored.
 
     A channel missing from some epoch sets (dropped by a step, say) is averaged over the others.
     """
-    channel_lists = [entry.channels for entry in scored_entries(document, pipeline) if entry.channels]
-    if not channel_lists:
+    scored = [entry for entry in scored_entries(document, pipeline) if entry.channels]
+    if not scored:
         return None
+    channel_lists = [entry.channels for entry in scored if entry.channels]
     names: list[str] = []
     for channels in channel_lists:
         names.extend(channel.name for channel in channels if channel.name not in names)
@@ -181,8 +193,8 @@ def channel_map(document: RunResultDocument, pipeline: str) -> ChannelMap | None
     for channels in channel_lists:
         for channel in channels:
             i = index[channel.name]
-            if channel.t is not None:
-                t_sum[i] += channel.t
+            if channel.statistic is not None:
+                t_sum[i] += channel.statistic
                 t_count[i] += 1
             significant_count[i] += channel.significant
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -190,7 +202,8 @@ def channel_map(document: RunResultDocument, pipeline: str) -> ChannelMap | None
     return ChannelMap(
         pipeline=pipeline,
         ch_names=tuple(names),
-        t=mean_t,
+        statistic=mean_t,
+        statistic_name=scored[0].statistic_name or "statistic",
         significant=significant_count >= len(channel_lists) / 2,
         n_epoch_sets=len(channel_lists),
     )
@@ -311,8 +324,7 @@ def verdict_facts(document: RunResultDocument) -> VerdictFacts:
         reference=versus.reference_pipeline if versus else reference_pipeline(document),
         difference=versus.mean_difference if versus else None,
         difference_ci=(interval[0], interval[1]) if interval else None,
-        # p_adjusted (max-t over the pipelines compared) arrives with the comparisons work; read it when present.
-        p_adjusted=getattr(versus, "p_adjusted", None),
+        p_adjusted=versus.p_adjusted if versus else None,
         p_unadjusted=versus.paired_t_p if versus else None,
         selection_rule=selection.rule if selection else None,
         tuning_subjects=tuple(selection.tuning_subjects or ()) if selection else (),

@@ -32,7 +32,10 @@ class WebhookCreate(BaseModel):
         },
     )
 
-    url: HttpUrl = Field(description="http or https URL that receives a POST with the event as JSON.")
+    url: HttpUrl = Field(
+        description="http or https URL that receives a POST with the event as JSON. Its host must resolve to "
+        "public addresses only, unless the operator allows its network (EPOCH_ASSAY_WEBHOOK_ALLOWED_NETWORKS)."
+    )
     events: list[EventType] = Field(
         default=["run.succeeded", "run.failed"], min_length=1, max_length=2, json_schema_extra={"uniqueItems": True}
     )

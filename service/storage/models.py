@@ -3,7 +3,19 @@
 from datetime import UTC, datetime
 from typing import Any
 
-from sqlalchemy import JSON, DateTime, Float, ForeignKey, Index, Integer, String, Text, TypeDecorator, UniqueConstraint
+from sqlalchemy import (
+    JSON,
+    DateTime,
+    Float,
+    ForeignKey,
+    Index,
+    Integer,
+    LargeBinary,
+    String,
+    Text,
+    TypeDecorator,
+    UniqueConstraint,
+)
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship
 
 from service.storage.ids import utc_now
@@ -41,6 +53,10 @@ class Study(Base):
     code: Mapped[str] = mapped_column(String(64), unique=True)
     title: Mapped[str] = mapped_column(String(200))
     created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utc_now)
+
+
+#: ``EpochSet.source`` of an epoch set the worker cuts from an uploaded recording.
+RECORDING_SOURCE = "recording"
 
 
 class EpochSet(Base):
@@ -141,12 +157,29 @@ class RunPipeline(Base):
 
 
 class RunResult(Base):
-    """The result document of a succeeded run: JSON text built by worker.run_job, shaped as service.schemas.runs."""
+    """The result document of a succeeded run: JSON text of epoch_assay.engine.document.RunResultDocument."""
 
     __tablename__ = "run_results"
 
     run_id: Mapped[str] = mapped_column(ForeignKey("runs.id", ondelete="CASCADE"), primary_key=True)
     document: Mapped[str] = mapped_column(Text)
+    created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utc_now)
+
+
+class RunFigure(Base):
+    """A figure of a succeeded run's report, drawn once and kept (PNG or SVG bytes).
+
+    ``renderer`` names the drawing code and the plotting library's version that made it, so a
+    figure drawn by older code is never served for newer code: it is drawn again under the new name.
+    """
+
+    __tablename__ = "run_figures"
+
+    run_id: Mapped[str] = mapped_column(ForeignKey("runs.id", ondelete="CASCADE"), primary_key=True)
+    name: Mapped[str] = mapped_column(String(300), primary_key=True)
+    format: Mapped[str] = mapped_column(String(8), primary_key=True)
+    renderer: Mapped[str] = mapped_column(String(64), primary_key=True)
+    content: Mapped[bytes] = mapped_column(LargeBinary)
     created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utc_now)
 
 

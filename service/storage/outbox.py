@@ -14,6 +14,7 @@ the lease, so delivery is at least once and receivers deduplicate by the event i
 """
 
 import json
+from collections.abc import Collection
 from dataclasses import dataclass
 from datetime import datetime, timedelta
 
@@ -89,6 +90,7 @@ def record_run_event(session: Session, run_id: str, status: str, error: str | No
 @dataclass(frozen=True)
 class DueDelivery:
     id: str
+    study_id: str
     event_id: str
     event_type: str
     url: str
@@ -105,12 +107,18 @@ def _due(now: datetime) -> ColumnElement[bool]:
     )
 
 
-def claim_delivery(session: Session, lease_seconds: float) -> DueDelivery | None:
-    """Take the delivery that has been due longest for one attempt, or None."""
+def claim_delivery(session: Session, lease_seconds: float, busy_studies: Collection[str] = ()) -> DueDelivery | None:
+    """Take the delivery that has been due longest for one attempt, or None; none of ``busy_studies``."""
     now = utc_now()
-    candidate = select(WebhookDelivery.id).where(_due(now)).order_by(WebhookDelivery.next_attempt_at).limit(1)
+    candidate = (
+        select(WebhookDelivery.id)
+        .join(Webhook, Webhook.id == WebhookDelivery.webhook_id)
+        .where(_due(now), Webhook.study_id.not_in(list(busy_studies)))
+        .order_by(WebhookDelivery.next_attempt_at)
+        .limit(1)
+    )
     if session.get_bind().dialect.name == "postgresql":
-        candidate = candidate.with_for_update(skip_locked=True)
+        candidate = candidate.with_for_update(of=WebhookDelivery, skip_locked=True)
     row = session.execute(
         update(WebhookDelivery)
         .where(WebhookDelivery.id == candidate.scalar_subquery(), _due(now))
@@ -131,6 +139,7 @@ def claim_delivery(session: Session, lease_seconds: float) -> DueDelivery | None
     assert hook is not None
     return DueDelivery(
         id=row.id,
+        study_id=hook.study_id,
         event_id=row.event_id,
         event_type=row.event_type,
         url=hook.url,

@@ -5,11 +5,13 @@ pyproject.toml), so what a worker may do to the database is listed here and nowh
 method opens and commits its own short transaction; no session is handed out.
 """
 
-import json
+from collections.abc import Collection
 from contextlib import AbstractContextManager
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
+
+from sqlalchemy.exc import SQLAlchemyError
 
 from service.settings import Settings
 from service.storage import outbox, queue
@@ -28,11 +30,16 @@ __all__ = [
     "ClaimedJob",
     "DueDelivery",
     "RunToExecute",
+    "StoreError",
     "StoredEpochSet",
     "WorkerStore",
 ]
 
 FAILED = queue.FAILED
+
+
+#: What the store raises when the database fails (locked, unreachable, connection dropped).
+StoreError = SQLAlchemyError
 
 
 @dataclass(frozen=True)
@@ -125,13 +132,14 @@ class WorkerStore:
         with self._database.session() as session:
             return queue.release(session, job, worker_id)
 
-    def store_result(self, job: ClaimedJob, worker_id: str, document: dict[str, Any]) -> bool:
-        """Mark the job succeeded and store the run's result document (with its webhook events, in one
-        transaction); False when the job was no longer this worker's (nothing stored)."""
+    def store_result(self, job: ClaimedJob, worker_id: str, document_json: str) -> bool:
+        """Mark the job succeeded and store the run's result document, as JSON text (with its webhook events, in
+        one transaction); False when the job was no longer this worker's (nothing stored). Raises
+        :data:`StoreError` when the database fails; nothing is then stored and the call may be repeated."""
         with self._database.session() as session:
             if not queue.complete(session, job, worker_id):
                 return False
-            session.add(RunResult(run_id=job.run_id, document=json.dumps(document, allow_nan=False)))
+            session.add(RunResult(run_id=job.run_id, document=document_json))
             return True
 
     def record_failure(
@@ -169,10 +177,10 @@ class WorkerStore:
 
     # Webhook deliveries
 
-    def claim_delivery(self, lease_seconds: float) -> DueDelivery | None:
-        """The next due webhook delivery, leased; None when none is due."""
+    def claim_delivery(self, lease_seconds: float, busy_studies: Collection[str] = ()) -> DueDelivery | None:
+        """The next due webhook delivery of a study not in ``busy_studies``, leased; None when none is due."""
         with self._database.session() as session:
-            return outbox.claim_delivery(session, lease_seconds)
+            return outbox.claim_delivery(session, lease_seconds, busy_studies)
 
     def record_attempt(
         self,

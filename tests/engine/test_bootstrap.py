@@ -1,13 +1,17 @@
-"""Bootstrap of the significant fraction: modes, draws, reproducibility, resamples vs SciPy, BCa vs SciPy."""
-
-from types import SimpleNamespace
+"""Resampling of trials: modes, draws, reproducibility, resamples vs SciPy, the smooth score's interval."""
 
 import numpy as np
 import pytest
 from scipy import stats
 from statsmodels.stats.multitest import multipletests
 
-from epoch_assay.engine.stats import adjust_pvalues, bootstrap_significant_fraction, draw_trials, draw_with_replacement
+from epoch_assay.engine.stats import (
+    bootstrap_mean_welch_t,
+    bootstrap_significant_fraction,
+    draw_trials,
+    draw_with_replacement,
+    mean_welch_t,
+)
 from epoch_assay.engine.stats.bootstrap import DEFAULT_CHUNK_BYTES, resamples_per_chunk
 from tests.engine.stats_fixtures import window_mean_pair
 
@@ -23,7 +27,11 @@ def test_same_seed_gives_identical_fractions(means):
     first = bootstrap_significant_fraction(*means, seed=11, **SETTINGS)
     second = bootstrap_significant_fraction(*means, seed=11, **SETTINGS)
     np.testing.assert_array_equal(first.fractions, second.fractions)
-    assert (first.median, first.ci_low, first.ci_high) == (second.median, second.ci_low, second.ci_high)
+    assert (first.mean, first.percentile_low, first.percentile_high) == (
+        second.mean,
+        second.percentile_low,
+        second.percentile_high,
+    )
 
 
 def test_different_seed_gives_different_fractions(means):
@@ -80,11 +88,11 @@ def test_first_resamples_equal_scipy_and_statsmodels_on_the_drawn_trials(means, 
         assert result.fractions[resample] == rejected.mean()
 
 
-def test_summary_is_median_and_central_95_percent_of_fractions(means):
+def test_summary_is_mean_and_central_95_percent_of_fractions(means):
     result = bootstrap_significant_fraction(*means, seed=4, **SETTINGS)
     # Reference: numpy.percentile with linear interpolation (Harris et al., 2020, NumPy)
-    low, median, high = np.percentile(result.fractions, [2.5, 50, 97.5])
-    assert (result.ci_low, result.median, result.ci_high) == (low, median, high)
+    low, high = np.percentile(result.fractions, [2.5, 97.5])
+    assert (result.percentile_low, result.mean, result.percentile_high) == (low, result.fractions.mean(), high)
     assert result.fractions.shape == (200,)
     assert (result.resamples, result.trials_per_condition) == (200, 12)
 
@@ -159,42 +167,6 @@ def test_other_tests_first_resamples_equal_scipy(means, test):
         assert result.fractions[resample] == multipletests(p, alpha=0.05, method="fdr_bh")[0].mean()
 
 
-def test_bca_interval_matches_scipy_bootstrap_on_the_same_resamples():
-    # 32 channels and an effect near the detection limit, so that leaving one trial out
-    # changes the fraction and the jackknife acceleration is defined.
-    a, b = window_mean_pair(40, 35, 32, effect_v=2e-6, seed=3)
-    result = bootstrap_significant_fraction(a, b, seed=10, ci="bca", **ALL_MODE)
-
-    def fraction(rows_a, rows_b, axis=-1):
-        p = stats.ttest_ind(a[rows_a.astype(int)], b[rows_b.astype(int)], equal_var=False, axis=-2).pvalue
-        return (adjust_pvalues(p, "fdr_bh") < 0.05).mean(axis=-1)
-
-    # Reference: scipy.stats.bootstrap(method="BCa") (Virtanen et al., 2020), given our bootstrap
-    # distribution (bootstrap_result, n_resamples=0), so that SciPy computes the bias correction and the
-    # jackknife acceleration (Efron, 1987) itself. Resampling trial indices resamples the trials.
-    previous = SimpleNamespace(bootstrap_distribution=result.fractions)
-    expected = stats.bootstrap(
-        (np.arange(a.shape[0]), np.arange(b.shape[0])),
-        fraction,
-        n_resamples=0,
-        bootstrap_result=previous,
-        method="BCa",
-        vectorized=True,
-        confidence_level=0.95,
-    )
-    assert result.observed == fraction(np.arange(a.shape[0]), np.arange(b.shape[0]))
-    np.testing.assert_allclose(
-        [result.ci_low, result.ci_high],
-        [expected.confidence_interval.low, expected.confidence_interval.high],
-        rtol=1e-12,
-    )
-
-
-def test_bca_is_refused_for_subsets_without_replacement(means):
-    with pytest.raises(ValueError, match="BCa interval needs mode 'all'"):
-        bootstrap_significant_fraction(*means, seed=0, ci="bca", **SETTINGS)
-
-
 def test_chunk_size_keeps_a_large_bootstrap_within_the_memory_budget():
     # 128 channels × 1,000 trials per condition: the per-resample estimate times the chunk
     # stays under the budget, so 10,000 resamples are processed in bounded memory.
@@ -203,8 +175,40 @@ def test_chunk_size_keeps_a_large_bootstrap_within_the_memory_budget():
     assert chunk >= 1 and chunk * per_resample <= DEFAULT_CHUNK_BYTES
 
 
-def test_bca_acceleration_is_zero_when_no_single_trial_changes_the_fraction(means):
-    # The fixture's 3 µV effect is found on every effect channel whichever trial is left
-    # out, so every jackknife fraction is the same and the acceleration is 0 by definition.
-    result = bootstrap_significant_fraction(*means, seed=10, ci="bca", **ALL_MODE)
-    assert result.acceleration == 0.0
+def test_mean_welch_t_equals_the_mean_of_scipy_welch_t(means):
+    a, b = means
+    # Reference: scipy.stats.ttest_ind(equal_var=False) (Virtanen et al., 2020, SciPy 1.0)
+    expected = stats.ttest_ind(a, b, equal_var=False).statistic.mean()
+    assert mean_welch_t(a, b) == pytest.approx(expected, rel=1e-12)
+
+
+def test_mean_welch_t_resamples_equal_scipy_on_the_drawn_trials(means):
+    a, b = means
+    result = bootstrap_mean_welch_t(a, b, resamples=50, seed=6)
+    draw = draw_with_replacement(np.random.default_rng(6), a.shape[0], b.shape[0], 50)
+    # Reference: scipy.stats.ttest_ind(equal_var=False) (Virtanen et al., 2020) on each resample's trials,
+    # and numpy.percentile (linear) of those means for the interval
+    expected = np.array(
+        [
+            stats.ttest_ind(a[rows_a], b[rows_b], equal_var=False).statistic.mean()
+            for rows_a, rows_b in zip(draw.indices_a, draw.indices_b, strict=True)
+        ]
+    )
+    np.testing.assert_allclose(result.resampled, expected, rtol=1e-10)
+    np.testing.assert_allclose([result.ci_low, result.ci_high], np.percentile(expected, [2.5, 97.5]), rtol=1e-10)
+    assert result.observed == pytest.approx(mean_welch_t(a, b), rel=1e-12)
+
+
+def test_mean_welch_t_does_not_depend_on_chunk_size(means):
+    a, b = means
+    chunked = bootstrap_mean_welch_t(a, b, resamples=60, seed=2, chunk_size=7)
+    whole = bootstrap_mean_welch_t(a, b, resamples=60, seed=2)
+    np.testing.assert_allclose(chunked.resampled, whole.resampled, rtol=1e-12)
+
+
+def test_mean_welch_t_leaves_out_channels_without_variance(means):
+    a, b = (values.copy() for values in means)
+    a[:, 0], b[:, 0] = 1e-6, 1e-6
+    # Reference: scipy.stats.ttest_ind(equal_var=False) (Virtanen et al., 2020) on the other channels
+    expected = stats.ttest_ind(a[:, 1:], b[:, 1:], equal_var=False).statistic.mean()
+    assert mean_welch_t(a, b) == pytest.approx(expected, rel=1e-12)

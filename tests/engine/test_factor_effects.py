@@ -1,15 +1,18 @@
-"""Factor effects: the MixedLM wrapper against statsmodels' formula interface, the bounded-metric
-transform, and effects pointing the way simulated drift predicts."""
+"""Factor effects: per-subject contrasts tested across subjects, against scipy and statsmodels on the
+same contrasts, and effects pointing the way simulated drift predicts."""
 
 from dataclasses import replace
 
 import numpy as np
 import pandas as pd
 import pytest
-import statsmodels.formula.api as smf
+from scipy import stats
+from statsmodels.multivariate.manova import MANOVA
+from statsmodels.stats import multivariate as sm_multivariate
+from statsmodels.stats.weightstats import DescrStatsW
 
 from epoch_assay.demo.simulate import SimulationConfig, simulate_subject
-from epoch_assay.engine.factor_effects import build_design, factor_effects
+from epoch_assay.engine.factor_effects import factor_effects, hotelling_one_sample, subject_contrasts
 from epoch_assay.engine.grid import GridSpec, expand_grid
 from epoch_assay.engine.scoring import score_epochs
 from epoch_assay.engine.scoring_spec import ScoringSpec
@@ -45,58 +48,102 @@ def synthetic_table(metric: str = "trials_kept") -> MetricTable:
     return MetricTable(metric, PIPELINES, SUBJECTS, values)
 
 
-def statsmodels_fit(table: MetricTable):
-    rows = [
-        {"y": table.values[p, s], "f": PIPELINE_LEVELS[name]["f"], "g": PIPELINE_LEVELS[name]["g"], "subject": subject}
-        for p, name in enumerate(table.pipelines)
-        for s, subject in enumerate(table.subjects)
-    ]
-    frame = pd.DataFrame(rows)
-    formula = "y ~ C(f, Treatment('lo')) + C(g, Treatment('x'))"
-    return smf.mixedlm(formula, frame, groups=frame["subject"]).fit(reml=True)
+def contrasts_by_pandas(table: MetricTable, factor: str) -> pd.DataFrame:
+    """Per subject (rows), each level's mean over the other factors minus the first level's, by pandas."""
+    frame = pd.DataFrame(
+        [
+            {"y": table.values[p, s], "level": PIPELINE_LEVELS[name][factor], "subject": subject}
+            for p, name in enumerate(table.pipelines)
+            for s, subject in enumerate(table.subjects)
+        ]
+    )
+    means = frame.pivot_table(index="subject", columns="level", values="y", aggfunc="mean")[FACTOR_LEVELS[factor]]
+    return means.iloc[:, 1:].sub(means.iloc[:, 0], axis=0)
 
 
-def test_level_estimates_and_intervals_match_statsmodels_formula_fit():
-    effects = factor_effects(synthetic_table(), PIPELINE_LEVELS, FACTOR_LEVELS)
-    # Reference: statsmodels mixedlm with treatment coding and conf_int (Seabold & Perktold, 2010)
-    fit = statsmodels_fit(synthetic_table())
-    intervals = fit.conf_int()
-    for factor, baseline, level in [("f", "lo", "mid"), ("f", "lo", "hi"), ("g", "x", "y")]:
-        name = f"C({factor}, Treatment('{baseline}'))[T.{level}]"
-        effect = effects.factors[factor].levels[level]
-        np.testing.assert_allclose(effect.estimate, fit.params[name], rtol=1e-6)
-        np.testing.assert_allclose([effect.ci_low, effect.ci_high], intervals.loc[name], rtol=1e-5)
+def test_level_estimates_and_intervals_match_scipy_one_sample_t_on_subject_contrasts():
+    table = synthetic_table()
+    effects = factor_effects(table, PIPELINE_LEVELS, FACTOR_LEVELS)
+    contrasts = contrasts_by_pandas(table, "f")
+    for level in ("mid", "hi"):
+        # Reference: scipy.stats.ttest_1samp and its confidence_interval (Virtanen et al., 2020, SciPy 1.0)
+        test = stats.ttest_1samp(contrasts[level].to_numpy(), 0.0)
+        ci = test.confidence_interval(0.95)
+        found = effects.factors["f"].levels[level]
+        np.testing.assert_allclose(
+            [found.estimate, found.ci_low, found.ci_high, found.t, found.p],
+            [contrasts[level].mean(), ci.low, ci.high, test.statistic, test.pvalue],
+        )
 
 
-def test_factor_p_matches_statsmodels_joint_wald_test():
-    effects = factor_effects(synthetic_table(), PIPELINE_LEVELS, FACTOR_LEVELS)
-    fit = statsmodels_fit(synthetic_table())
-    names = list(fit.params.index)
-    restriction = np.zeros((2, len(names)))
-    restriction[0, names.index("C(f, Treatment('lo'))[T.mid]")] = 1.0
-    restriction[1, names.index("C(f, Treatment('lo'))[T.hi]")] = 1.0
-    # Reference: statsmodels wald_test, chi-square form (Seabold & Perktold, 2010)
-    expected = fit.wald_test(restriction, use_f=False, scalar=True).pvalue
-    np.testing.assert_allclose(effects.factors["f"].p, expected, rtol=1e-5)
+def test_level_interval_matches_statsmodels_descr_stats_w():
+    table = synthetic_table()
+    found = factor_effects(table, PIPELINE_LEVELS, FACTOR_LEVELS).factors["g"].levels["y"]
+    # Reference: statsmodels DescrStatsW.tconfint_mean (Seabold & Perktold, 2010)
+    low, high = DescrStatsW(contrasts_by_pandas(table, "g")["y"].to_numpy()).tconfint_mean(0.05)
+    np.testing.assert_allclose([found.ci_low, found.ci_high], [low, high])
+
+
+def test_two_level_factor_p_is_the_one_sample_t_p():
+    table = synthetic_table()
+    factor = factor_effects(table, PIPELINE_LEVELS, FACTOR_LEVELS).factors["g"]
+    # Reference: scipy.stats.ttest_1samp (Virtanen et al., 2020, SciPy 1.0)
+    assert factor.test == "one-sample t"
+    assert factor.p == pytest.approx(stats.ttest_1samp(contrasts_by_pandas(table, "g")["y"], 0.0).pvalue)
+
+
+def test_three_level_factor_p_matches_statsmodels_hotelling_test():
+    table = synthetic_table()
+    factor = factor_effects(table, PIPELINE_LEVELS, FACTOR_LEVELS).factors["f"]
+    # Reference: statsmodels.stats.multivariate.test_mvmean, one-sample Hotelling T² in F form (Seabold &
+    # Perktold, 2010; Mardia, Kent & Bibby, 1979, §5.2)
+    reference = sm_multivariate.test_mvmean(contrasts_by_pandas(table, "f").to_numpy(), np.zeros(2))
+    assert factor.test == "Hotelling T²"
+    assert (factor.statistic, factor.p) == (pytest.approx(reference.statistic), pytest.approx(reference.pvalue))
+    assert factor.df == (2.0, 6.0)
+
+
+def test_hotelling_p_matches_statsmodels_manova_intercept_test():
+    rng = np.random.default_rng(3)
+    contrasts = rng.normal(0.3, 1.0, size=(10, 3))
+    found = hotelling_one_sample(contrasts)
+    # Reference: statsmodels MANOVA, Hotelling-Lawley trace of the intercept (exact F for one hypothesis
+    # degree of freedom), y1 + y2 + y3 ~ 1 (Seabold & Perktold, 2010)
+    frame = pd.DataFrame(contrasts, columns=["y1", "y2", "y3"])
+    table = MANOVA.from_formula("y1 + y2 + y3 ~ 1", frame).mv_test().results["Intercept"]["stat"]
+    assert found.p == pytest.approx(table.loc["Hotelling-Lawley trace", "Pr > F"])
+    assert found.f == pytest.approx(table.loc["Hotelling-Lawley trace", "F Value"])
+
+
+def test_estimates_are_in_the_metrics_own_unit_for_a_bounded_metric():
+    table = synthetic_table()
+    fractions = MetricTable("significant_fraction", table.pipelines, table.subjects, table.values / 20.0)
+    effects = factor_effects(fractions, PIPELINE_LEVELS, FACTOR_LEVELS)
+    assert effects.scale == "identity"
+    assert effects.factors["f"].levels["hi"].estimate == pytest.approx(contrasts_by_pandas(fractions, "f")["hi"].mean())
 
 
 def test_baseline_level_reports_zero_effect():
-    effects = factor_effects(synthetic_table(), PIPELINE_LEVELS, FACTOR_LEVELS)
-    assert effects.factors["g"].baseline_level == "x"
-    assert effects.factors["g"].levels["x"].estimate == 0.0
+    level = factor_effects(synthetic_table(), PIPELINE_LEVELS, FACTOR_LEVELS).factors["f"].levels["lo"]
+    assert (level.estimate, level.ci_low, level.ci_high) == (0.0, 0.0, 0.0)
 
 
-def test_fraction_metric_is_analysed_after_arcsine_square_root():
-    table = MetricTable(
-        "significant_fraction",
-        PIPELINES,
-        SUBJECTS,
-        np.random.default_rng(2).uniform(0, 1, (len(PIPELINES), len(SUBJECTS))),
-    )
-    design = build_design(table, PIPELINE_LEVELS, FACTOR_LEVELS)
-    # Bartlett (1947); Anscombe (1948): arcsine square root transform of a proportion
-    np.testing.assert_allclose(np.sort(design.response), np.sort(np.arcsin(np.sqrt(table.values.ravel()))))
-    assert factor_effects(table, PIPELINE_LEVELS, FACTOR_LEVELS).scale == "arcsine_sqrt"
+def test_a_subject_missing_a_pipeline_keeps_its_other_contrasts():
+    table = synthetic_table()
+    values = table.values.copy()
+    values[PIPELINES.index("f=hi,g=x"), 0] = np.nan
+    values[PIPELINES.index("f=hi,g=y"), 0] = np.nan
+    effects = factor_effects(MetricTable(table.metric, PIPELINES, SUBJECTS, values), PIPELINE_LEVELS, FACTOR_LEVELS)
+    assert effects.factors["f"].levels["hi"].n_subjects == 7
+    assert effects.factors["f"].levels["mid"].n_subjects == 8
+    assert effects.factors["f"].n_subjects == 7
+
+
+def test_too_few_subjects_for_hotelling_leave_no_omnibus_p_and_say_why():
+    table = synthetic_table().for_subjects(["s0", "s1"])
+    effects = factor_effects(table, PIPELINE_LEVELS, FACTOR_LEVELS)
+    assert np.isnan(effects.factors["f"].p)
+    assert any("Hotelling" in warning for warning in effects.warnings)
 
 
 def test_a_constant_metric_is_refused_with_the_reason():
@@ -116,7 +163,7 @@ DRIFT_GRID = GridSpec(
 )
 
 
-def test_high_pass_raises_the_significant_fraction_when_some_subjects_drift():
+def test_high_pass_raises_the_significant_fraction_in_the_subjects_that_drift():
     # Drift adds a slow offset that differs between trials; it inflates the variance of window means
     # and so lowers t, unless a high-pass filter removes it. Subjects 1-3 drift strongly, 4-6 not at all.
     config = SimulationConfig(n_trials_per_condition=40, effect_uv=8.0, blink_rate=0.0, line_noise_uv=0.0, seed=11)
@@ -135,9 +182,9 @@ def test_high_pass_raises_the_significant_fraction_when_some_subjects_drift():
                 }
             )
     table = metric_table(entries, "significant_fraction", [point.pipeline.name for point in points])
-    effects = factor_effects(
-        table,
-        {p.pipeline.name: p.levels for p in points},
-        {factor: list(levels) for factor, levels in DRIFT_GRID.factors.items()},
-    )
-    assert effects.factors["highpass"].levels["1"].ci_low > 0.0
+    levels = {p.pipeline.name: p.levels for p in points}
+    factors = {factor: list(levels) for factor, levels in DRIFT_GRID.factors.items()}
+    contrasts = subject_contrasts(table, levels, "highpass", factors["highpass"])[:, 0]
+    assert contrasts[:3].mean() > contrasts[3:].mean()
+    # An effect in half of six subjects is not a population effect a test across subjects can confirm.
+    assert factor_effects(table, levels, factors).factors["highpass"].levels["1"].estimate > 0.0

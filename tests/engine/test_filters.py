@@ -7,9 +7,13 @@ from scipy import signal
 
 from epoch_assay.engine.epochs import EpochSet, EpochSetMeta
 from epoch_assay.engine.errors import SpecError
+from epoch_assay.engine.steps.baseline import Baseline
 from epoch_assay.engine.steps.filters import (
+    BandPass,
+    FilterEdge,
     HighPass,
     LowPass,
+    check_highpass_fits_epochs,
     design_fir,
     design_iir,
     fir_max_cutoff_hz,
@@ -214,3 +218,121 @@ def test_iir_padding_outlasts_the_impulse_response(band: str, cutoff_hz: float, 
 
 def test_filters_belong_to_the_continuous_stage() -> None:
     assert HighPass.stage == LowPass.stage == "continuous"
+
+
+def _meta_lasting(duration_s: float, sfreq: float = SFREQ) -> EpochSetMeta:
+    return EpochSetMeta(
+        sfreq=sfreq,
+        tmin=0.0,
+        n_times=round(duration_s * sfreq),
+        ch_names=("Cz",),
+        ch_types=("eeg",),
+        condition_counts={"a": 1},
+    )
+
+
+def test_highpass_on_epochs_shorter_than_three_periods_is_refused_saying_why() -> None:
+    with pytest.raises(SpecError) as caught:
+        check_highpass_fits_epochs([HighPass(cutoff_hz=0.1)], _meta_lasting(1.0))
+    assert caught.value.loc == ("steps", 0, "cutoff_hz")
+    assert "30 s" in caught.value.message and "1 s" in caught.value.message
+    assert "padding" in caught.value.message and "continuous recording" in caught.value.message
+
+
+def test_bandpass_low_edge_on_short_epochs_is_refused_at_its_own_field() -> None:
+    steps = [Baseline(window_s=(0.0, 0.1)), BandPass(low_hz=0.5, high_hz=30.0)]
+    with pytest.raises(SpecError) as caught:
+        check_highpass_fits_epochs(steps, _meta_lasting(2.0))
+    assert caught.value.loc == ("steps", 1, "low_hz")
+
+
+def test_allow_short_epochs_lets_the_filter_run_and_warns() -> None:
+    step = HighPass(cutoff_hz=0.1, allow_short_epochs=True)
+    check_highpass_fits_epochs([step], _meta_lasting(1.0))
+    _, record = step.apply(random_epoch_set(n_times=250, sfreq=SFREQ))
+    assert len(record.warnings) == 1 and "mean" in record.warnings[0]
+
+
+@pytest.mark.parametrize("step", [HighPass(cutoff_hz=1.0), LowPass(cutoff_hz=1.0)], ids=["highpass", "lowpass"])
+def test_epochs_of_three_periods_and_low_passes_are_accepted(step) -> None:
+    check_highpass_fits_epochs([step], _meta_lasting(3.0))
+
+
+def test_a_slow_highpass_on_a_short_epoch_is_close_to_subtracting_the_epoch_mean() -> None:
+    # 1 s of a 5 µV ERP-like bump plus a 2 µV offset: the 0.1 Hz high-pass (FIR, 8,251 taps at
+    # 250 Hz) sees the epoch mirrored over and over, whose slowest content is the mean itself.
+    times = np.arange(250) / SFREQ
+    waveform = 5e-6 * np.exp(-0.5 * ((times - 0.4) / 0.1) ** 2) + 2e-6
+    filtered, _ = HighPass(cutoff_hz=0.1, allow_short_epochs=True).apply(_signal_epochs(waveform))
+    demeaned = waveform - waveform.mean()
+    # measured: 9.1e-9 V against a 3.7e-6 V peak (0.25 %)
+    assert np.max(np.abs(filtered.data[0, 0] - demeaned)) < 0.005 * np.max(np.abs(demeaned))
+
+
+def test_fir_provenance_records_the_minus_6_db_point_and_the_passband_edge() -> None:
+    _, record = HighPass(cutoff_hz=4.0).apply(random_epoch_set(n_times=1000, sfreq=SFREQ))
+    # transition min(max(0.25 * 4, 2), 4) = 2 Hz, centred on the cutoff: passband from 5 Hz
+    assert record.filter_edges == [FilterEdge(side="low", minus_6db_hz=4.0, passband_edge_hz=5.0)]
+    # Reference: scipy.signal.freqz (Virtanen et al., 2020): at the passband edge the kernel is within a
+    # few hundredths of a dB of unity (Hamming ripple about 0.02 dB, Oppenheim & Schafer, 2010, Table 7.2),
+    # at the cutoff at half amplitude (-6.02 dB; tolerance as in test_fir_design_is_minus_6_db_at_cutoff)
+    _, response = signal.freqz(design_fir("highpass", 4.0, SFREQ), worN=[5.0, 4.0], fs=SFREQ)
+    assert abs(20 * np.log10(abs(response[0]))) < 0.05
+    assert 20 * np.log10(abs(response[1])) == pytest.approx(-6.02, abs=0.15)
+
+
+def test_fir_bandpass_provenance_has_both_edges() -> None:
+    _, record = BandPass(low_hz=1.0, high_hz=30.0).apply(random_epoch_set(n_times=1000, sfreq=SFREQ))
+    # one transition width, that of the lower cutoff: min(max(0.25, 2), 1) = 1 Hz
+    assert record.filter_edges == [
+        FilterEdge(side="low", minus_6db_hz=1.0, passband_edge_hz=1.5),
+        FilterEdge(side="high", minus_6db_hz=30.0, passband_edge_hz=29.5),
+    ]
+
+
+@pytest.mark.parametrize(("step", "band"), [(HighPass, "highpass"), (LowPass, "lowpass")])
+def test_iir_passband_edge_is_where_the_two_pass_butterworth_gain_is_minus_0_02_db(step, band) -> None:
+    cutoff_hz, order = 10.0, 4
+    _, record = step(cutoff_hz=cutoff_hz, method="iir", order=order).apply(random_epoch_set(n_times=500, sfreq=SFREQ))
+    (edge,) = record.filter_edges
+    # Reference: the digital Butterworth response by the bilinear transform (Butterworth, 1930;
+    # Oppenheim & Schafer, 2010, §7.1): one pass |H|^2 = 1 / (1 + (w / wc)^(2N)) with w = tan(pi f / fs)
+    # for a low-pass and (wc / w) for a high-pass; forward and backward square the magnitude again.
+    ratio = np.tan(np.pi * edge.passband_edge_hz / SFREQ) / np.tan(np.pi * cutoff_hz / SFREQ)
+    ratio = ratio if band == "lowpass" else 1 / ratio
+    two_pass_db = 20 * np.log10(1 / (1 + ratio ** (2 * order)))
+    assert edge.minus_6db_hz == cutoff_hz and two_pass_db == pytest.approx(-0.02, abs=1e-6)
+
+
+def _gain_db(kernel: np.ndarray, freqs: list[float]) -> np.ndarray:
+    # Reference: scipy.signal.freqz (Virtanen et al., 2020)
+    _, response = signal.freqz(kernel, worN=freqs, fs=SFREQ)
+    return 20 * np.log10(np.abs(response))
+
+
+@pytest.mark.parametrize(("l_freq", "l_trans"), [(1.0, 1.0), (0.1, 0.1), (8.0, 2.0)])
+def test_mne_l_freq_minus_half_its_transition_is_our_cutoff(l_freq: float, l_trans: float) -> None:
+    mne = pytest.importorskip("mne")
+    # Reference: mne.filter.create_filter (Gramfort et al., 2013, MNE-Python), FIR "firwin" design with
+    # its automatic transition band min(max(0.25 l_freq, 2), l_freq), which l_trans spells out.
+    kernel = mne.filter.create_filter(
+        None, SFREQ, l_freq=l_freq, h_freq=None, fir_design="firwin", phase="zero", verbose=False
+    )
+    ours = l_freq - l_trans / 2
+    mne_db = _gain_db(kernel, [ours, l_freq])
+    # MNE's l_freq is its passband edge (within 0.05 dB of unity); our cutoff is where both kernels are
+    # at half amplitude (-6.02 dB, tolerance as in test_fir_design_is_minus_6_db_at_cutoff).
+    assert mne_db[0] == pytest.approx(-6.02, abs=0.15) and abs(mne_db[1]) < 0.05
+    assert _gain_db(design_fir("highpass", ours, SFREQ), [ours])[0] == pytest.approx(-6.02, abs=0.15)
+
+
+def test_mne_h_freq_plus_half_its_transition_is_our_cutoff() -> None:
+    mne = pytest.importorskip("mne")
+    # Reference: mne.filter.create_filter (Gramfort et al., 2013), low-pass at h_freq = 40 Hz with an explicit
+    # 10 Hz transition band: its -6 dB point is h_freq + 5 Hz.
+    kernel = mne.filter.create_filter(
+        None, SFREQ, l_freq=None, h_freq=40.0, h_trans_bandwidth=10.0, fir_design="firwin", phase="zero", verbose=False
+    )
+    mne_db = _gain_db(kernel, [45.0, 40.0])
+    assert mne_db[0] == pytest.approx(-6.02, abs=0.15) and abs(mne_db[1]) < 0.05
+    assert _gain_db(design_fir("lowpass", 45.0, SFREQ), [45.0])[0] == pytest.approx(-6.02, abs=0.15)

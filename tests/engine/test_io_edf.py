@@ -50,7 +50,7 @@ def test_epochs_equal_the_known_signal_around_each_event(tmp_path, kind):
         ChannelSpec(),
         max_array_bytes=LIMIT,
     )
-    epochs = epoch_recording(source.recording, source.events, source.epoching)
+    epochs = epoch_recording(source.recording, source.runs[0].events, source.epoching)
     starts = [round(onset * known.sfreq) - 20 for onset in known.onset_s]
     expected = np.stack([known.signal_v[:, start : start + 71] for start in starts])
     np.testing.assert_allclose(epochs.data, expected, rtol=0, atol=quantisation_step_v(kind))

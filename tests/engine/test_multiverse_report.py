@@ -1,10 +1,16 @@
 """The ranking, factor-effects and selection parts of a result document."""
 
 import numpy as np
+import pytest
 
 from epoch_assay.engine.document.multiverse import PipelineGroupResult
 from epoch_assay.engine.grid import GridSpec, expand_grid
-from epoch_assay.engine.multiverse_report import factor_effects_document, ranking_document, selection_document
+from epoch_assay.engine.multiverse_report import (
+    exploratory_note,
+    factor_effects_document,
+    ranking_document,
+    selection_document,
+)
 from epoch_assay.engine.selection import ContrastBlindSpec, SplitSpec, TuningHoldoutSpec
 
 GRID = GridSpec(
@@ -64,7 +70,32 @@ def test_factor_effects_that_cannot_be_fitted_say_why():
 def test_selection_by_split_reports_both_sides():
     document = selection_document(RESULTS, NAMES, NAMES[0], TuningHoldoutSpec(split=SplitSpec(fraction=0.5, seed=3)))
     assert len(document.tuning_subjects) == 3 and len(document.holdout_subjects) == 3
-    assert document.winner in NAMES and document.reference_holdout_score is not None
+    assert document.winner in NAMES and document.holdout.reference.mean is not None
+    assert document.reference_holdout_score == document.holdout.reference.mean
+
+
+def test_selection_by_split_reports_tuning_scores_held_out_test_and_optimism():
+    document = selection_document(RESULTS, NAMES, NAMES[0], TuningHoldoutSpec(split=SplitSpec(fraction=0.5, seed=3)))
+    tuning, holdout = document.tuning, document.holdout
+    assert None not in (tuning.winner_score, tuning.reference_score, document.optimism)
+    assert holdout.winner.ci_low is not None and holdout.winner_vs_reference.paired_t_p is not None
+    expected = (tuning.winner_score - tuning.reference_score) - (holdout.winner.mean - holdout.reference.mean)
+    assert document.optimism == pytest.approx(expected)
+
+
+def test_ranking_entries_carry_adjusted_p_and_rank_spread():
+    ranking = ranking_document(RESULTS, NAMES, NAMES[0], "significant_fraction", seed=2)
+    compared = [entry for entry in ranking if entry.vs_reference is not None]
+    assert len(compared) == len(NAMES) - 1
+    assert all(0.0 < entry.vs_reference.p_adjusted <= 1.0 for entry in compared)
+    assert all("max-|t| sign-flip" in entry.vs_reference.adjustment for entry in compared)
+    assert sum(entry.probability_best for entry in ranking) == pytest.approx(1.0)
+
+
+def test_runs_with_a_selection_mark_group_and_ranking_exploratory():
+    note = exploratory_note(TuningHoldoutSpec(split=SplitSpec()))
+    assert note.parts == ["group", "ranking"] and "tuning subjects" in note.reason
+    assert exploratory_note(None) is None
 
 
 def test_contrast_blind_selection_on_trials_kept_picks_the_pipeline_keeping_most():

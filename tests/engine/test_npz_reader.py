@@ -130,7 +130,7 @@ def test_member_with_corrupted_bytes_is_refused(tmp_path: Path) -> None:
     content[offset + 5] ^= 0xFF
     path.write_bytes(bytes(content))
     error = _format_error(path)
-    assert error.field == "file" and "Bad CRC-32" in error.problem
+    assert error.field == "file" and "checksum is damaged" in error.problem  # zipfile found a bad CRC-32
 
 
 def test_member_that_is_not_an_npy_array_is_refused(tmp_path: Path) -> None:
@@ -221,3 +221,28 @@ def test_malformed_field_is_refused_with_its_name(tmp_path: Path, changes: dict,
     assert error.field == field
     assert fragment in error.problem
     assert error.fix
+
+
+def test_per_trial_arrays_are_kept_with_the_trials_and_written_back(tmp_path: Path) -> None:
+    onsets = np.arange(N_TRIALS) * 1.5
+    ids = np.array([f"t{i:03d}" for i in range(N_TRIALS)])
+    epochs = read_npz(_save(tmp_path, trial_onset_s=onsets, trial_id=ids), max_array_bytes=LIMIT_BYTES)
+    np.testing.assert_array_equal(epochs.trial_arrays["trial_onset_s"], onsets)
+    written = tmp_path / "again.npz"
+    write_npz(epochs, written)
+    np.testing.assert_array_equal(read_npz(written, max_array_bytes=LIMIT_BYTES).trial_arrays["trial_id"], ids)
+
+
+def test_a_per_trial_array_of_the_wrong_length_is_refused(tmp_path: Path) -> None:
+    error = _format_error(_save(tmp_path, trial_rt_s=np.ones(N_TRIALS + 1)))
+    assert error.field == "trial_rt_s" and f"({N_TRIALS} entries)" in error.fix
+
+
+def test_repeated_trial_ids_are_refused(tmp_path: Path) -> None:
+    error = _format_error(_save(tmp_path, trial_id=np.zeros(N_TRIALS, dtype=int)))
+    assert error.field == "trial_id" and "more than once" in error.problem
+
+
+def test_an_unknown_key_is_refused_with_the_accepted_keys_and_the_trial_prefix(tmp_path: Path) -> None:
+    error = _format_error(_save(tmp_path, onsets=np.arange(N_TRIALS)))
+    assert "trial_<name>" in error.fix and "ch_types" in error.fix

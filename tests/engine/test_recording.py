@@ -14,6 +14,7 @@ from epoch_assay.engine.recording import (
     ChannelSpec,
     ContinuousInput,
     EpochingSpec,
+    RecordingRun,
     apply_channel_spec,
     apply_two_stage,
     epoch_recording,
@@ -42,6 +43,10 @@ def _events(onsets_s: list[float]):
     )
 
 
+def _one_run(recording: EpochSet, events) -> ContinuousInput:
+    return ContinuousInput(runs=(RecordingRun(recording, events, FileFormat.EDF, "events.tsv"),), epoching=EPOCHING)
+
+
 def _noise(seconds: float = 30.0, n_channels: int = 3) -> np.ndarray:
     return np.random.default_rng(4).normal(0, 1e-5, (n_channels, int(seconds * SFREQ)))
 
@@ -50,7 +55,7 @@ def test_epochs_from_the_recording_agree_with_an_npz_cut_by_hand_when_nothing_is
     # Reference: plain array slicing of the known signal, written and read back as an NPZ file.
     signal = _noise()
     onsets = [2.0 + 1.5 * i for i in range(12)]
-    source = ContinuousInput(_recording(signal), _events(onsets), EPOCHING, FileFormat.EDF)
+    source = _one_run(_recording(signal), _events(onsets))
     pipeline = PipelineSpec(name="baseline only", steps=[{"step": "baseline", "window_s": [-0.2, 0.0]}])
     from_recording, _ = apply_two_stage(pipeline, source)
 
@@ -79,12 +84,14 @@ def test_a_low_high_pass_on_the_recording_removes_drift_without_edge_effects_whe
     wanted = 5e-6 * np.sin(2 * np.pi * 10.0 * times)
     drift = 100e-6 * np.sin(2 * np.pi * 0.01 * times)
     onsets = [30.0 + 2.0 * i for i in range(20)]
-    source = ContinuousInput(_recording(np.tile(wanted + drift, (2, 1))), _events(onsets), EPOCHING, FileFormat.EDF)
+    source = _one_run(_recording(np.tile(wanted + drift, (2, 1))), _events(onsets))
     pipeline = PipelineSpec(name="hp", steps=[{"step": "highpass", "cutoff_hz": 0.1}])
 
     continuous, continuous_records = apply_two_stage(pipeline, source)
-    epoched, epoch_records = apply_pipeline(pipeline, epoch_recording(source.recording, source.events, EPOCHING))
-    expected = epoch_recording(_recording(np.tile(wanted, (2, 1))), source.events, EPOCHING).data
+    epoched, epoch_records = apply_pipeline(
+        pipeline, epoch_recording(source.recording, source.runs[0].events, EPOCHING)
+    )
+    expected = epoch_recording(_recording(np.tile(wanted, (2, 1))), source.runs[0].events, EPOCHING).data
 
     assert continuous_records[0].warnings == [] and epoch_records[0].warnings
     continuous_error = np.abs(continuous.data - expected).max()
@@ -94,9 +101,7 @@ def test_a_low_high_pass_on_the_recording_removes_drift_without_edge_effects_whe
 
 
 def test_continuous_steps_run_first_and_each_stage_keeps_the_written_order():
-    source = ContinuousInput(
-        _recording(_noise()), _events([2.0 + 1.5 * i for i in range(10)]), EPOCHING, FileFormat.EDF
-    )
+    source = _one_run(_recording(_noise()), _events([2.0 + 1.5 * i for i in range(10)]))
     pipeline = PipelineSpec(
         name="mixed",
         steps=[

@@ -12,6 +12,7 @@ from epoch_assay.engine.errors import SpecError
 from epoch_assay.engine.scoring import score_epochs
 from epoch_assay.engine.scoring_spec import BootstrapSpec, ScoringSpec, TimeCourseSpec
 from epoch_assay.engine.stats import (
+    bootstrap_mean_welch_t,
     bootstrap_significant_fraction,
     hedges_g,
     standardized_measurement_error,
@@ -47,8 +48,9 @@ def test_channel_p_values_equal_scipy_on_the_window_means(epochs):
     means = explicit_window_means(epochs, 75, 125)[:, :6]
     # Reference: scipy.stats.ttest_ind(equal_var=False) (Virtanen et al., 2020, SciPy 1.0)
     expected = stats.ttest_ind(means[epochs.labels == "dev"], means[epochs.labels == "std"], equal_var=False)
-    np.testing.assert_allclose([c.t for c in score.channels], expected.statistic, rtol=1e-10)
+    np.testing.assert_allclose([c.statistic for c in score.channels], expected.statistic, rtol=1e-10)
     np.testing.assert_allclose([c.p for c in score.channels], expected.pvalue, rtol=1e-8)
+    assert score.statistic_name == "welch_t"
 
 
 def test_adjusted_p_values_equal_statsmodels(epochs):
@@ -87,7 +89,7 @@ def test_n_trials_counts_each_condition(epochs):
     assert score_epochs(fewer, SPEC).n_trials == {"dev": 30, "std": 25}
 
 
-def test_bootstrap_summary_equals_bootstrap_of_scored_window_means(epochs):
+def test_fixed_mode_reports_subset_mean_spread_and_share_of_trials_used(epochs):
     score = score_epochs(epochs, WITH_BOOTSTRAP)
     means = explicit_window_means(epochs, 75, 125)[:, :6]
     direct = bootstrap_significant_fraction(
@@ -100,8 +102,64 @@ def test_bootstrap_summary_equals_bootstrap_of_scored_window_means(epochs):
         correction="fdr_bh",
     )
     summary = score.bootstrap
-    assert (summary.median, summary.ci_low, summary.ci_high) == (direct.median, direct.ci_low, direct.ci_high)
+    assert (summary.subset_mean, summary.spread_low, summary.spread_high) == (
+        direct.mean,
+        direct.percentile_low,
+        direct.percentile_high,
+    )
     assert (summary.resamples, summary.trials_per_condition) == (100, 20)
+    # 20 of the 30 trials kept in each condition
+    assert summary.share_of_trials_used == {"dev": 20 / 30, "std": 20 / 30}
+
+
+def test_fixed_mode_json_has_no_field_called_an_interval(epochs):
+    document = score_epochs(epochs, WITH_BOOTSTRAP).model_dump(mode="json")["bootstrap"]
+    assert not any(key.startswith("ci") for key in document)
+    assert {"subset_mean", "spread_low", "spread_high", "share_of_trials_used"} <= set(document)
+
+
+def test_all_mode_reports_the_percentile_interval_of_the_fraction(epochs):
+    spec = SPEC.model_copy(update={"bootstrap": BootstrapSpec(mode="all", resamples=100, seed=3)})
+    document = score_epochs(epochs, spec).model_dump(mode="json")["bootstrap"]
+    dev, std = dev_std_means(epochs)
+    direct = bootstrap_significant_fraction(
+        dev, std, mode="all", resamples=100, seed=3, alpha=0.05, correction="fdr_bh"
+    )
+    assert (document["ci_low"], document["ci_high"], document["ci"]) == (
+        direct.percentile_low,
+        direct.percentile_high,
+        "percentile",
+    )
+    assert document["trials_drawn"] == {"dev": 30, "std": 30}
+
+
+def test_mean_welch_t_is_the_mean_of_scipy_welch_t_over_scored_channels(epochs):
+    score = score_epochs(epochs, SPEC)
+    dev, std = dev_std_means(epochs)
+    # Reference: scipy.stats.ttest_ind(equal_var=False) (Virtanen et al., 2020, SciPy 1.0), averaged over channels
+    expected = stats.ttest_ind(dev, std, equal_var=False).statistic.mean()
+    assert score.mean_welch_t.value == pytest.approx(expected, rel=1e-10)
+    assert score.mean_welch_t.n_channels == 6 and score.mean_welch_t.resamples == 0
+
+
+def test_mean_welch_t_over_named_channels_averages_only_those(epochs):
+    score = score_epochs(epochs, SPEC.model_copy(update={"mean_t_channels": ("E1", "E2", "absent")}))
+    dev, std = dev_std_means(epochs)
+    # Reference: scipy.stats.ttest_ind(equal_var=False) (Virtanen et al., 2020), channels E1 and E2
+    expected = stats.ttest_ind(dev[:, :2], std[:, :2], equal_var=False).statistic.mean()
+    assert score.mean_welch_t.value == pytest.approx(expected, rel=1e-10) and score.mean_welch_t.n_channels == 2
+
+
+def test_mean_welch_t_interval_comes_from_resampling_trials_with_replacement(epochs):
+    mean_t = score_epochs(epochs, WITH_BOOTSTRAP).mean_welch_t
+    direct = bootstrap_mean_welch_t(*dev_std_means(epochs), resamples=100, seed=3)
+    assert (mean_t.ci_low, mean_t.ci_high, mean_t.resamples) == (direct.ci_low, direct.ci_high, 100)
+
+
+def test_mean_t_channels_none_of_which_exist_is_a_spec_error(epochs):
+    with pytest.raises(SpecError) as caught:
+        score_epochs(epochs, SPEC.model_copy(update={"mean_t_channels": ("Oz",)}))
+    assert caught.value.loc == ("scoring", "mean_t_channels")
 
 
 def test_no_bootstrap_spec_gives_no_bootstrap(epochs):
@@ -114,9 +172,10 @@ def test_undefined_statistics_are_null_in_the_json_form(epochs):
     score = score_epochs(epochs.with_changes(data=flat), WITH_BOOTSTRAP)
     decoded = json.loads(json.dumps(score.model_dump(mode="json"), allow_nan=False))
     flat_channel = decoded["channels"][3]
-    assert {key: flat_channel[key] for key in ("name", "t", "p", "p_adjusted", "significant", "hedges_g")} == {
+    keys = ("name", "statistic", "p", "p_adjusted", "significant", "hedges_g")
+    assert {key: flat_channel[key] for key in keys} == {
         "name": "E4",
-        "t": None,
+        "statistic": None,
         "p": None,
         "p_adjusted": None,
         "significant": False,
@@ -201,14 +260,15 @@ def test_other_tests_match_scipy_on_the_window_means(epochs, test):
     score = score_epochs(epochs, SPEC.model_copy(update={"test": test}))
     dev, std = dev_std_means(epochs)
     # Reference: scipy.stats.ttest_ind(equal_var=True) / mannwhitneyu(method="asymptotic") (Virtanen et al., 2020);
-    # for mann_whitney the channel's t carries U.
+    # for mann_whitney the channel statistic is U, named mann_whitney_u.
     expected = (
         stats.ttest_ind(dev, std, equal_var=True)
         if test == "student"
         else stats.mannwhitneyu(dev, std, method="asymptotic", axis=0)
     )
-    np.testing.assert_allclose([c.t for c in score.channels], expected.statistic, rtol=1e-10)
+    np.testing.assert_allclose([c.statistic for c in score.channels], expected.statistic, rtol=1e-10)
     np.testing.assert_allclose([c.p for c in score.channels], expected.pvalue, rtol=1e-8)
+    assert score.statistic_name == {"student": "student_t", "mann_whitney": "mann_whitney_u"}[test]
 
 
 def test_permutation_max_stat_adjusted_p_is_at_least_the_channel_p(epochs):
@@ -216,6 +276,7 @@ def test_permutation_max_stat_adjusted_p_is_at_least_the_channel_p(epochs):
     score = score_epochs(epochs, spec)
     assert all(c.p_adjusted >= c.p for c in score.channels)
     assert [c.significant for c in score.channels] == [True, True, True, False, False, False]
+    assert score.statistic_name == "welch_t_permutation"
 
 
 def test_max_stat_without_permutation_is_refused():
@@ -228,9 +289,10 @@ def test_bootstrap_with_permutation_test_is_refused():
         ScoringSpec(conditions=("dev", "std"), window_s=(0.2, 0.4), test="permutation", bootstrap=BootstrapSpec())
 
 
-def test_bca_with_fixed_mode_is_refused():
-    with pytest.raises(pydantic.ValidationError, match="ci 'bca' needs mode 'all'"):
-        BootstrapSpec(mode="fixed", ci="bca")
+@pytest.mark.parametrize("mode", ["fixed", "equalized", "all"])
+def test_bca_on_the_significant_fraction_is_refused_saying_why(mode):
+    with pytest.raises(pydantic.ValidationError, match="step function"):
+        BootstrapSpec(mode=mode, ci="bca")
 
 
 @pytest.mark.parametrize("mode", ["equalized", "all"])
@@ -238,8 +300,12 @@ def test_modes_other_than_fixed_accept_fewer_trials_than_trials_per_condition(ep
     kept = np.r_[np.arange(15), np.arange(30, 60)]
     fewer = epochs.with_changes(data=epochs.data[kept], labels=epochs.labels[kept])
     spec = SPEC.model_copy(update={"bootstrap": BootstrapSpec(mode=mode, trials_per_condition=20, resamples=50)})
-    summary = score_epochs(fewer, spec).bootstrap
-    assert summary.trials_drawn == ({"dev": 15, "std": 15} if mode == "equalized" else {"dev": 30, "std": 15})
+    summary = score_epochs(fewer, spec).bootstrap.model_dump(mode="json")
+    if mode == "equalized":
+        assert summary["trials_per_condition"] == 15
+        assert summary["share_of_trials_used"] == {"dev": 0.5, "std": 1.0}
+    else:
+        assert summary["trials_drawn"] == {"dev": 30, "std": 15}
 
 
 def test_uploaded_fraction_counts_dropped_and_flagged_channels_as_not_significant(epochs):

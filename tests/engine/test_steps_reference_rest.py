@@ -78,7 +78,7 @@ def test_rest_refused_when_channels_have_no_position(subject: EpochSet) -> None:
 def test_none_reference_leaves_data_unchanged(subject: EpochSet) -> None:
     referenced, record = Reference(kind="none").apply(subject)
     np.testing.assert_array_equal(referenced.data, subject.data)
-    assert record.step == "reference" and record.params["kind"] == "none"
+    assert record.step == "reference" and record.params.kind == "none"
 
 
 def test_channel_reference_dropped_earlier_is_refused_at_apply(subject: EpochSet) -> None:

@@ -80,3 +80,15 @@ def test_high_frequency_criterion_without_bandwidth_is_refused() -> None:
     with pytest.raises(SpecError) as error:
         TrialRejection(criteria=TrialCriteria(high_frequency_z=5.0)).check(meta)
     assert error.value.loc == ("criteria", "high_frequency_z")
+
+
+def test_the_ids_of_removed_trials_are_recorded_when_the_upload_named_its_trials() -> None:
+    epochs = _with_artifacts()
+    ids = np.array([f"trial-{i}" for i in range(epochs.n_trials)])
+    kept, record = TrialRejection(criteria=TrialCriteria(peak_to_peak_uv=150.0)).apply(
+        epochs.with_changes(trial_arrays={"trial_id": ids})
+    )
+    # Reference: numpy.ptp over each trial and channel (Harris et al., 2020, NumPy), as above.
+    rejected = _peak_to_peak_rejects(epochs, 150.0)
+    assert record.trials_removed_ids == ids[rejected].tolist()
+    assert kept.trial_arrays["trial_id"].tolist() == np.delete(ids, rejected).tolist()

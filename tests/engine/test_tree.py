@@ -3,10 +3,13 @@
 import numpy as np
 import pytest
 
+from epoch_assay.engine import provenance
 from epoch_assay.engine.epochs import EpochSet
 from epoch_assay.engine.grid import GridSpec, expand_grid
 from epoch_assay.engine.pipeline import PipelineSpec, apply_pipeline
 from epoch_assay.engine.steps.base import Step
+from epoch_assay.engine.steps.baseline import Baseline
+from epoch_assay.engine.steps.ica import Ica
 from epoch_assay.engine.tree import StepOutput, build_tree, execute_tree, prefix_cache_key
 
 SHA = "0" * 64
@@ -106,3 +109,45 @@ def test_cache_key_depends_on_source_prefix_and_order():
     assert key != prefix_cache_key(SHA, steps[:-1])
     assert key != prefix_cache_key(SHA, steps[::-1])
     assert key == prefix_cache_key(SHA, list(steps))
+
+
+def test_a_new_version_of_a_package_misses_every_cached_step(epochs, monkeypatch):
+    cache = DictCache()
+    tree = build_tree(grid_pipelines())
+    list(execute_tree(tree, epochs, SHA, cache))
+    installed = provenance.installed_version
+    monkeypatch.setattr(provenance, "installed_version", lambda name: "99.0" if name == "scipy" else installed(name))
+    list(execute_tree(tree, epochs, SHA, cache))
+    assert cache.hits == 0 and len(cache.store) == 2 * tree.count_steps()
+
+
+def test_a_new_step_version_misses_only_the_prefixes_that_contain_the_step(epochs, monkeypatch):
+    tree = build_tree(grid_pipelines())
+    prefixes = [pipeline.steps[:n] for pipeline in grid_pipelines() for n in range(1, len(pipeline.steps) + 1)]
+    keys_before = {prefix_cache_key(SHA, prefix) for prefix in prefixes}
+    cache = DictCache()
+    list(execute_tree(tree, epochs, SHA, cache))
+    monkeypatch.setattr(Baseline, "version", Baseline.version + 1)
+    with_baseline = [prefix for prefix in prefixes if any(isinstance(step, Baseline) for step in prefix)]
+    assert {prefix_cache_key(SHA, prefix) for prefix in with_baseline}.isdisjoint(keys_before)
+    list(execute_tree(tree, epochs, SHA, cache))
+    # 11 nodes: the 6 baseline nodes are computed anew, the 2 high-pass and 3 reference nodes come from the cache
+    assert cache.hits == 5 and len(cache.store) == tree.count_steps() + 6
+
+
+def test_record_names_the_step_version_that_made_it(epochs, monkeypatch):
+    monkeypatch.setattr(Baseline, "version", 7)
+    pipeline = PipelineSpec.model_validate({"name": "p", "steps": [{"step": "baseline", "window_s": [-0.1, 0.0]}]})
+    (leaf,) = execute_tree(build_tree([pipeline]), epochs, SHA)
+    assert leaf.records[0].version == 7
+
+
+def test_scikit_learn_is_in_the_key_of_fastica_only(monkeypatch):
+    fastica, infomax = Ica(method="fastica"), Ica(method="infomax")
+    before = prefix_cache_key(SHA, [fastica]), prefix_cache_key(SHA, [infomax])
+    installed = provenance.installed_version
+    monkeypatch.setattr(
+        provenance, "installed_version", lambda name: "99.0" if name == "scikit-learn" else installed(name)
+    )
+    assert prefix_cache_key(SHA, [fastica]) != before[0]
+    assert prefix_cache_key(SHA, [infomax]) == before[1]

@@ -157,6 +157,8 @@ class LiveService:
             stop(self.api)
 
 
+# For servers whose webhooks go to a receiver on this machine (tests/support/receiver.py).
+LOOPBACK_NETWORK = "127.0.0.0/8"
 # Short waits so retries and redeliveries happen within a test.
 TEST_SETTINGS = {
     "LOG_LEVEL": "WARNING",

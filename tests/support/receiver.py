@@ -13,10 +13,15 @@ class Received:
 
 
 class Receiver:
-    """Answers the first ``fail_first`` POSTs with 500 and the rest with 200, keeping every one."""
+    """Answers the first ``fail_first`` POSTs with 500 and the rest with 200, keeping every one.
 
-    def __init__(self, port: int = 0, fail_first: int = 0) -> None:
+    With ``hold``, each request is kept (and counted in ``received``) but answered only once
+    ``hold`` is set: a receiver as slow as the test wants.
+    """
+
+    def __init__(self, port: int = 0, fail_first: int = 0, hold: threading.Event | None = None) -> None:
         self.fail_first = fail_first
+        self.hold = hold
         self.received: list[Received] = []
         self._lock = threading.Lock()
         receiver = self
@@ -29,6 +34,8 @@ class Receiver:
                         Received(headers={k.lower(): v for k, v in self.headers.items()}, body=body)
                     )
                     failing = len(receiver.received) <= receiver.fail_first
+                if receiver.hold is not None:
+                    receiver.hold.wait(timeout=120.0)
                 self.send_response(500 if failing else 200)
                 self.send_header("Content-Length", "0")
                 self.end_headers()
@@ -48,6 +55,8 @@ class Receiver:
         return self
 
     def __exit__(self, *_exc: object) -> None:
+        if self.hold is not None:
+            self.hold.set()
         self._server.shutdown()
         self._server.server_close()
         self._thread.join()

@@ -81,6 +81,13 @@ def test_selection_with_tuning_subjects_is_reported():
     )
 
 
+def test_a_run_with_a_selection_marks_group_and_ranking_exploratory():
+    selection = {"rule": "tuning_holdout", "tuning_subjects": ["sub-0", "sub-1"], "metric": "significant_fraction"}
+    note = grid_run(selection=selection).exploratory
+    assert note is not None and note.parts == ["group", "ranking"]
+    assert grid_run().exploratory is None
+
+
 def test_progress_detail_counts_units_and_gives_an_eta():
     details = []
     execute_run(

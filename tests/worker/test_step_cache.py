@@ -5,16 +5,20 @@ import os
 import numpy as np
 import pytest
 
-from epoch_assay.engine.provenance import ComponentRemoved, StepRecord
+from epoch_assay.engine.provenance import StepProvenanceBase
+from epoch_assay.engine.steps.baseline import Baseline
+from epoch_assay.engine.steps.ica import ComponentRemoved, Ica
 from epoch_assay.engine.tree import StepOutput
 from tests.engine.conftest import random_epoch_set
+from tests.support.step_cases import STEP_CASES, applied_case
 from worker.execution.step_cache import DiskStepCache
 
 
-def output(seed: int, **record_fields) -> StepOutput:
+def output(seed: int, record: StepProvenanceBase | None = None, seconds: float = 0.0) -> StepOutput:
     epochs = random_epoch_set(n_trials=4, n_channels=3, n_times=20, seed=seed, bads=frozenset({"E1"}))
     epochs = epochs.with_changes(positions=np.arange(9.0).reshape(3, 3))
-    record = StepRecord(step="baseline", params={"window_s": [-0.1, 0.0]}, **record_fields)
+    record = record or Baseline(window_s=(-0.1, 0.0)).record()
+    record.seconds = seconds
     return StepOutput(epochs=epochs, record=record)
 
 
@@ -30,7 +34,8 @@ def entry_bytes(tmp_path) -> int:
 
 def test_entry_round_trips_arrays_metadata_and_record(tmp_path):
     cache = DiskStepCache(tmp_path, max_bytes=10**9)
-    stored = output(1, warnings=["w"], components_removed=[ComponentRemoved(index=2, kind="eye", score=0.9)])
+    record = Ica().record(warnings=["w"], components_removed=[ComponentRemoved(index=2, kind="ocular", score=0.9)])
+    stored = output(1, record)
     cache.put(key(1), stored)
     loaded = cache.get(key(1))
     assert loaded is not None
@@ -110,3 +115,36 @@ def test_no_temporary_files_are_left_after_a_put(tmp_path):
 def test_keys_that_are_not_digests_are_refused(tmp_path):
     with pytest.raises(ValueError):
         DiskStepCache(tmp_path, max_bytes=10**9).get("../escape")
+
+
+@pytest.mark.parametrize("index", [pytest.param(i, id=case.id) for i, case in enumerate(STEP_CASES)])
+def test_every_registered_steps_output_round_trips_through_the_disk(tmp_path, index):
+    applied = applied_case(index)
+    cache = DiskStepCache(tmp_path, max_bytes=10**9)
+    cache.put(key(index), StepOutput(epochs=applied.output, record=applied.record))
+    loaded = cache.get(key(index))
+    assert loaded is not None
+    assert loaded.record == applied.record and type(loaded.record) is type(applied.record)
+    np.testing.assert_array_equal(loaded.epochs.data, applied.output.data)
+    assert loaded.epochs.meta() == applied.output.meta()
+
+
+def test_an_entry_whose_record_no_step_has_is_a_miss(tmp_path):
+    cache = DiskStepCache(tmp_path, max_bytes=10**9)
+    cache.put(key(1), output(1))
+    path = tmp_path / f"{key(1)}.npz"
+    with np.load(path) as archive:
+        arrays = {name: archive[name] for name in archive.files}
+    arrays["record"] = np.array('{"step": "no_such_step", "version": 1, "params": {}}')
+    with path.open("wb") as stream:
+        np.savez(stream, **arrays)
+    assert cache.get(key(1)) is None and not path.exists()
+
+
+def test_an_entry_keeps_the_per_trial_arrays(tmp_path):
+    cache = DiskStepCache(tmp_path, max_bytes=10**9)
+    stored = output(3)
+    ids = np.array([f"t{i}" for i in range(stored.epochs.n_trials)])
+    stored = StepOutput(epochs=stored.epochs.with_changes(trial_arrays={"trial_id": ids}), record=stored.record)
+    cache.put(key(3), stored)
+    assert cache.get(key(3)).epochs.trial_arrays["trial_id"].tolist() == ids.tolist()

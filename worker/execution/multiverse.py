@@ -16,6 +16,7 @@ from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any, Generic, TypeVar
 
+from epoch_assay.engine.document import ResultEntry
 from epoch_assay.engine.epochs import EpochSet
 from epoch_assay.engine.pipeline import PipelineSpec
 from epoch_assay.engine.tree import LeafOutput, PipelineTree, build_tree, execute_tree
@@ -23,7 +24,7 @@ from worker.execution.parallel import Progress, SharedInputUnit, Unit, run_units
 from worker.execution.step_cache import CacheStats, DiskStepCache
 
 Source = TypeVar("Source")
-Entry = dict[str, Any]
+Entry = ResultEntry
 GIB = 1024**3
 
 

@@ -1,9 +1,10 @@
 """On-disk cache of step outputs, addressed by content, bounded in size, least recently used out first.
 
 Each entry is one uncompressed NumPy ``.npz`` file named after its key (see
-:func:`epoch_assay.engine.tree.prefix_cache_key`) holding the output epoch set's arrays and the
-step's provenance record as JSON; it is read back with ``allow_pickle=False``, so an entry
-can never run code. An entry is written to a temporary file and renamed into place, so a
+:func:`epoch_assay.engine.tree.prefix_cache_key`: the input, the steps, their versions and the
+versions of the packages they use) holding the output epoch set's arrays and the step's
+provenance record as JSON. It is read back with ``allow_pickle=False`` and the record is
+validated into its step's typed model, so an entry can never run code. An entry is written to a temporary file and renamed into place, so a
 reader (in this or another worker process) sees a whole entry or none. The file's
 modification time is its last use: a hit touches it, and when the entries together exceed
 ``max_bytes`` the oldest are deleted. An unreadable entry counts as a miss and is removed.
@@ -14,22 +15,25 @@ costly ones (filters, ICA) out of the size bound. So an output is stored only wh
 took at least ``min_step_seconds``; with 0 every output is stored.
 """
 
-import json
 import os
 import tempfile
 import time
 import zipfile
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import numpy as np
+from pydantic import TypeAdapter
 
-from epoch_assay.engine.epochs import EpochSet
-from epoch_assay.engine.provenance import ComponentRemoved, StepRecord
+from epoch_assay.engine.epochs import TRIAL_ARRAY_PREFIX, EpochSet
+from epoch_assay.engine.steps import StepProvenance
 from epoch_assay.engine.tree import StepOutput
 
 ENTRY_SUFFIX = ".npz"
+# pydantic's ValidationError is a ValueError: a record of a shape no step has now is a miss.
 _UNREADABLE = (OSError, ValueError, KeyError, TypeError, zipfile.BadZipFile)
+_RECORD = TypeAdapter(StepProvenance)
 
 
 @dataclass(frozen=True)
@@ -41,9 +45,6 @@ class CacheStats:
 
     def __add__(self, other: "CacheStats") -> "CacheStats":
         return CacheStats(hits=self.hits + other.hits, misses=self.misses + other.misses)
-
-    def to_json(self) -> dict[str, int]:
-        return {"hits": self.hits, "misses": self.misses}
 
 
 class DiskStepCache:
@@ -84,7 +85,7 @@ class DiskStepCache:
     def put(self, key: str, output: StepOutput) -> None:
         if output.record.seconds < self.min_step_seconds:
             return
-        arrays = _arrays_from_output(output)
+        arrays: dict[str, Any] = _arrays_from_output(output)  # Any: savez takes the names as keywords
         if sum(array.nbytes for array in arrays.values()) > self.max_bytes:
             return
         handle, temporary = tempfile.mkstemp(dir=self.folder, prefix=f".{key}.", suffix=".tmp")
@@ -144,11 +145,11 @@ def _arrays_from_output(output: StepOutput) -> dict[str, np.ndarray]:
         "ch_types": np.array(epochs.ch_types, dtype=str),
         "labels": np.asarray(epochs.labels, dtype=str),
         "bads": np.array(sorted(epochs.bads), dtype=str),
-        "record": np.array(json.dumps(output.record.to_json())),
+        "record": np.array(output.record.model_dump_json()),
     }
     if epochs.positions is not None:
         arrays["positions"] = epochs.positions
-    return arrays
+    return arrays | epochs.trial_arrays
 
 
 def _output_from_arrays(arrays: dict[str, np.ndarray]) -> StepOutput:
@@ -161,7 +162,6 @@ def _output_from_arrays(arrays: dict[str, np.ndarray]) -> StepOutput:
         labels=arrays["labels"],
         positions=arrays.get("positions"),
         bads=frozenset(arrays["bads"].tolist()),
+        trial_arrays={key: array for key, array in arrays.items() if key.startswith(TRIAL_ARRAY_PREFIX)},
     )
-    fields = json.loads(str(arrays["record"]))
-    fields["components_removed"] = [ComponentRemoved(**item) for item in fields["components_removed"]]
-    return StepOutput(epochs=epochs, record=StepRecord(**fields))
+    return StepOutput(epochs=epochs, record=_RECORD.validate_json(str(arrays["record"])))

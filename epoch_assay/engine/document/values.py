@@ -1,19 +1,20 @@
 """Value types shared by the result document's models."""
 
 import math
+import numbers
 from typing import Annotated
 
 from pydantic import BaseModel, BeforeValidator, ConfigDict, Field
 
 
 def _finite_or_none(value: object) -> object:
-    """NaN and infinities, which JSON cannot carry, become None; numpy scalars become floats."""
-    if value is None or isinstance(value, bool):
+    """NaN and infinities, which JSON cannot carry, become None; numpy scalars become floats.
+
+    Anything but a real number is passed on for pydantic to accept or reject as a float.
+    """
+    if isinstance(value, bool) or not isinstance(value, numbers.Real):
         return value
-    try:
-        number = float(value)  # type: ignore[arg-type]
-    except (TypeError, ValueError):
-        return value  # left for pydantic to reject with its own message
+    number = float(value)
     return number if math.isfinite(number) else None
 
 

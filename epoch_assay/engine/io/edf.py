@@ -5,11 +5,8 @@ file is refused cheaply: a declared size beyond the memory limit, a file shorter
 header promises (truncated), or data signals sampled at different rates. The signals are
 then read with ``mne.io.read_raw_edf`` / ``read_raw_bdf`` (which scales them by each
 signal's physical dimension to V), with channel types taken from label prefixes such as
-``EEG Fz`` or ``EOG L`` (the prefix is dropped from the name). Types other than ``eeg``,
-``eog`` and ``stim`` are read as ``misc``.
-
-A recording is an :class:`EpochSet` with one trial spanning the whole file: ``tmin`` 0,
-label ``RECORDING_LABEL``.
+``EEG Fz`` or ``EOG L`` (the prefix is dropped from the name), and a channel named ``Status``
+read as a trigger channel (see :mod:`epoch_assay.engine.io.raw_mne` for what is kept).
 """
 
 import math
@@ -17,16 +14,11 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import mne
-import numpy as np
 
-from epoch_assay.engine.epochs import EpochSet
 from epoch_assay.engine.errors import EpochSetFormatError, EpochSetTooLargeError
 from epoch_assay.engine.io.detect import FileFormat, named_for_reader
-from epoch_assay.engine.io.events import Events, events_from_lists
-from epoch_assay.engine.io.npz import epoch_set_from_arrays
+from epoch_assay.engine.io.raw_mne import ContinuousFile, continuous_from_raw
 
-RECORDING_LABEL = "recording"
-KEPT_CHANNEL_TYPES = ("eeg", "eog", "stim")
 ANNOTATION_LABELS = ("EDF Annotations", "BDF Annotations")
 BYTES_PER_SAMPLE = {FileFormat.EDF: 2, FileFormat.BDF: 3}
 MAX_SIGNALS = 1024
@@ -60,19 +52,6 @@ class EdfHeader:
 
     def data_signals(self) -> list[int]:
         return [i for i, label in enumerate(self.labels) if label not in ANNOTATION_LABELS]
-
-
-@dataclass(frozen=True)
-class ContinuousFile:
-    """A continuous recording read from a file.
-
-    recording : one trial, data shape (1, n_channels, n_samples), in V, tmin 0 s
-    annotations : the file's annotations (EDF+/BDF+), possibly none
-    """
-
-    recording: EpochSet
-    annotations: Events
-    file_format: FileFormat
 
 
 def read_header(path: Path, file_format: FileFormat) -> EdfHeader:
@@ -145,24 +124,7 @@ def check_header(header: EdfHeader, max_array_bytes: int) -> None:
 def read_continuous(path: Path, file_format: FileFormat, *, max_array_bytes: int) -> ContinuousFile:
     """Read an EDF/EDF+ or BDF/BDF+ recording with its annotations (see the module docstring)."""
     check_header(read_header(path, file_format), max_array_bytes)
-    raw = _read_raw(path, file_format)
-    data = raw.get_data()[np.newaxis]
-    recording = epoch_set_from_arrays(
-        {
-            "data": data,
-            "sfreq": np.array(raw.info["sfreq"], dtype=np.float64),
-            "tmin": np.array(0.0, dtype=np.float64),
-            "ch_names": np.array(raw.ch_names, dtype=str),
-            "labels": np.array([RECORDING_LABEL]),
-            "ch_types": np.array(
-                [kind if kind in KEPT_CHANNEL_TYPES else "misc" for kind in raw.get_channel_types()], dtype=str
-            ),
-        }
-    )
-    annotations = events_from_lists(
-        list(raw.annotations.onset), list(raw.annotations.duration), list(raw.annotations.description)
-    )
-    return ContinuousFile(recording=recording, annotations=annotations, file_format=file_format)
+    return continuous_from_raw(_read_raw(path, file_format), file_format)
 
 
 def _read_raw(path: Path, file_format: FileFormat) -> mne.io.BaseRaw:
@@ -172,9 +134,10 @@ def _read_raw(path: Path, file_format: FileFormat) -> mne.io.BaseRaw:
         # many ways (value, index, struct, OS errors...): each means "not a readable recording".
         try:
             return reader(named, preload=True, infer_types=True, verbose="error")
-        except Exception as error:
+        except Exception:
+            # MNE's message is not passed on: it names server paths.
             raise EpochSetFormatError(
-                "file", f"MNE cannot read the recording ({type(error).__name__}: {error})", _EXPORT_AGAIN
+                "file", "the recording's data cannot be read: the file is damaged or ends early", _EXPORT_AGAIN
             ) from None
 
 

@@ -17,17 +17,18 @@ from pathlib import Path
 import numpy as np
 
 from epoch_assay.engine.errors import EpochSetFormatError
+from epoch_assay.engine.io.tsv import MAX_TSV_ROWS, MISSING, read_tsv
 
-# common practice: an events file of a few hours holds thousands of rows, not millions
-MAX_EVENTS_FILE_BYTES = 16 * 1024 * 1024
-MAX_EVENTS = 200_000
 REQUIRED_COLUMNS = ("onset", "duration")
 VALUE_COLUMNS = ("trial_type", "value")
-_MISSING = "n/a"
 _EVENTS_FIX = (
     "Give a tab-separated events.tsv with a header line naming onset, duration and trial_type, "
     "and one row per event (onset and duration in s)"
 )
+
+
+# An events.tsv and a file's annotations are bounded alike.
+MAX_EVENTS = MAX_TSV_ROWS
 
 
 @dataclass(frozen=True)
@@ -54,7 +55,13 @@ class Events:
 
 
 def events_from_lists(onset_s: list[float], duration_s: list[float], values: list[str]) -> Events:
-    """Events from parallel lists (e.g. a file's annotations), in the order given."""
+    """Events from parallel lists (e.g. a file's annotations), in the order given; at most MAX_EVENTS."""
+    if len(values) > MAX_EVENTS:
+        raise EpochSetFormatError(
+            "events",
+            f"the recording has {len(values)} annotations, more than {MAX_EVENTS}",
+            "Keep only this recording's events, or send them as an events.tsv in the 'events' field",
+        )
     return Events(
         onset_s=np.asarray(onset_s, dtype=np.float64).reshape(-1),
         duration_s=np.asarray(duration_s, dtype=np.float64).reshape(-1),
@@ -64,67 +71,36 @@ def events_from_lists(onset_s: list[float], duration_s: list[float], values: lis
 
 def read_events_tsv(path: Path) -> Events:
     """Read and check a BIDS-style ``events.tsv`` (see the module docstring)."""
-    if path.stat().st_size > MAX_EVENTS_FILE_BYTES:
+    table = read_tsv(path, "events", REQUIRED_COLUMNS, _EVENTS_FIX)
+    value_column = next((name for name in VALUE_COLUMNS if name in table.header), None)
+    if value_column is None:
         raise EpochSetFormatError(
             "events",
-            f"the events file is larger than {MAX_EVENTS_FILE_BYTES} bytes",
-            "Keep only the rows of this recording's events",
+            f"the header line has no column trial_type or value (it has "
+            f"{', '.join(repr(name) for name in table.header)})",
+            _EVENTS_FIX,
         )
-    try:
-        text = path.read_bytes().decode("utf-8-sig")
-    except UnicodeDecodeError as error:
+    lines = table.line_numbers
+    onset = [
+        _seconds(text, "onset", line, allow_missing=False)
+        for text, line in zip(table.column("onset"), lines, strict=False)
+    ]
+    duration = [
+        _seconds(text, "duration", line, allow_missing=True)
+        for text, line in zip(table.column("duration"), lines, strict=False)
+    ]
+    values = table.column(value_column)
+    empty = next((line for line, value in zip(lines, values, strict=False) if value in ("", MISSING)), None)
+    if empty is not None:
         raise EpochSetFormatError(
-            "events", f"the events file is not UTF-8 text ({error.reason} at byte {error.start})", _EVENTS_FIX
-        ) from None
-    lines = [line for line in text.splitlines() if line.strip()]
-    if not lines:
-        raise EpochSetFormatError("events", "the events file is empty", _EVENTS_FIX)
-    if len(lines) - 1 > MAX_EVENTS:
-        raise EpochSetFormatError(
-            "events",
-            f"the events file has {len(lines) - 1} rows, more than {MAX_EVENTS}",
-            "Keep only the rows of this recording's events",
-        )
-    header = [name.strip() for name in lines[0].split("\t")]
-    columns = _column_indices(header)
-    rows = [line.split("\t") for line in lines[1:]]
-    onset, duration, values = [], [], []
-    for number, row in enumerate(rows, start=2):
-        if len(row) != len(header):
-            raise EpochSetFormatError(
-                "events",
-                f"line {number} has {len(row)} tab-separated fields but the header has {len(header)}",
-                _EVENTS_FIX,
-            )
-        onset.append(_seconds(row[columns["onset"]], "onset", number, allow_missing=False))
-        duration.append(_seconds(row[columns["duration"]], "duration", number, allow_missing=True))
-        values.append(row[columns["value"]].strip())
-    if any(value in ("", _MISSING) for value in values):
-        first = next(number for number, value in enumerate(values, start=2) if value in ("", _MISSING))
-        raise EpochSetFormatError(
-            "events",
-            f"line {first} has no event value in column {header[columns['value']]!r}",
-            "Give every event a value",
+            "events", f"line {empty} has no event value in column {value_column!r}", "Give every event a value"
         )
     return events_from_lists(onset, duration, values)
 
 
-def _column_indices(header: list[str]) -> dict[str, int]:
-    missing = [name for name in REQUIRED_COLUMNS if name not in header]
-    value_column = next((name for name in VALUE_COLUMNS if name in header), None)
-    if missing or value_column is None:
-        absent = missing + ([] if value_column else ["trial_type"])
-        raise EpochSetFormatError(
-            "events",
-            f"the header line has no column(s) {', '.join(absent)} (it has {', '.join(repr(name) for name in header)})",
-            _EVENTS_FIX,
-        )
-    return {"onset": header.index("onset"), "duration": header.index("duration"), "value": header.index(value_column)}
-
-
 def _seconds(field: str, column: str, line: int, *, allow_missing: bool) -> float:
     text = field.strip()
-    if allow_missing and text == _MISSING:
+    if allow_missing and text == MISSING:
         return 0.0
     try:
         number = float(text)

@@ -14,15 +14,23 @@ import numpy as np
 from epoch_assay.engine.epochs import EpochSet
 from epoch_assay.engine.errors import EpochSetFormatError, EpochSetTooLargeError
 from epoch_assay.engine.io.detect import named_for_reader
+from epoch_assay.engine.io.fif_safety import refuse_file_references
 from epoch_assay.engine.io.npz import epoch_set_from_arrays
+from epoch_assay.engine.io.raw_mne import KEPT_CHANNEL_TYPES, channel_positions
 
-KEPT_CHANNEL_TYPES = ("eeg", "eog", "stim")
 _BYTES_PER_SAMPLE = 8
-_SAVE_AGAIN = "Save the epochs again with mne.Epochs.save (a file ending in -epo.fif) and upload that file"
+_SAVE_AGAIN = (
+    "Save the epochs again with mne.Epochs.save (a file ending in -epo.fif) and upload that file; a continuous "
+    "recording (_raw.fif) goes to POST /v1/studies/{code}/recordings with an epoching spec"
+)
 
 
 def read_fif_epochs(path: Path, *, max_array_bytes: int) -> EpochSet:
-    """Read an MNE epochs file; data as float64 in V, shape (n_trials, n_channels, n_times)."""
+    """Read an MNE epochs file; data as float64 in V, shape (n_trials, n_channels, n_times).
+
+    A file that refers to other files (split files) is refused before MNE opens it.
+    """
+    refuse_file_references(path)
     with named_for_reader(path, "upload-epo.fif") as named:
         epochs = _open(named)
         declared = len(epochs.events) * len(epochs.ch_names) * len(epochs.times) * _BYTES_PER_SAMPLE
@@ -41,21 +49,20 @@ def read_fif_epochs(path: Path, *, max_array_bytes: int) -> EpochSet:
             "ch_types": np.array(
                 [kind if kind in KEPT_CHANNEL_TYPES else "misc" for kind in epochs.get_channel_types()], dtype=str
             ),
-            "positions": _positions(epochs.info),
+            "positions": channel_positions(epochs.info),
         }
     )
 
 
 def _open(named: Path) -> mne.Epochs:
     # The file is untrusted and MNE's parser raises many types on damaged input (struct, index,
-    # key, value, OS errors...): every one of them means "not a readable epochs file".
+    # key, value, OS errors...): every one of them means "not a readable epochs file". MNE's
+    # message is not passed on: it names server paths.
     try:
         return mne.read_epochs(named, preload=False, verbose="error")
-    except Exception as error:
+    except Exception:
         raise EpochSetFormatError(
-            "file",
-            f"the file starts like FIF but MNE cannot read it as epochs ({type(error).__name__}: {error})",
-            _SAVE_AGAIN,
+            "file", "the file starts like FIF but is not a complete, readable MNE epochs file", _SAVE_AGAIN
         ) from None
 
 
@@ -63,15 +70,7 @@ def _load(epochs: mne.Epochs) -> np.ndarray:
     try:
         with mne.utils.use_log_level("error"):
             return epochs.get_data(copy=True)
-    except Exception as error:
+    except Exception:
         raise EpochSetFormatError(
-            "file", f"the epochs' data could not be read ({type(error).__name__}: {error})", _SAVE_AGAIN
+            "file", "the epochs' data could not be read: the file ends early or is damaged", _SAVE_AGAIN
         ) from None
-
-
-def _positions(info: mne.Info) -> np.ndarray:
-    """Channel locations, shape (n_channels, 3), in m; NaN where MNE stores none (all zeros or NaN)."""
-    positions = np.array([channel["loc"][:3] for channel in info["chs"]], dtype=np.float64)
-    unknown = ~np.isfinite(positions).all(axis=1) | (np.abs(positions).sum(axis=1) == 0)
-    positions[unknown] = np.nan
-    return positions

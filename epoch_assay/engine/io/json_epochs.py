@@ -34,8 +34,15 @@ def parse_json_epochs(body: bytes) -> JsonEpochSet:
     """Parse and check a JSON epoch set (data in V after the ``unit`` is applied)."""
     try:
         document = json.loads(body)
-    except (ValueError, RecursionError) as error:
-        raise EpochSetFormatError("body", f"is not valid JSON ({error})", _FIX) from None
+    except json.JSONDecodeError as error:
+        raise EpochSetFormatError(
+            "body", f"is not valid JSON (line {error.lineno}, column {error.colno})", _FIX
+        ) from None
+    except (ValueError, RecursionError):
+        # ValueError: an integer of more digits than Python converts; RecursionError: nesting too deep.
+        raise EpochSetFormatError(
+            "body", "is not JSON that can be read: too deeply nested, or a number too long", _FIX
+        ) from None
     if not isinstance(document, dict):
         raise EpochSetFormatError("body", f"is a JSON {type(document).__name__}, not an object", _FIX)
     unknown = sorted(set(document) - set(REQUIRED_KEYS + OPTIONAL_KEYS + IDENTITY_KEYS))
@@ -59,10 +66,14 @@ def _array(key: str, value: object) -> np.ndarray:
         if key in _NUMERIC_KEYS:
             return np.array(value, dtype=np.float64)
         array = np.array(value)
-    except (ValueError, TypeError, RecursionError) as error:
+    except OverflowError:
+        raise EpochSetFormatError(
+            key, "holds a number too large for a 64-bit float", "Give numbers within ±1.8e308, in V or µV"
+        ) from None
+    except (ValueError, TypeError, RecursionError):
         raise EpochSetFormatError(
             key,
-            f"cannot be read as a regular array ({error})",
+            "cannot be read as a regular array of numbers (ragged lists, or values that are not numbers)",
             "Give every trial the same channels and every channel the same samples",
         ) from None
     if array.dtype.kind not in "U" and not (array.size == 0 and array.ndim == 1):

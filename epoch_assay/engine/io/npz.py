@@ -14,6 +14,9 @@ An NPZ file is a zip archive of ``.npy`` members, one per key:
   where unknown
 * ``montage`` (optional): a single str, the name of a standard montage that gives the
   positions of the channels it knows (explicit ``positions`` win where both know one)
+* ``trial_*`` (optional, any number): per-trial arrays, shape (n_trials,), numbers or str,
+  e.g. ``trial_onset_s``, ``trial_id``; kept with the trials (``trial_id`` names each trial
+  in the provenance of trial rejection)
 
 Uploads are untrusted: every member's header is read and checked (no object dtypes,
 declared sizes within the memory limit, members as long as their headers promise)
@@ -21,15 +24,17 @@ before any array is loaded, and arrays are loaded without pickles.
 """
 
 import math
+import struct
 import zipfile
 import zlib
+from collections import Counter
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 from numpy.lib import format as npy_format
 
-from epoch_assay.engine.epochs import EpochSet
+from epoch_assay.engine.epochs import TRIAL_ARRAY_PREFIX, TRIAL_ID_KEY, EpochSet
 from epoch_assay.engine.errors import EpochSetFormatError, EpochSetTooLargeError
 from epoch_assay.engine.io.channels import checked_positions, merged_positions, positions_from_montage
 from epoch_assay.engine.units import VOLTS_PER_MICROVOLT
@@ -43,6 +48,24 @@ VOLTS_PER_UNIT = {"V": 1.0, "uV": VOLTS_PER_MICROVOLT}
 # outside the plausible bounds the stated unit is almost certainly wrong.
 TYPICAL_EEG_STD_V = (1e-6, 1e-4)
 PLAUSIBLE_EEG_STD_V = (1e-8, 5e-3)
+
+# Most members a valid file can have (one per key) and the largest central directory they need
+# (46 fixed bytes per entry, a short name and small extra fields; 64 KiB leaves ample room).
+MAX_MEMBERS = len(REQUIRED_KEYS) + len(OPTIONAL_KEYS)
+MAX_CENTRAL_DIRECTORY_BYTES = 64 * 1024
+# Uncompressed bytes always allowed whatever the ratio: the small arrays of a tiny file.
+RATIO_FREE_BYTES = 1024 * 1024
+# How far recorded EEG compresses with numpy.savez_compressed, measured on our own simulated files:
+# 1.04x (float64) and 1.08x (float32) for noise-like data, 3.7x for 16-bit samples stored as float64
+# (as converted from EDF). The default limit of 10x leaves room above the most compressible of these;
+# an archive of mostly zeros or repeated values goes far beyond it (zip bombs, about 1000x).
+DEFAULT_MAX_COMPRESSION_RATIO = 10.0
+# End-of-central-directory records (PKWARE APPNOTE 6.3.10, sections 4.3.14 to 4.3.16).
+_EOCD = struct.Struct("<4s4H2LH")
+_EOCD_SIGNATURE = b"PK\x05\x06"
+_ZIP64_LOCATOR = struct.Struct("<4sLQL")
+_ZIP64_EOCD = struct.Struct("<4sQ2H2L4Q")
+_MAX_ZIP_COMMENT = 0xFFFF
 
 _NPY_SUFFIX = ".npy"
 _UNIT_WORDS = {"V": "volts", "uV": "microvolts"}
@@ -80,18 +103,24 @@ def write_npz(epochs: EpochSet, path: Path) -> None:
             labels=np.asarray(epochs.labels, dtype=str),
             unit=np.array("V"),
             **({} if epochs.positions is None else {"positions": epochs.positions}),
+            **epochs.trial_arrays,
         )
 
 
-def read_npz(path: Path, *, max_array_bytes: int) -> EpochSet:
+def read_npz(
+    path: Path, *, max_array_bytes: int, max_compression_ratio: float = DEFAULT_MAX_COMPRESSION_RATIO
+) -> EpochSet:
     """Read and validate an NPZ epoch-set file.
 
     Returns an epoch set with data as float64 in V, shape (n_trials, n_channels, n_times),
     labels as a str array, no channel positions and no bad channels. Raises
     :class:`EpochSetTooLargeError` when the arrays would take more than
-    ``max_array_bytes`` in memory (checked before any array is loaded) and
-    :class:`EpochSetFormatError` for anything malformed.
+    ``max_array_bytes`` in memory, or more than ``max_compression_ratio`` times the
+    file's size (plus 1 MiB), both checked before any array is loaded, and
+    :class:`EpochSetFormatError` for anything malformed. The number of members and the
+    size of the zip directory are checked before the zip directory is parsed.
     """
+    _check_zip_directory_size(path)
     try:
         with zipfile.ZipFile(path) as archive:
             members = _members_by_key(archive)
@@ -99,12 +128,13 @@ def read_npz(path: Path, *, max_array_bytes: int) -> EpochSet:
             declared_bytes = sum(header.array_bytes for header in headers.values())
             if declared_bytes > max_array_bytes:
                 raise EpochSetTooLargeError(declared_bytes, max_array_bytes)
+            _check_compression_ratio(declared_bytes, path.stat().st_size, max_compression_ratio)
             for header in headers.values():
                 _check_complete(header)
             arrays = {key: _load_array(archive, header) for key, header in headers.items()}
-    except zipfile.BadZipFile as error:
+    except zipfile.BadZipFile:
         raise EpochSetFormatError(
-            "file", f"the file is not a readable NPZ (zip) archive ({error})", _SAVE_AGAIN
+            "file", "the file is not a readable NPZ (zip) archive: its structure or a checksum is damaged", _SAVE_AGAIN
         ) from None
     return epoch_set_from_arrays(arrays)
 
@@ -118,22 +148,86 @@ _REQUIRED_FIXES = {
 }
 
 
+def _check_zip_directory_size(path: Path) -> None:
+    """Refuse an archive with more members than keys, or a large directory, from its end record alone.
+
+    zipfile parses the whole central directory when it opens an archive, so a file of many
+    tiny members would cost time and memory before any other check could run.
+    """
+    with open(path, "rb") as handle:
+        handle.seek(0, 2)
+        size = handle.tell()
+        tail_start = max(0, size - _EOCD.size - _MAX_ZIP_COMMENT)
+        handle.seek(tail_start)
+        tail = handle.read()
+        at = tail.rfind(_EOCD_SIGNATURE)
+        if at < 0 or at + _EOCD.size > len(tail):
+            raise EpochSetFormatError(
+                "file", "the file is not a readable NPZ (zip) archive: it has no end record", _SAVE_AGAIN
+            )
+        _sig, _disk, _cd_disk, _on_disk, n_members, directory_bytes, _offset, _comment = _EOCD.unpack_from(tail, at)
+        if n_members == 0xFFFF or directory_bytes == 0xFFFFFFFF:
+            n_members, directory_bytes = _zip64_counts(handle, tail, at, tail_start)
+    if n_members > MAX_MEMBERS:
+        raise EpochSetFormatError(
+            "file",
+            f"the archive declares {n_members} members; an epoch-set file has at most {MAX_MEMBERS}, one per key",
+            f"Keep only the keys {', '.join(REQUIRED_KEYS + OPTIONAL_KEYS)}",
+        )
+    if directory_bytes > MAX_CENTRAL_DIRECTORY_BYTES:
+        raise EpochSetFormatError(
+            "file",
+            f"the archive's directory takes {directory_bytes} bytes, more than {MAX_CENTRAL_DIRECTORY_BYTES} "
+            f"(at most {MAX_MEMBERS} short member names are expected)",
+            _SAVE_AGAIN,
+        )
+
+
+def _zip64_counts(handle, tail: bytes, eocd_at: int, tail_start: int) -> tuple[int, int]:  # type: ignore[no-untyped-def]
+    """Member count and directory size from the Zip64 end record (APPNOTE 4.3.14 and 4.3.15)."""
+    locator_at = eocd_at - _ZIP64_LOCATOR.size
+    if locator_at < 0:
+        raise EpochSetFormatError("file", "the zip archive's Zip64 end record is missing", _SAVE_AGAIN)
+    _sig, _disk, record_offset, _disks = _ZIP64_LOCATOR.unpack_from(tail, locator_at)
+    handle.seek(record_offset)
+    record = handle.read(_ZIP64_EOCD.size)
+    if len(record) < _ZIP64_EOCD.size or not record.startswith(b"PK\x06\x06"):
+        raise EpochSetFormatError("file", "the zip archive's Zip64 end record is damaged", _SAVE_AGAIN)
+    fields = _ZIP64_EOCD.unpack(record)
+    return fields[7], fields[8]
+
+
+def _check_compression_ratio(declared_bytes: int, file_bytes: int, max_ratio: float) -> None:
+    """Refuse arrays declaring far more memory than the file's size could plausibly hold."""
+    allowed = max_ratio * file_bytes + RATIO_FREE_BYTES
+    if declared_bytes > allowed:
+        raise EpochSetFormatError(
+            "file",
+            f"the arrays declare {declared_bytes} bytes, {declared_bytes / file_bytes:.0f} times the file's "
+            f"{file_bytes} bytes; more than {max_ratio:g} times is not read, as recorded EEG does not compress so far",
+            "Upload the data uncompressed (numpy.savez) or ask the operator to raise EPOCH_ASSAY_MAX_COMPRESSION_RATIO",
+        )
+
+
 def _members_by_key(archive: zipfile.ZipFile) -> dict[str, zipfile.ZipInfo]:
     """The archive's members by NPZ key, refusing repeated, unknown and missing keys."""
     members = archive.infolist()
     keys = [member.filename.removesuffix(_NPY_SUFFIX) for member in members]
-    repeated = sorted({key for key in keys if keys.count(key) > 1})
+    repeated = sorted(key for key, count in Counter(keys).items() if count > 1)
     if repeated:
         raise EpochSetFormatError(
             "file", f"the archive holds more than one member for key(s) {', '.join(repeated)}", _SAVE_AGAIN
         )
     by_key = dict(zip(keys, members, strict=False))
-    unknown = sorted(key for key in by_key if key not in REQUIRED_KEYS + OPTIONAL_KEYS)
+    unknown = sorted(
+        key for key in by_key if key not in REQUIRED_KEYS + OPTIONAL_KEYS and not key.startswith(TRIAL_ARRAY_PREFIX)
+    )
     if unknown:
         raise EpochSetFormatError(
             unknown[0],
             f"unknown key(s) {', '.join(repr(key) for key in unknown)}",
-            f"Remove them; the keys read are {', '.join(REQUIRED_KEYS)} and optionally {', '.join(OPTIONAL_KEYS)}",
+            f"Remove them, or name per-trial arrays {TRIAL_ARRAY_PREFIX}<name>; the keys read are "
+            f"{', '.join(REQUIRED_KEYS)} and optionally {', '.join(OPTIONAL_KEYS)} and {TRIAL_ARRAY_PREFIX}*",
         )
     for key in REQUIRED_KEYS:
         if key not in by_key:
@@ -153,9 +247,9 @@ def _read_header(archive: zipfile.ZipFile, key: str, member: zipfile.ZipInfo) ->
             else:
                 raise ValueError(f"unsupported .npy format version {version[0]}.{version[1]}")
             header_bytes = handle.tell()
-    except _MEMBER_READ_ERRORS as error:
+    except _MEMBER_READ_ERRORS:
         raise EpochSetFormatError(
-            "file", f"member {member.filename} is not a valid .npy array ({error})", _SAVE_AGAIN
+            "file", f"member {member.filename} is not a valid .npy array (its header cannot be read)", _SAVE_AGAIN
         ) from None
     if dtype.hasobject:
         raise EpochSetFormatError(
@@ -184,9 +278,9 @@ def _load_array(archive: zipfile.ZipFile, header: _MemberHeader) -> np.ndarray:
     try:
         with archive.open(header.member) as handle:
             return npy_format.read_array(handle, allow_pickle=False)
-    except _MEMBER_READ_ERRORS as error:
+    except _MEMBER_READ_ERRORS:
         raise EpochSetFormatError(
-            "file", f"member {header.member.filename} could not be read ({error})", _SAVE_AGAIN
+            "file", f"member {header.member.filename} could not be read (damaged or encrypted)", _SAVE_AGAIN
         ) from None
 
 
@@ -218,7 +312,26 @@ def epoch_set_from_arrays(arrays: dict[str, np.ndarray]) -> EpochSet:
         ch_types=ch_types,
         labels=labels,
         positions=_positions(arrays.get("positions"), arrays.get("montage"), names),
+        trial_arrays=_trial_arrays(arrays, n_trials),
     )
+
+
+def _trial_arrays(arrays: dict[str, np.ndarray], n_trials: int) -> dict[str, np.ndarray]:
+    """The ``trial_*`` arrays, each checked to hold one number or text per trial; trial ids must be unique."""
+    kept = {}
+    for key in sorted(key for key in arrays if key.startswith(TRIAL_ARRAY_PREFIX)):
+        value = arrays[key]
+        if value.ndim != 1 or value.shape[0] != n_trials or value.dtype.kind not in "biufU":
+            raise EpochSetFormatError(
+                key,
+                f"is a per-trial array but has shape {value.shape} and dtype {value.dtype}",
+                f"Give one number or string per trial ({n_trials} entries), or leave it out",
+            )
+        kept[key] = value
+    ids = kept.get(TRIAL_ID_KEY)
+    if ids is not None and np.unique(ids).size != n_trials:
+        raise EpochSetFormatError(TRIAL_ID_KEY, "names some trials more than once", "Give every trial its own id")
+    return kept
 
 
 def _positions(

@@ -3,14 +3,29 @@
 from epoch_assay.engine.stats.bootstrap import (
     BootstrapMode,
     BootstrapResult,
-    IntervalMethod,
+    MeanTBootstrap,
     TrialDraw,
+    bootstrap_mean_welch_t,
     bootstrap_significant_fraction,
     draw_trials,
     draw_with_replacement,
+    mean_welch_t,
 )
-from epoch_assay.engine.stats.channel_tests import ChannelTests, ComparisonSettings, TrialTest, compare_channels
-from epoch_assay.engine.stats.corrections import CorrectionMethod, PValueCorrection, adjust_pvalues
+from epoch_assay.engine.stats.channel_tests import (
+    TRIAL_TESTS,
+    ChannelTests,
+    ComparisonSettings,
+    TrialTest,
+    compare_channels,
+)
+from epoch_assay.engine.stats.corrections import (
+    CORRECTIONS,
+    P_VALUE_ADJUSTMENTS,
+    Correction,
+    CorrectionMethod,
+    PValueCorrection,
+    adjust_pvalues,
+)
 from epoch_assay.engine.stats.effect_size import HedgesG, hedges_g
 from epoch_assay.engine.stats.permutation import PermutationResult, label_permutation_test, sign_flip_test
 from epoch_assay.engine.stats.quality import standardized_measurement_error
@@ -19,13 +34,17 @@ from epoch_assay.engine.stats.ttest import TStatistic, TTestResult, one_sample_t
 from epoch_assay.engine.stats.window_means import window_means
 
 __all__ = [
+    "CORRECTIONS",
+    "P_VALUE_ADJUSTMENTS",
+    "TRIAL_TESTS",
     "BootstrapMode",
     "BootstrapResult",
     "ChannelTests",
     "ComparisonSettings",
+    "Correction",
     "CorrectionMethod",
     "HedgesG",
-    "IntervalMethod",
+    "MeanTBootstrap",
     "PValueCorrection",
     "PermutationResult",
     "RankTestResult",
@@ -34,6 +53,7 @@ __all__ = [
     "TrialDraw",
     "TrialTest",
     "adjust_pvalues",
+    "bootstrap_mean_welch_t",
     "bootstrap_significant_fraction",
     "compare_channels",
     "draw_trials",
@@ -41,6 +61,7 @@ __all__ = [
     "hedges_g",
     "label_permutation_test",
     "mann_whitney_u",
+    "mean_welch_t",
     "one_sample_t",
     "sign_flip_test",
     "standardized_measurement_error",

@@ -1,6 +1,6 @@
-"""Bootstrap of the share of significant channels over resampled trials.
+"""Resampling of trials: the significant fraction under three schemes, and a smooth score.
 
-Three ways to resample the trials of the two conditions:
+Three ways to resample the trials of the two conditions for the significant fraction:
 
 - ``fixed``: the same k trials per condition, drawn without replacement;
 - ``equalized``: as many trials per condition as the smaller condition has, drawn
@@ -11,9 +11,21 @@ Three ways to resample the trials of the two conditions:
 Each resample runs the trial-level test on every channel, adjusts the p-values across
 channels and records the fraction of channels whose adjusted p is below alpha. Resamples
 are processed in chunks, all resamples and channels of a chunk at once, so memory stays
-bounded whatever the number of resamples. The interval is the percentile interval or,
-for ``all``, optionally the bias-corrected and accelerated (BCa) interval of Efron (1987)
-with a jackknife estimate of the acceleration.
+bounded whatever the number of resamples.
+
+What the numbers are. Subsets of k of n trials (``fixed``, ``equalized``) estimate the
+expected fraction *at k trials* by their mean; their 2.5 / 97.5 percentiles describe the
+spread from subset to subset, which shrinks to nothing as k approaches n, so they are no
+confidence interval. In ``all`` mode the 2.5 / 97.5 percentiles are the percentile
+interval (Efron & Tibshirani, 1993, ch. 13) for the expected fraction at the observed
+trial counts. The fraction is a step function of every channel's statistic and of the
+correction's data-driven threshold, so the bias-corrected and accelerated interval, which
+assumes a smooth statistic (Efron, 1987), is not offered for it.
+
+The smooth score is the mean over channels of Welch's t: it moves continuously with the
+data, and its percentile interval over trials resampled with replacement within each
+condition covers its expectation at the observed trial counts (shown by simulation in the
+tests and in ``tests/benchmarks/calibration/resampling.py``).
 """
 
 from collections.abc import Callable, Iterator
@@ -21,14 +33,13 @@ from dataclasses import dataclass
 from typing import Literal
 
 import numpy as np
-from scipy.special import ndtr, ndtri
+from scipy.special import ndtri
 
-from epoch_assay.engine.stats.corrections import PValueCorrection, adjust_pvalues
+from epoch_assay.engine.stats.corrections import CORRECTIONS, PValueCorrection, adjust_pvalues
 from epoch_assay.engine.stats.rank_test import mann_whitney_u
 from epoch_assay.engine.stats.ttest import TStatistic, student_statistic, two_sided_pvalue, welch_statistic
 
 BootstrapMode = Literal["fixed", "equalized", "all"]
-IntervalMethod = Literal["percentile", "bca"]
 ResampledTest = Literal["welch", "student", "mann_whitney"]
 
 #: Upper bound on the intermediate arrays of one chunk of resamples, in bytes. Memory
@@ -46,7 +57,9 @@ _VALUES_PER_CHANNEL = 32
 # Per resample, drawn trial and channel for the rank test: the gathered values, their
 # ranks (three kinds) and the tie sizes.
 _VALUES_PER_RANKED_VALUE = 6
-CI_LEVEL = 0.95
+#: Central share of the resampled values between the reported lower and upper percentile.
+CENTRAL_SHARE = 0.95
+_PERCENTILES = (50.0 * (1 - CENTRAL_SHARE), 50.0 * (1 + CENTRAL_SHARE))
 
 
 @dataclass(frozen=True)
@@ -66,29 +79,43 @@ class BootstrapResult:
     """Distribution of the significant fraction over resamples.
 
     fractions : array, shape (resamples,), share of channels significant in each resample
-    median : median of ``fractions``
-    ci_low, ci_high : bounds of the 95 % interval: the 2.5 / 97.5 percentiles (linear) of
-        ``fractions``, or the BCa bounds; NaN when BCa is undefined (every resample on one
-        side of the observed fraction)
+    mean : mean of ``fractions``; in ``fixed`` and ``equalized`` modes the estimate of the
+        expected fraction at ``trials_per_condition`` trials per condition
+    percentile_low, percentile_high : the 2.5 / 97.5 percentiles (linear) of ``fractions``:
+        a descriptive spread over subsets in ``fixed`` and ``equalized`` modes, the
+        percentile interval of the expected fraction in ``all`` mode (see the module docstring)
     trials_drawn : trials per resample of condition a and of condition b
     trials_per_condition : the common count for ``fixed`` and ``equalized``; None for ``all``
-    observed : fraction on all trials (used by BCa), NaN for the percentile interval
-    acceleration, bias_correction : BCa's a and z0, NaN for the percentile interval
     """
 
     fractions: np.ndarray
-    median: float
-    ci_low: float
-    ci_high: float
+    mean: float
+    percentile_low: float
+    percentile_high: float
     resamples: int
     mode: BootstrapMode
-    ci: IntervalMethod
     trials_drawn: tuple[int, int]
     trials_per_condition: int | None
     with_replacement: bool
+
+
+@dataclass(frozen=True)
+class MeanTBootstrap:
+    """The mean over channels of Welch's t and its percentile interval over resampled trials.
+
+    observed : mean over channels of Welch's t (first minus second condition) on all trials;
+        NaN when no channel has a defined t
+    resampled : array, shape (resamples,), the same mean in each resample (trials of each
+        condition drawn with replacement, each condition's own count)
+    ci_low, ci_high : 2.5 / 97.5 percentiles of ``resampled``: a 95 % interval for the
+        expectation of ``observed`` at the observed trial counts
+    """
+
     observed: float
-    acceleration: float
-    bias_correction: float
+    resampled: np.ndarray
+    ci_low: float
+    ci_high: float
+    resamples: int
 
 
 def draw_trials(
@@ -179,7 +206,6 @@ def bootstrap_significant_fraction(
     mode: BootstrapMode = "fixed",
     trials_per_condition: int | None = None,
     test: ResampledTest = "welch",
-    ci: IntervalMethod = "percentile",
     chunk_size: int | None = None,
 ) -> BootstrapResult:
     """Bootstrap distribution of the fraction of channels significant between two conditions.
@@ -195,7 +221,6 @@ def bootstrap_significant_fraction(
     mode : "fixed", "equalized" or "all" (see the module docstring)
     trials_per_condition : trials drawn per condition in "fixed" mode; ignored otherwise
     test : the trial-level test run in each resample
-    ci : "percentile", or "bca" (only with mode "all")
     chunk_size : resamples processed at once; by default as many as fit in
         ``DEFAULT_CHUNK_BYTES``. The result does not depend on it.
 
@@ -203,52 +228,95 @@ def bootstrap_significant_fraction(
     """
     n_a, n_b = a.shape[0], b.shape[0]
     drawn = _trials_drawn(mode, trials_per_condition, n_a, n_b)
-    if resamples < 1:
-        raise ValueError(f"resamples must be at least 1, got {resamples}")
-    if ci == "bca" and mode != "all":
-        raise ValueError(
-            "the BCa interval needs mode 'all': it corrects towards the estimate on all trials, "
-            "which subsets of fewer trials do not estimate"
-        )
     if chunk_size is None:
         chunk_size = resamples_per_chunk(n_a, n_b, a.shape[1], DEFAULT_CHUNK_BYTES, test=test, drawn=drawn)
+    fractions = _over_resamples(
+        _fraction_of_draws(a, b, test, alpha, correction), (n_a, n_b), drawn, mode, resamples, seed, chunk_size
+    )
+    low, high = np.percentile(fractions, _PERCENTILES)
+    return BootstrapResult(
+        fractions=fractions,
+        mean=float(fractions.mean()),
+        percentile_low=float(low),
+        percentile_high=float(high),
+        resamples=resamples,
+        mode=mode,
+        trials_drawn=drawn,
+        trials_per_condition=None if mode == "all" else drawn[0],
+        with_replacement=mode == "all",
+    )
+
+
+def bootstrap_mean_welch_t(
+    a: np.ndarray, b: np.ndarray, *, resamples: int, seed: int, chunk_size: int | None = None
+) -> MeanTBootstrap:
+    """Mean over channels of Welch's t, and its percentile interval over trials resampled within condition.
+
+    Parameters
+    ----------
+    a : array, shape (n_trials_a, n_channels), window means of the first condition, in V
+    b : array, shape (n_trials_b, n_channels), window means of the second condition, in V
+    resamples : number of resamples; each draws every condition's own trial count with replacement
+    seed : seed of ``numpy.random.default_rng``; with the seed of an ``all``-mode
+        :func:`bootstrap_significant_fraction` the two use the same resamples
+    chunk_size : resamples processed at once; the result does not depend on it
+
+    Channels whose t is undefined (no variance) are left out of each mean.
+    """
+    n_a, n_b = a.shape[0], b.shape[0]
+    drawn = _trials_drawn("all", None, n_a, n_b)
+    if chunk_size is None:
+        chunk_size = resamples_per_chunk(n_a, n_b, a.shape[1], DEFAULT_CHUNK_BYTES)
+    mean_t_of = _mean_welch_t_of_draws(a, b)
+    resampled = _over_resamples(mean_t_of, (n_a, n_b), drawn, "all", resamples, seed, chunk_size)
+    observed = float(mean_t_of(_every_trial(n_a, n_b))[0])
+    low, high = np.percentile(resampled, _PERCENTILES) if np.isfinite(resampled).all() else (np.nan, np.nan)
+    return MeanTBootstrap(
+        observed=observed, resampled=resampled, ci_low=float(low), ci_high=float(high), resamples=resamples
+    )
+
+
+def mean_welch_t(a: np.ndarray, b: np.ndarray) -> float:
+    """Mean over channels of Welch's t of ``a`` against ``b`` (arrays as in :func:`bootstrap_mean_welch_t`).
+
+    Channels whose t is undefined (no variance) are left out; NaN when none has a t.
+    """
+    return float(_mean_welch_t_of_draws(a, b)(_every_trial(a.shape[0], b.shape[0]))[0])
+
+
+def _every_trial(n_a: int, n_b: int) -> TrialDraw:
+    """One draw of every trial of each condition, once."""
+    return TrialDraw(np.arange(n_a)[None], np.arange(n_b)[None])
+
+
+StatisticOfDraws = Callable[[TrialDraw], np.ndarray]
+
+
+def _over_resamples(
+    statistic_of: StatisticOfDraws,
+    counts: tuple[int, int],
+    drawn: tuple[int, int],
+    mode: BootstrapMode,
+    resamples: int,
+    seed: int,
+    chunk_size: int,
+) -> np.ndarray:
+    """``statistic_of`` on ``resamples`` draws from a generator seeded with ``seed``, chunk by chunk; shape (resamples,)."""
+    if resamples < 1:
+        raise ValueError(f"resamples must be at least 1, got {resamples}")
     if chunk_size < 1:
         raise ValueError(f"chunk_size must be at least 1, got {chunk_size}")
-    fraction_of = _fraction_of_draws(a, b, test, alpha, correction)
     rng = np.random.default_rng(seed)
 
     def draws() -> Iterator[TrialDraw]:
         for start in range(0, resamples, chunk_size):
             size = min(chunk_size, resamples - start)
             if mode == "all":
-                yield draw_with_replacement(rng, n_a, n_b, size)
+                yield draw_with_replacement(rng, counts[0], counts[1], size)
             else:
-                yield draw_trials(rng, n_a, n_b, drawn[0], size)
+                yield draw_trials(rng, counts[0], counts[1], drawn[0], size)
 
-    fractions = np.concatenate([fraction_of(draw) for draw in draws()])
-    median = float(np.median(fractions))
-    observed = acceleration = bias_correction = float("nan")
-    if ci == "bca":
-        observed = float(fraction_of(TrialDraw(np.arange(n_a)[None], np.arange(n_b)[None]))[0])
-        acceleration = _jackknife_acceleration(fraction_of, n_a, n_b, chunk_size)
-        low, high, bias_correction = _bca_bounds(fractions, observed, acceleration)
-    else:
-        low, high = np.percentile(fractions, [50.0 * (1 - CI_LEVEL), 50.0 * (1 + CI_LEVEL)])
-    return BootstrapResult(
-        fractions=fractions,
-        median=median,
-        ci_low=float(low),
-        ci_high=float(high),
-        resamples=resamples,
-        mode=mode,
-        ci=ci,
-        trials_drawn=drawn,
-        trials_per_condition=None if mode == "all" else drawn[0],
-        with_replacement=mode == "all",
-        observed=observed,
-        acceleration=acceleration,
-        bias_correction=bias_correction,
-    )
+    return np.concatenate([statistic_of(draw) for draw in draws()])
 
 
 def _trials_drawn(mode: BootstrapMode, trials_per_condition: int | None, n_a: int, n_b: int) -> tuple[int, int]:
@@ -266,12 +334,9 @@ def _trials_drawn(mode: BootstrapMode, trials_per_condition: int | None, n_a: in
     return trials_per_condition, trials_per_condition
 
 
-FractionOfDraws = Callable[[TrialDraw], np.ndarray]
-
-
 def _fraction_of_draws(
     a: np.ndarray, b: np.ndarray, test: ResampledTest, alpha: float, correction: PValueCorrection
-) -> FractionOfDraws:
+) -> StatisticOfDraws:
     """A function from a batch of draws to the significant fraction of each, shape (n_resamples,)."""
     if test == "mann_whitney":
 
@@ -282,12 +347,15 @@ def _fraction_of_draws(
         return ranked
     statistic = {"welch": welch_statistic, "student": student_statistic}[test]
     centred_a, centred_b = _Centred.of(a), _Centred.of(b)
+    # The shortcut is exact only for corrections that declare this property (see corrections.py).
+    skip_large_p = CORRECTIONS[correction].decided_below_alpha
 
     def parametric(draw: TrialDraw) -> np.ndarray:
         mean_a, var_a = centred_a.subset_moments(draw.indices_a)
         mean_b, var_b = centred_b.subset_moments(draw.indices_b)
         t = statistic(mean_a, var_a, draw.indices_a.shape[1], mean_b, var_b, draw.indices_b.shape[1])
-        return (adjust_pvalues(_pvalues_that_matter(t, alpha), correction) < alpha).mean(axis=-1)
+        pvalue = _pvalues_that_matter(t, alpha) if skip_large_p else two_sided_pvalue(t)
+        return (adjust_pvalues(pvalue, correction) < alpha).mean(axis=-1)
 
     return parametric
 
@@ -296,11 +364,12 @@ def _pvalues_that_matter(t: TStatistic, alpha: float) -> np.ndarray:
     """Two-sided p-values, exact where they can be below ``alpha`` and 1.0 elsewhere.
 
     The t distribution has heavier tails than the normal, so |t| below the normal
-    quantile z(1 - alpha/2) means p > alpha at any df. Every offered correction keeps a
-    p-value at or above its raw value, and in the step-up (Benjamini–Hochberg/–Yekutieli)
-    and step-down (Holm) procedures a p-value above alpha never makes another channel
-    significant, so those channels' exact p-values cannot change the significant
-    fraction; skipping them saves most of the costly t distribution evaluations.
+    quantile z(1 - alpha/2) means p > alpha at any df. For a correction that declares
+    ``decided_below_alpha`` (its significant channels are decided by the raw p-values below
+    alpha alone, as in the step-up Benjamini–Hochberg/–Yekutieli and step-down Holm
+    procedures), those channels' exact p-values cannot change the significant fraction;
+    skipping them saves most of the costly t distribution evaluations. Other corrections get
+    every exact p-value.
     """
     pvalues = np.ones_like(t.statistic)
     # NaN statistics are kept as candidates so that they stay NaN and out of the test count.
@@ -309,53 +378,20 @@ def _pvalues_that_matter(t: TStatistic, alpha: float) -> np.ndarray:
     return pvalues
 
 
-def _jackknife_acceleration(fraction_of: FractionOfDraws, n_a: int, n_b: int, chunk_size: int) -> float:
-    """BCa acceleration from leave-one-trial-out fractions of each condition.
+def _mean_welch_t_of_draws(a: np.ndarray, b: np.ndarray) -> StatisticOfDraws:
+    """A function from a batch of draws to the mean over channels of Welch's t in each, shape (n_resamples,)."""
+    centred_a, centred_b = _Centred.of(a), _Centred.of(b)
 
-    The two-sample form of Efron & Tibshirani (1993), eq. 14.15 with one jackknife per
-    sample: U_ji = (n_j - 1)(mean_i θ_ji - θ_ji), a = Σ_j Σ_i U_ji³ / n_j³ / (6 (Σ_j Σ_i U_ji² / n_j²)^{3/2}).
-    Zero when every leave-one-out fraction is the same.
-    """
-    numerator = denominator = 0.0
-    for condition, n in enumerate((n_a, n_b)):
-        others = n_b if condition == 0 else n_a
-        leave_one_out = np.concatenate(
-            [
-                fraction_of(_leave_one_out_draw(start, min(start + chunk_size, n), n, others, condition))
-                for start in range(0, n, chunk_size)
-            ]
-        )
-        influence = (n - 1) * (leave_one_out.mean() - leave_one_out)
-        numerator += float((influence**3).sum()) / n**3
-        denominator += float((influence**2).sum()) / n**2
-    return 0.0 if denominator == 0.0 else numerator / (6.0 * denominator**1.5)
+    def mean_t(draw: TrialDraw) -> np.ndarray:
+        mean_a, var_a = centred_a.subset_moments(draw.indices_a)
+        mean_b, var_b = centred_b.subset_moments(draw.indices_b)
+        t = welch_statistic(mean_a, var_a, draw.indices_a.shape[1], mean_b, var_b, draw.indices_b.shape[1]).statistic
+        defined = np.isfinite(t)
+        count = defined.sum(axis=-1)
+        total = np.where(defined, t, 0.0).sum(axis=-1)
+        return np.divide(total, count, out=np.full(count.shape, np.nan), where=count > 0)
 
-
-def _leave_one_out_draw(start: int, stop: int, n: int, n_other: int, condition: int) -> TrialDraw:
-    """Rows start..stop of the jackknife of one condition: trial i left out in row i, the other condition whole."""
-    positions = np.arange(n - 1)[None, :]
-    left_out = np.arange(start, stop)[:, None]
-    jackknifed = positions + (positions >= left_out)
-    whole = np.broadcast_to(np.arange(n_other), (stop - start, n_other))
-    return TrialDraw(jackknifed, whole) if condition == 0 else TrialDraw(whole, jackknifed)
-
-
-def _bca_bounds(fractions: np.ndarray, observed: float, acceleration: float) -> tuple[float, float, float]:
-    """BCa bounds (Efron, 1987) at CI_LEVEL and the bias correction z0.
-
-    z0 is the normal quantile of the share of resamples below the observed fraction,
-    ties counting one half, because the fraction takes few distinct values.
-    """
-    below = (np.count_nonzero(fractions < observed) + np.count_nonzero(fractions <= observed)) / (2 * fractions.size)
-    z0 = float(ndtri(below))
-    if not np.isfinite(z0):
-        return float("nan"), float("nan"), z0
-    quantiles = []
-    for z_level in (ndtri(0.5 * (1 - CI_LEVEL)), ndtri(0.5 * (1 + CI_LEVEL))):
-        shifted = z0 + z_level
-        quantiles.append(ndtr(z0 + shifted / (1 - acceleration * shifted)))
-    low, high = np.percentile(fractions, [100.0 * quantiles[0], 100.0 * quantiles[1]])
-    return float(low), float(high), z0
+    return mean_t
 
 
 @dataclass(frozen=True)

@@ -1,43 +1,52 @@
-"""Multiple-comparison adjustment of p-values across channels.
+"""Multiple-comparison corrections across channels, one registry of them.
 
-Each method is one function ``(p, n_tests) -> adjusted`` working along the last axis, so
-a (n_resamples, n_channels) array is adjusted row by row without a Python loop. The
-max-statistic correction is not an adjustment of p-values: it comes out of the
-permutation test itself (``epoch_assay.engine.stats.permutation``).
+Each correction that adjusts p-values is one function ``(p, n_tests) -> adjusted`` working
+along the last axis, so a (n_resamples, n_channels) array is adjusted row by row without a
+Python loop. The max-statistic correction is not an adjustment of p-values: it comes out of
+the permutation test itself (``epoch_assay.engine.stats.permutation``), so it has no function.
+
+Every correction declares the properties that code taking shortcuts relies on; a shortcut
+checks them (see ``epoch_assay.engine.stats.bootstrap``) and
+``tests/engine/test_corrections.py`` checks each declaration on random p-values:
+
+``monotone``
+    adjusted p-values keep the order of the raw ones: p_i < p_j gives adjusted_i ≤ adjusted_j.
+``decided_below_alpha``
+    which channels are significant at a level alpha (adjusted p < alpha) is decided by the raw
+    p-values below alpha alone: a channel with raw p ≥ alpha is never significant, and
+    raising any such p (to 1, say) changes no channel's decision. True for the single-step
+    (Bonferroni) and the step-down (Holm) and step-up (Benjamini–Hochberg/–Yekutieli)
+    procedures, whose thresholds for the small p-values do not look at the large ones.
+
+Adding a correction: write its function, add a :class:`Correction` to ``CORRECTIONS`` with its
+properties, and describe it in docs/methods.md; the scoring spec, the API schema and the tests
+take it from the registry.
 """
 
 from collections.abc import Callable
-from typing import Literal, get_args
+from dataclasses import dataclass
+from typing import Annotated
 
 import numpy as np
 
-PValueCorrection = Literal["none", "bonferroni", "holm", "fdr_bh", "fdr_by"]
-CorrectionMethod = Literal["none", "bonferroni", "holm", "fdr_bh", "fdr_by", "max_stat"]
-P_VALUE_CORRECTIONS: tuple[str, ...] = get_args(PValueCorrection)
+from epoch_assay.engine.stats.registry import OneOf
+
+Adjustment = Callable[[np.ndarray, np.ndarray], np.ndarray]
 
 
-def adjust_pvalues(p: np.ndarray, method: PValueCorrection) -> np.ndarray:
-    """Adjusted p-values, one family of tests per row.
+@dataclass(frozen=True)
+class Correction:
+    """A correction across channels: what it controls, how, and the properties shortcuts rely on.
 
-    Parameters
-    ----------
-    p : array, shape (..., n_channels), p-values in [0, 1]; NaN for an undefined test
-    method : "none", "bonferroni", "holm" (Holm's step-down), "fdr_bh"
-        (Benjamini–Hochberg false discovery rate) or "fdr_by" (Benjamini–Yekutieli,
-        valid under any dependence between channels)
-
-    Returns
-    -------
-    array, shape (..., n_channels). NaN p-values stay NaN and are left out of the number
-    of tests of their row, as if the channel had not been tested.
+    ``adjust`` is None for a correction that a test computes itself (``max_stat``, from the
+    permutation distribution of the largest statistic).
     """
-    try:
-        adjust = _METHODS[method]
-    except KeyError:
-        raise ValueError(f"unknown correction {method!r}; choose one of {sorted(_METHODS)}") from None
-    p = np.asarray(p, dtype=float)
-    n_tests = np.count_nonzero(~np.isnan(p), axis=-1, keepdims=True)
-    return adjust(p, n_tests)
+
+    name: str
+    description: str
+    adjust: Adjustment | None
+    monotone: bool
+    decided_below_alpha: bool
 
 
 def _unadjusted(p: np.ndarray, n_tests: np.ndarray) -> np.ndarray:
@@ -84,10 +93,70 @@ def _benjamini_yekutieli(p: np.ndarray, n_tests: np.ndarray) -> np.ndarray:
     return _step_up(p, n_tests, harmonic[n_tests])
 
 
-_METHODS: dict[str, Callable[[np.ndarray, np.ndarray], np.ndarray]] = {
-    "none": _unadjusted,
-    "bonferroni": _bonferroni,
-    "holm": _holm,
-    "fdr_bh": _benjamini_hochberg,
-    "fdr_by": _benjamini_yekutieli,
+CORRECTIONS: dict[str, Correction] = {
+    correction.name: correction
+    for correction in (
+        Correction("none", "raw p-values, no correction", _unadjusted, monotone=True, decided_below_alpha=True),
+        Correction(
+            "bonferroni", "Bonferroni (family-wise error rate)", _bonferroni, monotone=True, decided_below_alpha=True
+        ),
+        Correction("holm", "Holm's step-down (family-wise error rate)", _holm, monotone=True, decided_below_alpha=True),
+        Correction(
+            "fdr_bh",
+            "Benjamini–Hochberg (false discovery rate)",
+            _benjamini_hochberg,
+            monotone=True,
+            decided_below_alpha=True,
+        ),
+        Correction(
+            "fdr_by",
+            "Benjamini–Yekutieli (false discovery rate under any dependence)",
+            _benjamini_yekutieli,
+            monotone=True,
+            decided_below_alpha=True,
+        ),
+        # The family-wise p of a channel follows its |t|, which need not follow the order of
+        # its own permutation p-value; nor is it a function of the raw p-values at all.
+        Correction(
+            "max_stat",
+            "maximum statistic across channels (family-wise error rate; test permutation only)",
+            None,
+            monotone=False,
+            decided_below_alpha=False,
+        ),
+    )
 }
+"""Every correction by name, in the order the API lists them."""
+
+P_VALUE_ADJUSTMENTS: dict[str, Correction] = {
+    name: correction for name, correction in CORRECTIONS.items() if correction.adjust is not None
+}
+"""The corrections that adjust a row of p-values by themselves (all but those a test computes)."""
+
+CorrectionMethod = Annotated[str, OneOf(tuple(CORRECTIONS), "correction")]
+"""Name of a correction in ``CORRECTIONS``."""
+PValueCorrection = Annotated[str, OneOf(tuple(P_VALUE_ADJUSTMENTS), "p-value correction")]
+"""Name of a correction in ``P_VALUE_ADJUSTMENTS``."""
+
+
+def adjust_pvalues(p: np.ndarray, method: PValueCorrection) -> np.ndarray:
+    """Adjusted p-values, one family of tests per row.
+
+    Parameters
+    ----------
+    p : array, shape (..., n_channels), p-values in [0, 1]; NaN for an undefined test
+    method : a name in ``P_VALUE_ADJUSTMENTS``: "none", "bonferroni", "holm" (Holm's
+        step-down), "fdr_bh" (Benjamini–Hochberg false discovery rate) or "fdr_by"
+        (Benjamini–Yekutieli, valid under any dependence between channels)
+
+    Returns
+    -------
+    array, shape (..., n_channels). NaN p-values stay NaN and are left out of the number
+    of tests of their row, as if the channel had not been tested.
+    """
+    correction = P_VALUE_ADJUSTMENTS.get(method)
+    if correction is None or correction.adjust is None:
+        raise ValueError(f"unknown correction {method!r} of p-values; choose one of: {', '.join(P_VALUE_ADJUSTMENTS)}")
+    p = np.asarray(p, dtype=float)
+    n_tests = np.count_nonzero(~np.isnan(p), axis=-1, keepdims=True)
+    return correction.adjust(p, n_tests)

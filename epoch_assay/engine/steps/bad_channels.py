@@ -49,8 +49,8 @@ from pydantic import BaseModel, ConfigDict, Field, model_validator
 from epoch_assay.engine.epochs import SCORED_CHANNEL_TYPES, EpochSet, EpochSetMeta
 from epoch_assay.engine.errors import SpecError
 from epoch_assay.engine.montage import eeg_channels_without_position, epoch_set_positions, missing_positions_error
-from epoch_assay.engine.provenance import StepRecord
-from epoch_assay.engine.steps.base import Step
+from epoch_assay.engine.provenance import Stage, StepOutputs, StepProvenanceBase
+from epoch_assay.engine.steps.base import DataDependentField, Step
 from epoch_assay.engine.steps.line_noise import LINE_FREQUENCIES_HZ
 from epoch_assay.engine.steps.mne_bridge import MNE_QUIET, to_mne_epochs
 from epoch_assay.engine.steps.spectra import mean_channel_psd, robust_z
@@ -323,11 +323,31 @@ def drop_channels(epochs: EpochSet, names: list[str]) -> EpochSet:
     )
 
 
+class BadChannelsOutputs(StepOutputs):
+    """What bad-channel detection reports."""
+
+    channels_flagged: dict[str, list[str]] = Field(
+        default_factory=dict, description="EEG channels found bad now, each with the criteria it failed."
+    )
+    channels_interpolated: list[str] = Field(
+        default_factory=list, description="EEG channels replaced by interpolation (found now or marked bad before)."
+    )
+    channels_dropped: list[str] = Field(
+        default_factory=list, description="EEG channels removed (found now or marked bad before)."
+    )
+
+
 class BadChannels(Step):
     """Find bad EEG channels by the chosen criteria, then flag, interpolate or drop them."""
 
     step: Literal["bad_channels"] = "bad_channels"
-    stage: ClassVar[str] = "continuous"
+    stage: ClassVar[Stage] = Stage.CONTINUOUS
+    Outputs: ClassVar[type[StepOutputs]] = BadChannelsOutputs
+    examples: ClassVar[tuple[dict[str, Any], ...]] = (
+        {"criteria": {"flat": {}, "deviation": {}, "correlation": {}}, "action": "flag"},
+        {"criteria": {"deviation": {"z": 3.0}, "line_noise": {}, "high_frequency": {}}, "action": "interpolate"},
+        {"criteria": {"flat": {}, "deviation": {"z": 3.0}, "bridged": {}}, "action": "drop"},
+    )
 
     criteria: BadChannelCriteria = Field(description="Which criteria to apply, with their thresholds.")
     action: Literal["flag", "interpolate", "drop"] = Field(
@@ -362,7 +382,11 @@ class BadChannels(Step):
                 raise missing_positions_error(("action",), "interpolation", unplaced, "action 'flag' or 'drop'")
         return meta
 
-    def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepRecord]:
+    def data_dependent(self) -> frozenset[DataDependentField]:
+        # Which channels are bad is what the step finds out; a drop removes them.
+        return frozenset({"ch_names", "bads"} if self.action == "drop" else {"bads"})
+
+    def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepProvenanceBase]:
         flagged = detect_bad_channels(epochs, self.criteria)
         bad_eeg = [
             name

@@ -1,12 +1,12 @@
 """Baseline correction: remove each trial's mean over a time window."""
 
-from typing import Literal
+from typing import Any, ClassVar, Literal
 
 import numpy as np
 from pydantic import Field, model_validator
 
 from epoch_assay.engine.epochs import EpochSet, EpochSetMeta
-from epoch_assay.engine.provenance import StepRecord
+from epoch_assay.engine.provenance import StepProvenanceBase
 from epoch_assay.engine.steps.base import Step
 from epoch_assay.engine.windows import check_window_in_epoch, window_mask
 
@@ -21,6 +21,8 @@ class Baseline(Step):
     """
 
     step: Literal["baseline"] = "baseline"
+    examples: ClassVar[tuple[dict[str, Any], ...]] = ({"window_s": [-0.2, 0.0]},)
+
     window_s: tuple[float, float] = Field(description="Baseline window [a, b] in s, both ends included.")
 
     @model_validator(mode="after")
@@ -33,7 +35,7 @@ class Baseline(Step):
         check_window_in_epoch(self.window_s, meta, ("window_s",))
         return meta
 
-    def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepRecord]:
+    def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepProvenanceBase]:
         picks = epochs.picks(BASELINED_CHANNEL_TYPES, exclude_bads=False)
         in_window = window_mask(epochs.times, self.window_s)
         data = epochs.data.astype(np.float64, copy=True)

@@ -1,13 +1,13 @@
 """Per-epoch removal of the mean or of a least-squares straight line."""
 
-from typing import Literal
+from typing import Any, ClassVar, Literal
 
 import numpy as np
 from pydantic import Field
 from scipy import signal
 
 from epoch_assay.engine.epochs import EpochSet
-from epoch_assay.engine.provenance import StepRecord
+from epoch_assay.engine.provenance import StepProvenanceBase
 from epoch_assay.engine.steps.base import Step
 
 DETRENDED_CHANNEL_TYPES = ("eeg", "eog")
@@ -20,9 +20,11 @@ class Detrend(Step):
     """
 
     step: Literal["detrend"] = "detrend"
+    examples: ClassVar[tuple[dict[str, Any], ...]] = ({"kind": "linear"}, {"kind": "constant"})
+
     kind: Literal["constant", "linear"] = Field("linear", description="Remove the mean or a straight line.")
 
-    def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepRecord]:
+    def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepProvenanceBase]:
         picks = epochs.picks(DETRENDED_CHANNEL_TYPES, exclude_bads=False)
         data = epochs.data.astype(np.float64, copy=True)
         if picks.size:

@@ -36,6 +36,21 @@ Band-pass
     so both edges get that width. IIR: a Butterworth band-pass of ``order`` (``order``
     poles per edge), forward and backward.
 
+Edges in provenance
+    Each record lists, per edge, the -6 dB frequency (the step's cutoff) and the passband
+    edge: for FIR the end of the transition band (cutoff + half the transition width for a
+    high-pass edge, minus for a low-pass edge); for IIR the frequency from which the
+    zero-phase response stays within the FIR's passband ripple of 0.02 dB. MNE-Python's
+    ``l_freq``/``h_freq`` are passband edges of FIR filters, so MNE's ``l_freq = L`` with
+    transition ``T`` is our ``cutoff_hz = L - T / 2`` (``h_freq = H``: ``H + T / 2``); see
+    docs/methods.md.
+
+Short uploaded epochs
+    A high-pass edge whose three periods (``3 / cutoff``, common practice) outlast an
+    uploaded epoch filters mostly the padding: the result is close to subtracting each
+    epoch's mean. :func:`check_highpass_fits_epochs` refuses it at run creation unless the
+    step sets ``allow_short_epochs``; the step then warns in every record.
+
 Padding
     Each epoch is extended at both ends by even reflection (``numpy.pad`` mode
     "reflect") and the padding is cut off after filtering. FIR: by the kernel length.
@@ -50,17 +65,17 @@ Memory
 """
 
 import math
-from collections.abc import Callable
-from typing import ClassVar, Literal
+from collections.abc import Callable, Sequence
+from typing import Annotated, Any, ClassVar, Literal
 
 import numpy as np
-from pydantic import Field, model_validator
+from pydantic import BaseModel, ConfigDict, Field, model_validator
 from scipy import signal
 from scipy.optimize import brentq
 
 from epoch_assay.engine.epochs import EpochSet, EpochSetMeta
 from epoch_assay.engine.errors import SpecError
-from epoch_assay.engine.provenance import StepRecord
+from epoch_assay.engine.provenance import Stage, StepOutputs, StepProvenanceBase
 from epoch_assay.engine.steps.base import Step
 
 FILTERED_CHANNEL_TYPES = ("eeg", "eog")
@@ -74,6 +89,9 @@ _HAMMING_TRANSITION_WIDTH = 3.3
 _IIR_PADDING_DECAY = 1e-4
 # common practice: an epoch should hold about three periods of a high-pass cutoff
 _HIGHPASS_PERIODS_PER_EPOCH = 3.0
+# Passband ripple of a Hamming-windowed sinc, about 0.02 dB (Oppenheim & Schafer, Table 7.2);
+# the IIR passband edge is where the zero-phase response comes this close to unity.
+_PASSBAND_RIPPLE_DB = 0.02
 
 # Padded rows filtered at once stay below this size (float64); see "Memory" above.
 FILTER_BLOCK_BYTES = 64 * 2**20
@@ -185,46 +203,166 @@ def _check_fir_band_ends_below_nyquist(
         )
 
 
+class FilterEdge(BaseModel):
+    """One edge of a filter's passband, in Hz."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+    side: Literal["low", "high"] = Field(
+        description="low: the edge of a high-pass or a band-pass's lower edge; high: a low-pass edge."
+    )
+    minus_6db_hz: float = Field(description="Where the zero-phase response is at half amplitude (the cutoff), in Hz.")
+    passband_edge_hz: float | None = Field(
+        description="Where the passband begins, in Hz: FIR, the end of the transition band (MNE's l_freq/h_freq "
+        "for its FIR filters); IIR, where the zero-phase gain comes within 0.02 dB of unity; null when an IIR "
+        "band never does."
+    )
+
+
+class FilterOutputs(StepOutputs):
+    """What a filter reports: its edges."""
+
+    filter_edges: list[FilterEdge] = Field(
+        default_factory=list, description="The -6 dB frequency and passband edge of each edge of the filter."
+    )
+
+
+def _edge(side: Literal["low", "high"], minus_6db_hz: float, passband_edge_hz: float | None) -> FilterEdge:
+    return FilterEdge(side=side, minus_6db_hz=minus_6db_hz, passband_edge_hz=passband_edge_hz)
+
+
+def fir_edges(band: FilterBand, cutoff_hz: float | tuple[float, float]) -> list[FilterEdge]:
+    """The -6 dB frequency and passband edge of each edge of the FIR design of :func:`design_fir`, in Hz."""
+    half_transition = fir_transition_hz(float(np.min(cutoff_hz))) / 2
+    low, high = _edge_cutoffs(band, cutoff_hz)
+    edges = [] if low is None else [_edge("low", low, low + half_transition)]
+    return edges + ([] if high is None else [_edge("high", high, high - half_transition)])
+
+
+def iir_edges(
+    band: FilterBand, cutoff_hz: float | tuple[float, float], sos: np.ndarray, sfreq: float
+) -> list[FilterEdge]:
+    """The -6 dB frequency and passband edge of each edge of a forward-backward IIR filter, in Hz.
+
+    The passband edge is where the zero-phase gain (the squared magnitude of one pass) is
+    ``-_PASSBAND_RIPPLE_DB``, found between the cutoff and the middle of the passband.
+    """
+    nyquist = sfreq / 2
+
+    def gain_db(frequency: float) -> float:
+        _, response = signal.freqz_sos(sos, worN=[frequency], fs=sfreq)
+        return float(20.0 * np.log10(np.abs(response[0]) ** 2)) + _PASSBAND_RIPPLE_DB
+
+    def edge_toward(cutoff: float, inside: float) -> float | None:
+        if gain_db(inside) < 0.0:
+            return None
+        return float(brentq(gain_db, min(cutoff, inside), max(cutoff, inside), xtol=1e-9 * nyquist))
+
+    low, high = _edge_cutoffs(band, cutoff_hz)
+    # The middle of the passband: geometric for a band, well inside it for one edge.
+    if low is not None and high is not None:
+        centre = math.sqrt(low * high)
+    else:
+        centre = (low + nyquist) / 2 if low is not None else (high or 0.0) / 100
+    edges = [] if low is None else [_edge("low", low, edge_toward(low, centre))]
+    return edges + ([] if high is None else [_edge("high", high, edge_toward(high, centre))])
+
+
+def _edge_cutoffs(band: FilterBand, cutoff_hz: float | tuple[float, float]) -> tuple[float | None, float | None]:
+    """(high-pass edge, low-pass edge) of a design, in Hz; None where the band has no such edge."""
+    if band == "bandpass":
+        low, high = cutoff_hz  # type: ignore[misc]
+        return float(low), float(high)
+    return (float(cutoff_hz), None) if band == "highpass" else (None, float(cutoff_hz))  # type: ignore[arg-type]
+
+
+def shortest_epoch_s(highpass_hz: float) -> float:
+    """Shortest epoch, in s, that holds three periods of a high-pass edge at ``highpass_hz``."""
+    return _HIGHPASS_PERIODS_PER_EPOCH / highpass_hz
+
+
 def short_epoch_warnings(epochs: EpochSet, highpass_hz: float) -> list[str]:
     """A warning when each epoch is shorter than three periods of a high-pass cutoff (in Hz)."""
     duration_s = epochs.n_times / epochs.sfreq
-    needed_s = _HIGHPASS_PERIODS_PER_EPOCH / highpass_hz
+    needed_s = shortest_epoch_s(highpass_hz)
     if duration_s >= needed_s:
         return []
     return [
         f"each epoch lasts {duration_s:.3g} s, shorter than three periods of the {highpass_hz:g} Hz "
-        f"high-pass cutoff ({needed_s:.3g} s), so the filtered epochs depend on the edge padding; "
-        "filtering the continuous recording before epoching is better"
+        f"high-pass cutoff ({needed_s:.3g} s): the filter saw mostly the edge padding, and its output is close "
+        "to each epoch minus its mean; filter the continuous recording before epoching instead"
     ]
+
+
+def check_highpass_fits_epochs(steps: Sequence[Step], meta: EpochSetMeta) -> None:
+    """Refuse a high-pass edge whose three periods outlast uploaded epochs of ``meta``.
+
+    Each step sees the metadata its predecessors produce. Raises ``SpecError`` located at
+    ``("steps", index, field)`` for the first filter whose ``3 / cutoff`` (in s) is longer
+    than the epoch and that does not set ``allow_short_epochs``. Only for epochs uploaded as
+    such: a recording is filtered before epoching, where the rule does not apply.
+    """
+    for index, step in enumerate(steps):
+        highpass_hz = step.highpass_hz() if isinstance(step, _ZeroPhaseFilter) else None
+        if highpass_hz is not None and not step.allow_short_epochs:  # type: ignore[attr-defined]
+            duration_s = meta.n_times / meta.sfreq
+            needed_s = shortest_epoch_s(highpass_hz)
+            if duration_s < needed_s:
+                raise SpecError(
+                    ("steps", index, step.highpass_field),  # type: ignore[attr-defined]
+                    f"a {highpass_hz:g} Hz high-pass edge needs epochs of at least 3 / {highpass_hz:g} Hz = "
+                    f"{needed_s:.3g} s (three periods of the cutoff, common practice), and these uploaded epochs "
+                    f"last {duration_s:.3g} s: the filter would see mostly the padding added at the epoch edges, "
+                    "and its output would be close to subtracting each epoch's mean (a 0.1 Hz high-pass on a 1 s "
+                    "epoch is). Upload the continuous recording instead, so that the filter runs before epoching, "
+                    "or set allow_short_epochs to true on this step to run it anyway (every entry of the pipeline "
+                    "then carries a warning)",
+                )
+        meta = step.check(meta)
+
+
+AllowShortEpochs = Annotated[
+    bool,
+    Field(
+        description="Run the high-pass edge on uploaded epochs shorter than three periods of its cutoff, which "
+        "is otherwise refused at run creation; every entry of the pipeline then carries a warning."
+    ),
+]
 
 
 class _ZeroPhaseFilter(Step):
     """A zero-phase filter of EEG and EOG channels; subclasses set ``band``, ``step`` and the cutoffs."""
 
-    stage: ClassVar[str] = "continuous"
+    stage: ClassVar[Stage] = Stage.CONTINUOUS
+    # 2: records the filter's edges (filter_edges)
+    version: ClassVar[int] = 2
+    Outputs: ClassVar[type[StepOutputs]] = FilterOutputs
     band: ClassVar[FilterBand]
 
     method: Literal["fir", "iir"] = Field("fir", description="Windowed-sinc FIR or Butterworth IIR.")
     order: int = Field(4, ge=1, le=10, description="Butterworth order of each pass (iir only).")
 
-    def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepRecord]:
+    def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepProvenanceBase]:
         picks = epochs.picks(FILTERED_CHANNEL_TYPES, exclude_bads=False)
         data = epochs.data.astype(np.float64, copy=True)
-        if picks.size:
-            data[:, picks] = self._filter(epochs.data[:, picks], epochs.sfreq)
-        highpass_hz = self._highpass_hz()
-        warnings = [] if highpass_hz is None else short_epoch_warnings(epochs, highpass_hz)
-        return epochs.with_changes(data=data), self.record(warnings=warnings)
-
-    def _filter(self, data: np.ndarray, sfreq: float) -> np.ndarray:
         if self.method == "fir":
-            return fir_zero_phase(data, design_fir(self.band, self._cutoffs(), sfreq))
-        return iir_zero_phase(data, design_iir(self.band, self._cutoffs(), self.order, sfreq))
+            kernel = design_fir(self.band, self._cutoffs(), epochs.sfreq)
+            edges = fir_edges(self.band, self._cutoffs())
+            if picks.size:
+                data[:, picks] = fir_zero_phase(epochs.data[:, picks], kernel)
+        else:
+            sos = design_iir(self.band, self._cutoffs(), self.order, epochs.sfreq)
+            edges = iir_edges(self.band, self._cutoffs(), sos, epochs.sfreq)
+            if picks.size:
+                data[:, picks] = iir_zero_phase(epochs.data[:, picks], sos)
+        highpass_hz = self.highpass_hz()
+        warnings = [] if highpass_hz is None else short_epoch_warnings(epochs, highpass_hz)
+        return epochs.with_changes(data=data), self.record(filter_edges=edges, warnings=warnings)
 
     def _cutoffs(self) -> float | tuple[float, float]:
         raise NotImplementedError
 
-    def _highpass_hz(self) -> float | None:
+    def highpass_hz(self) -> float | None:
         """The cutoff below which the filter removes, in Hz; None for a low-pass."""
         raise NotImplementedError
 
@@ -232,7 +370,12 @@ class _ZeroPhaseFilter(Step):
 class _CutoffFilter(_ZeroPhaseFilter):
     """A zero-phase filter with one cutoff."""
 
-    cutoff_hz: float = Field(gt=0.0, allow_inf_nan=False, description="Cutoff frequency, in Hz (-6 dB point).")
+    cutoff_hz: float = Field(
+        gt=0.0,
+        allow_inf_nan=False,
+        description="Cutoff frequency, in Hz: the -6 dB point. MNE's l_freq/h_freq is the FIR passband edge "
+        "instead; docs/methods.md gives the conversion.",
+    )
 
     def check(self, meta: EpochSetMeta) -> EpochSetMeta:
         _check_below_nyquist(("cutoff_hz",), self.cutoff_hz, meta)
@@ -249,8 +392,15 @@ class HighPass(_CutoffFilter):
 
     step: Literal["highpass"] = "highpass"
     band: ClassVar[FilterBand] = "highpass"
+    examples: ClassVar[tuple[dict[str, Any], ...]] = (
+        {"cutoff_hz": 1.0},
+        {"cutoff_hz": 0.5, "method": "iir", "order": 2},
+    )
+    highpass_field: ClassVar[str] = "cutoff_hz"
 
-    def _highpass_hz(self) -> float | None:
+    allow_short_epochs: AllowShortEpochs = False
+
+    def highpass_hz(self) -> float | None:
         return self.cutoff_hz
 
 
@@ -259,8 +409,9 @@ class LowPass(_CutoffFilter):
 
     step: Literal["lowpass"] = "lowpass"
     band: ClassVar[FilterBand] = "lowpass"
+    examples: ClassVar[tuple[dict[str, Any], ...]] = ({"cutoff_hz": 30.0}, {"cutoff_hz": 40.0, "method": "iir"})
 
-    def _highpass_hz(self) -> float | None:
+    def highpass_hz(self) -> float | None:
         return None
 
 
@@ -269,9 +420,15 @@ class BandPass(_ZeroPhaseFilter):
 
     step: Literal["bandpass"] = "bandpass"
     band: ClassVar[FilterBand] = "bandpass"
+    examples: ClassVar[tuple[dict[str, Any], ...]] = (
+        {"low_hz": 1.0, "high_hz": 30.0},
+        {"low_hz": 0.5, "high_hz": 40.0, "method": "iir", "order": 3},
+    )
+    highpass_field: ClassVar[str] = "low_hz"
 
     low_hz: float = Field(gt=0.0, allow_inf_nan=False, description="Lower cutoff, in Hz (-6 dB point).")
     high_hz: float = Field(gt=0.0, allow_inf_nan=False, description="Upper cutoff, in Hz (-6 dB point).")
+    allow_short_epochs: AllowShortEpochs = False
 
     @model_validator(mode="after")
     def _ordered_cutoffs(self) -> "BandPass":
@@ -296,5 +453,5 @@ class BandPass(_ZeroPhaseFilter):
     def _cutoffs(self) -> tuple[float, float]:
         return (self.low_hz, self.high_hz)
 
-    def _highpass_hz(self) -> float | None:
+    def highpass_hz(self) -> float | None:
         return self.low_hz

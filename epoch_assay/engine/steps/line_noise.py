@@ -17,7 +17,7 @@
 Both act on EEG and EOG channels, bad ones included.
 """
 
-from typing import ClassVar, Literal
+from typing import Any, ClassVar, Literal
 
 import numpy as np
 from pydantic import Field, field_validator
@@ -25,7 +25,7 @@ from scipy import fft, signal
 
 from epoch_assay.engine.epochs import EpochSet, EpochSetMeta
 from epoch_assay.engine.errors import SpecError
-from epoch_assay.engine.provenance import StepRecord
+from epoch_assay.engine.provenance import Stage, StepProvenanceBase
 from epoch_assay.engine.steps.base import Step
 from epoch_assay.engine.steps.filters import (
     FILTERED_CHANNEL_TYPES,
@@ -79,7 +79,11 @@ class LineNoise(Step):
     """Remove the line frequency ``freq_hz`` and its harmonics from EEG and EOG channels."""
 
     step: Literal["line_noise"] = "line_noise"
-    stage: ClassVar[str] = "continuous"
+    stage: ClassVar[Stage] = Stage.CONTINUOUS
+    examples: ClassVar[tuple[dict[str, Any], ...]] = (
+        {"freq_hz": 50.0},
+        {"freq_hz": 60.0, "method": "spectrum_interpolation", "bandwidth_hz": 2.0},
+    )
 
     freq_hz: float = Field(50.0, description="Mains frequency, 50 or 60 Hz.")
     method: Literal["notch", "spectrum_interpolation"] = Field("notch", description="How the line is removed.")
@@ -113,7 +117,7 @@ class LineNoise(Step):
                 )
         return meta
 
-    def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepRecord]:
+    def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepProvenanceBase]:
         picks = epochs.picks(FILTERED_CHANNEL_TYPES, exclude_bads=False)
         harmonics = line_harmonics_hz(self.freq_hz, epochs.sfreq, self.bandwidth_hz)
         data = epochs.data.astype(np.float64, copy=True)

@@ -1,6 +1,6 @@
 """Re-referencing of EEG channels: to their average, to chosen channels, to infinity (REST), or not at all."""
 
-from typing import Literal
+from typing import Any, ClassVar, Literal
 
 import numpy as np
 from pydantic import Field, model_validator
@@ -8,7 +8,7 @@ from pydantic import Field, model_validator
 from epoch_assay.engine.epochs import EpochSet, EpochSetMeta
 from epoch_assay.engine.errors import SpecError
 from epoch_assay.engine.montage import eeg_channels_without_position, epoch_set_positions, missing_positions_error
-from epoch_assay.engine.provenance import StepRecord
+from epoch_assay.engine.provenance import StepProvenanceBase
 from epoch_assay.engine.steps.base import Step
 from epoch_assay.engine.steps.rest import rest_reference_weights
 
@@ -40,6 +40,13 @@ class Reference(Step):
     """
 
     step: Literal["reference"] = "reference"
+    examples: ClassVar[tuple[dict[str, Any], ...]] = (
+        {"kind": "average"},
+        {"kind": "channels", "channels": ["TP9", "TP10"]},
+        {"kind": "rest"},
+        {"kind": "none"},
+    )
+
     kind: Literal["average", "channels", "rest", "none"] = Field(description="What the channels are referenced to.")
     channels: tuple[str, ...] = Field((), description="Reference channel names (kind 'channels' only).")
 
@@ -80,7 +87,7 @@ class Reference(Step):
                 raise missing_positions_error(("kind",), "the REST reference", unplaced, "kind 'average'")
         return meta
 
-    def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepRecord]:
+    def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepProvenanceBase]:
         if self.kind == "none":
             return epochs, self.record()
         missing = [name for name in self.channels if name not in epochs.ch_names]

@@ -3,7 +3,7 @@
 import math
 from dataclasses import replace
 from fractions import Fraction
-from typing import ClassVar, Literal
+from typing import Any, ClassVar, Literal
 
 import numpy as np
 from pydantic import Field
@@ -11,7 +11,7 @@ from scipy import signal
 
 from epoch_assay.engine.epochs import EpochSet, EpochSetMeta
 from epoch_assay.engine.errors import SpecError
-from epoch_assay.engine.provenance import StepRecord
+from epoch_assay.engine.provenance import Stage, StepProvenanceBase
 from epoch_assay.engine.steps.base import Step
 
 # The up / down factors of the rate ratio are kept small enough for scipy's polyphase filter
@@ -40,7 +40,8 @@ class Resample(Step):
     """
 
     step: Literal["resample"] = "resample"
-    stage: ClassVar[str] = "continuous"
+    stage: ClassVar[Stage] = Stage.CONTINUOUS
+    examples: ClassVar[tuple[dict[str, Any], ...]] = ({"sfreq": 125.0}, {"sfreq": 100.0}, {"sfreq": 250.0})
 
     sfreq: float = Field(gt=0.0, allow_inf_nan=False, description="New sampling frequency, in Hz.")
 
@@ -67,7 +68,7 @@ class Resample(Step):
             )
         return replace(meta, sfreq=self.sfreq, n_times=n_times)
 
-    def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepRecord]:
+    def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepProvenanceBase]:
         if self.sfreq == epochs.sfreq:
             return epochs, self.record()
         ratio = rate_ratio(epochs.sfreq, self.sfreq)

@@ -28,14 +28,6 @@ SOURCE_EXCLUDE_M = 0.030
 PINV_RTOL = 1e-6
 
 
-def sphere_leadfield(positions: np.ndarray) -> np.ndarray:
-    """Free-orientation leadfield, shape (n_channels, 3 * n_dipoles), in V per A·m.
-
-    positions : array, shape (n_channels, 3), in m (head coordinates), all finite
-    """
-    return _cached_leadfield(_positions_key(positions)).copy()
-
-
 def rest_reference_weights(positions: np.ndarray) -> np.ndarray:
     """Weights ``r``, shape (n_channels,), such that ``V - r · V`` is the REST-referenced data.
 
@@ -51,6 +43,7 @@ def _positions_key(positions: np.ndarray) -> tuple[tuple[float, float, float], .
 
 @lru_cache(maxsize=16)
 def _cached_leadfield(key: tuple[tuple[float, float, float], ...]) -> np.ndarray:
+    """Free-orientation leadfield, shape (n_channels, 3 * n_dipoles), in V per A·m, of the positions in ``key`` (m)."""
     positions = np.array(key, dtype=float)
     names = [f"E{i}" for i in range(len(positions))]
     info = mne.create_info(names, 1000.0, "eeg", verbose=MNE_QUIET)

@@ -16,16 +16,16 @@ channel, and rejects the trial if any channel passes its threshold:
 Spectral power is taken from the Hann-tapered, mean-removed epoch.
 """
 
-from typing import Literal
+from typing import Any, ClassVar, Literal
 
 import numpy as np
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 from scipy import fft, signal
 
-from epoch_assay.engine.epochs import EpochSet, EpochSetMeta
+from epoch_assay.engine.epochs import TRIAL_ID_KEY, EpochSet, EpochSetMeta
 from epoch_assay.engine.errors import SpecError
-from epoch_assay.engine.provenance import StepRecord
-from epoch_assay.engine.steps.base import Step
+from epoch_assay.engine.provenance import StepOutputs, StepProvenanceBase
+from epoch_assay.engine.steps.base import DataDependentField, Step
 from epoch_assay.engine.steps.spectra import robust_z
 from epoch_assay.engine.units import uv_to_v
 
@@ -95,10 +95,27 @@ def rejected_trials(epochs: EpochSet, criteria: TrialCriteria) -> dict[str, np.n
     return masks
 
 
+class TrialRejectionOutputs(StepOutputs):
+    """What trial rejection reports."""
+
+    trials_removed: dict[str, int] = Field(
+        default_factory=dict, description="Trials removed, by condition label; conditions that lost none are left out."
+    )
+    trials_removed_ids: list[str] = Field(
+        default_factory=list,
+        description="The trial_id of each removed trial, when the upload gave trial ids (NPZ trial_id); else empty.",
+    )
+
+
 class TrialRejection(Step):
     """Remove trials that any chosen criterion marks as artifacts."""
 
     step: Literal["trial_rejection"] = "trial_rejection"
+    Outputs: ClassVar[type[StepOutputs]] = TrialRejectionOutputs
+    examples: ClassVar[tuple[dict[str, Any], ...]] = (
+        {"criteria": {"peak_to_peak_uv": 350.0}},
+        {"criteria": {"amplitude_z": 3.0, "high_frequency_z": 3.0, "low_frequency_z": 3.0}},
+    )
 
     criteria: TrialCriteria = Field(description="Criteria and thresholds; a trial failing any is removed.")
 
@@ -117,7 +134,10 @@ class TrialRejection(Step):
             )
         return meta
 
-    def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepRecord]:
+    def data_dependent(self) -> frozenset[DataDependentField]:
+        return frozenset({"condition_counts"})
+
+    def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepProvenanceBase]:
         masks = rejected_trials(epochs, self.criteria)
         rejected = np.logical_or.reduce(list(masks.values()))
         before = epochs.condition_counts()
@@ -130,6 +150,8 @@ class TrialRejection(Step):
             for label, count in removed.items()
             if count > WARN_REMOVED_FRACTION * before[label]
         ]
-        keep = ~rejected
-        result = epochs.with_changes(data=epochs.data[keep], labels=epochs.labels[keep])
-        return result, self.record(trials_removed=removed, warnings=warnings)
+        ids = epochs.trial_arrays.get(TRIAL_ID_KEY)
+        removed_ids = [] if ids is None else [str(value) for value in ids[rejected].tolist()]
+        return epochs.select_trials(~rejected), self.record(
+            trials_removed=removed, trials_removed_ids=removed_ids, warnings=warnings
+        )

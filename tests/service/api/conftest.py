@@ -3,7 +3,7 @@ import itertools
 import httpx
 import pytest
 
-from tests.support.live import LiveService, start_service
+from tests.support.live import LOOPBACK_NETWORK, LiveService, start_service
 
 _study_numbers = itertools.count(1)
 
@@ -11,7 +11,8 @@ _study_numbers = itertools.count(1)
 @pytest.fixture(scope="session")
 def service(tmp_path_factory: pytest.TempPathFactory) -> LiveService:
     """One real API process and one real worker process for the API tests."""
-    live = start_service(tmp_path_factory.mktemp("service"))
+    # Webhook tests receive on 127.0.0.1, which webhooks may only reach when the network is allowed.
+    live = start_service(tmp_path_factory.mktemp("service"), webhook_allowed_networks=LOOPBACK_NETWORK)
     yield live
     live.stop()
 

@@ -96,7 +96,7 @@ def _get(url: Callable[[World], str]) -> Callable[[World], tuple[str, dict]]:
 ROUTES = [
     Route("GET", "/healthz", "public", _get(lambda w: "/healthz")),
     Route("GET", "/readyz", "public", _get(lambda w: "/readyz")),
-    Route("GET", "/metrics", "any key", _get(lambda w: "/metrics")),
+    Route("GET", "/metrics", "admin", _get(lambda w: "/metrics")),
     Route(
         "POST",
         "/v1/studies",

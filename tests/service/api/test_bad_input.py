@@ -109,6 +109,16 @@ BAD_RUNS = {
         "trials_per_condition",
     ),
     "unknown step": ([{"step": "make_it_significant"}], {}, "make_it_significant"),
+    "high-pass whose three periods outlast the uploaded epochs": (
+        [{"step": "highpass", "cutoff_hz": 1.0}],
+        {},
+        "/recordings",
+    ),
+    "bca on the significant fraction": (
+        [],
+        {"bootstrap": {"mode": "all", "ci": "bca", "resamples": 100}},
+        "smooth statistic",
+    ),
     "alpha out of range": ([], {"alpha": 1.5}, "alpha"),
 }
 

@@ -7,6 +7,8 @@ import pytest
 from tests.service.api.helpers import SCORING
 from tests.support.epoch_files import npz_bytes, small_epochs
 from tests.support.live import run_cli
+from tests.support.recording_files import known_recording
+from tests.support.session_files import write_brainvision
 
 SPEC_PIPELINES = [{"name": "raw", "steps": []}, {"name": "lp30", "steps": [{"step": "lowpass", "cutoff_hz": 30.0}]}]
 
@@ -71,3 +73,49 @@ def test_a_refused_request_exits_non_zero_with_the_servers_detail(cli):
     finished = cli("status", "run_0000000000000000")
     assert finished.returncode != 0
     assert "404" in finished.stderr and "no run with id" in finished.stderr
+
+
+def test_upload_sends_a_brainvision_set_and_events_per_run_as_one_recording_session(cli, study, tmp_path):
+    files = write_brainvision(known_recording(seed=92), tmp_path)
+    epoching = {"tmin": -0.2, "tmax": 0.6, "conditions": {"a": ["Stimulus/S  1"], "b": ["Stimulus/S  2"]}}
+    finished = cli(
+        "upload",
+        *(str(path) for path in files.values()),
+        "--study",
+        study,
+        "--subject",
+        "sub-01",
+        "--epoching",
+        json.dumps(epoching),
+        "--channels",
+        '{"rename": {"Pz": "POz"}}',
+        "--json",
+    )
+    assert finished.returncode == 0, finished.stderr
+    stored = json.loads(finished.stdout)
+    assert (stored["source"], stored["file_format"], stored["conditions"]) == ("recording", "vhdr", {"a": 8, "b": 8})
+    assert "[" + "#" * 30 + "] 100%  uploaded" in finished.stderr
+
+
+def test_upload_sends_a_json_epoch_set_as_a_json_body(cli, study, tmp_path):
+    epochs = small_epochs(seed=93)
+    body = {
+        "data": epochs.data.tolist(),
+        "sfreq": epochs.sfreq,
+        "tmin": epochs.tmin,
+        "ch_names": list(epochs.ch_names),
+        "labels": epochs.labels.tolist(),
+    }
+    path = tmp_path / "epochs.json"
+    path.write_text(json.dumps(body))
+    finished = cli("upload", str(path), "--study", study, "--subject", "sub-02", "--json")
+    assert finished.returncode == 0, finished.stderr
+    assert json.loads(finished.stdout)["n_trials"] == epochs.n_trials
+
+
+def test_upload_of_several_files_without_epoching_is_refused_before_sending(cli, study, tmp_path):
+    paths = [tmp_path / "a.npz", tmp_path / "b.npz"]
+    for path in paths:
+        path.write_bytes(npz_bytes(small_epochs(seed=94)))
+    finished = cli("upload", *(str(p) for p in paths), "--study", study, "--subject", "sub-01")
+    assert finished.returncode != 0 and "--epoching" in finished.stderr

@@ -12,7 +12,7 @@ from alembic import command
 from service.storage.migrate import alembic_config
 from tests.service.api.helpers import SCORING, run_and_wait, upload
 from tests.support.epoch_files import npz_bytes, small_epochs
-from tests.support.live import REPO_ROOT, LiveService, run_cli, start_service
+from tests.support.live import LOOPBACK_NETWORK, REPO_ROOT, LiveService, run_cli, start_service
 from tests.support.postgres import database_mode, fresh_database_url
 
 WEBHOOK = {"url": "http://127.0.0.1:9/hook", "description": "LIMS"}
@@ -59,7 +59,7 @@ def _what_clients_see(client, run_id: str) -> dict:
 
 def test_a_server_on_the_copied_database_answers_as_the_original_did(tmp_path):
     source_url = f"sqlite:///{tmp_path / 'source.sqlite3'}"
-    source = start_service(tmp_path, database_url=source_url)
+    source = start_service(tmp_path, database_url=source_url, webhook_allowed_networks=LOOPBACK_NETWORK)
     try:
         before = _fill(source)
     finally:

@@ -22,7 +22,7 @@ from tests.support.live import REPO_ROOT, LiveService, free_port, run_cli, start
 
 GRID = {
     "factors": {
-        "highpass": {"none": [], "1": [{"step": "highpass", "cutoff_hz": 1.0}]},
+        "highpass": {"none": [], "1": [{"step": "highpass", "cutoff_hz": 1.0, "allow_short_epochs": True}]},
         "reference": {
             "average": [{"step": "reference", "kind": "average"}],
             "cz": [{"step": "reference", "kind": "channels", "channels": ["Cz"]}],

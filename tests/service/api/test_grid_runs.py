@@ -5,7 +5,7 @@ from tests.support.epoch_files import npz_bytes, small_epochs
 
 GRID = {
     "factors": {
-        "highpass": {"none": [], "1": [{"step": "highpass", "cutoff_hz": 1.0}]},
+        "highpass": {"none": [], "1": [{"step": "highpass", "cutoff_hz": 1.0, "allow_short_epochs": True}]},
         "reference": {
             "average": [{"step": "reference", "kind": "average"}],
             "cz": [{"step": "reference", "kind": "channels", "channels": ["Cz"]}],

@@ -130,7 +130,7 @@ def test_the_csv_result_has_one_row_per_pipeline_epoch_set_and_channel(client, s
     assert {(row["pipeline"], row["epoch_set"], row["channel"]) for row in rows} == set(expected)
     for row in rows:
         channel = expected[(row["pipeline"], row["epoch_set"], row["channel"])]
-        assert float(row["p"]) == channel["p"] and float(row["t"]) == channel["t"]
+        assert float(row["p"]) == channel["p"] and float(row["statistic"]) == channel["statistic"]
         assert row["significant"] == str(channel["significant"]).lower()
 
 

@@ -7,7 +7,7 @@ import pytest
 from scipy import stats
 
 from tests.service.api.helpers import SCORING, run_and_wait, upload
-from tests.support.epoch_files import small_epochs
+from tests.support.epoch_files import npz_bytes, small_epochs
 from tests.support.recording_files import events_tsv, known_recording, mne_epochs_bytes, recording_bytes
 
 EPOCHING = {"tmin": -0.2, "tmax": 0.6, "conditions": {"a": ["a"], "b": ["b"]}}
@@ -127,7 +127,7 @@ def test_a_run_on_a_recording_scores_the_epochs_the_known_signal_gives(client, s
     # Reference: scipy.stats.ttest_ind(equal_var=False), Welch's t-test (Virtanen et al., 2020, SciPy 1.0), on
     # the signal as written; EDF quantisation (one digital step) bounds the difference.
     expected = stats.ttest_ind(means[labels == "a"], means[labels == "b"], equal_var=False)
-    np.testing.assert_allclose([c["t"] for c in entry["channels"]], expected.statistic, rtol=1e-3)
+    np.testing.assert_allclose([c["statistic"] for c in entry["channels"]], expected.statistic, rtol=1e-3)
 
 
 def test_a_run_on_a_recording_filters_before_epoching_and_says_so(client, study):
@@ -208,3 +208,30 @@ def test_a_client_file_name_never_becomes_a_path(client, service, study, tmp_pat
     )
     assert answer.status_code == 201, answer.text
     assert not any("evil" in path.name for path in service.data_dir.rglob("*"))
+
+
+def test_trial_ids_of_an_npz_name_the_trials_a_run_rejected(client, study):
+    epochs = small_epochs(seed=62)
+    data = epochs.data.copy()
+    data[[3, 40], 0, 40:] += 300e-6  # two electrode pops, far above a 150 µV peak-to-peak limit
+    ids = np.array([f"trial-{i:02d}" for i in range(epochs.n_trials)])
+    with_ids = epochs.with_changes(data=data, trial_arrays={"trial_id": ids, "trial_onset_s": np.arange(60) * 2.0})
+    stored = upload(client, study, npz_bytes(with_ids))
+    assert stored.status_code == 201, stored.text
+    step = {"step": "trial_rejection", "criteria": {"peak_to_peak_uv": 150.0}}
+    document = run_and_wait(
+        client,
+        {
+            "study": study,
+            "epoch_sets": [stored.json()["id"]],
+            "pipelines": [{"name": "p2p", "steps": [step]}],
+            "scoring": SCORING,
+        },
+    )
+    (record,) = document["results"][0]["provenance"]
+    # Reference: numpy.ptp (Harris et al., 2020, NumPy) finds exactly the two trials given the pops.
+    assert (
+        record["trials_removed_ids"]
+        == ids[np.ptp(data, axis=-1).max(axis=-1) > 150e-6].tolist()
+        == ["trial-03", "trial-40"]
+    )

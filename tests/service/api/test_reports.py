@@ -4,6 +4,7 @@ import base64
 import re
 
 import pytest
+from sqlalchemy import create_engine, text
 
 from tests.service.api.helpers import upload
 from tests.support.epoch_files import npz_bytes, small_epochs
@@ -51,6 +52,13 @@ def test_run_report_is_html_with_every_figure_embedded_as_a_png_data_uri(client,
     # ranking, maps of the reference and the two best others, time course, kept trials/channels, SME
     assert len(images) == 7
     assert all(base64.b64decode(image).startswith(b"\x89PNG\r\n\x1a\n") for image in images)
+
+
+def test_run_report_shows_each_pipeline_against_the_reference_with_the_adjusted_p(client, scored):
+    _code, run_id = scored
+    page = client.get(f"/v1/runs/{run_id}/report").text
+    assert "Pipelines against the reference" in page and "p adjusted" in page
+    assert "max-|t| sign-flip permutation over subjects across 2 pipelines" in page
 
 
 def test_run_report_loads_nothing_from_elsewhere(client, scored):
@@ -153,3 +161,37 @@ def test_study_report_shows_the_locked_pipeline_and_quality_on_arrival(client, s
     assert "locked-raw" in page and epoch_set["id"] in page
     assert f"a: {entry['median_sme_uv']['a']:.2f}" in page
     assert f"{entry['channels_kept']} of {entry['channels_uploaded']}" in page
+
+
+def _kept_figures(service, run_id: str) -> list[tuple[str, str]]:
+    engine = create_engine(service.database_url)
+    try:
+        with engine.connect() as connection:
+            rows = connection.execute(
+                text("SELECT name, format FROM run_figures WHERE run_id = :run ORDER BY name, format"), {"run": run_id}
+            )
+            return [(row.name, row.format) for row in rows]
+    finally:
+        engine.dispose()
+
+
+def test_a_figure_is_drawn_once_then_read_back_and_goes_with_its_run(service, client):
+    with service.client() as http:
+        code = "reports-kept-figures"
+        assert http.post("/v1/studies", json={"code": code, "title": "Kept figures"}).status_code == 201
+        ids = [upload(http, code, npz_bytes(small_epochs(seed=5)), subject="sub-05").json()["id"]]
+        created = http.post(
+            "/v1/runs",
+            json={"study": code, "epoch_sets": ids, "pipelines": PIPELINES[:1], "scoring": BOOTSTRAP_SCORING},
+        )
+        assert wait_for_run(http, created.json()["id"])["status"] == "succeeded"
+    run_id = created.json()["id"]
+    assert _kept_figures(service, run_id) == []
+    first = client.get(f"/v1/runs/{run_id}/figures/ranking.svg")
+    assert first.status_code == 200
+    assert _kept_figures(service, run_id) == [("ranking", "svg")]
+    assert client.get(f"/v1/runs/{run_id}/figures/ranking.svg").content == first.content
+    assert client.get(f"/v1/runs/{run_id}/report").status_code == 200
+    assert ("ranking", "png") in _kept_figures(service, run_id)
+    assert client.delete(f"/v1/runs/{run_id}").status_code == 204
+    assert _kept_figures(service, run_id) == []

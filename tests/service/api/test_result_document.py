@@ -1,15 +1,22 @@
-"""The result document through real processes: what /openapi.json publishes is what a run writes, and a
-document stored under schema_version 1 is served converted.
+"""The result document through real processes: what /openapi.json publishes is what a run writes, a
+document stored under schema_version 1 is served converted, and a client generated from /openapi.json
+types every value of it.
 
-Schema checks use the jsonschema package (Berman et al., an implementation of JSON Schema 2020-12, the
-dialect of OpenAPI 3.1), not the project's own models.
+Outside references: the jsonschema package (an implementation of JSON Schema 2020-12, the dialect of
+OpenAPI 3.1) checks documents against the published schema; openapi-python-client generates the client
+a LIMS integrator would, and its attrs classes parse the documents.
 """
 
 import copy
+import importlib
 import json
+import subprocess
+import sys
 from collections.abc import Iterator
+from pathlib import Path
 from typing import Any
 
+import attrs
 import httpx
 import pytest
 from jsonschema import Draft202012Validator
@@ -25,7 +32,7 @@ from tests.support.result_documents import stored_v1_document
 RESULT_PATH = "/v1/runs/{run_id}/result"
 GRID = {
     "factors": {
-        "highpass": {"none": [], "1": [{"step": "highpass", "cutoff_hz": 1.0}]},
+        "highpass": {"none": [], "1": [{"step": "highpass", "cutoff_hz": 1.0, "allow_short_epochs": True}]},
         "rejection": {"none": [], "strict": [{"step": "trial_rejection", "criteria": {"peak_to_peak_uv": 20.0}}]},
     }
 }
@@ -116,7 +123,7 @@ def test_every_object_of_the_published_document_forbids_keys_it_does_not_list(cl
         if name not in reachable:
             reachable.add(name)
             pending.extend(referenced(components[name]))
-    assert {"RunResultDocument", "ResultEntry", "ChannelScore", "StepProvenance", "RankingEntry"} <= reachable
+    assert {"RunResultDocument", "ResultEntry", "ChannelScore", "TrialRejectionProvenance", "RankingEntry"} <= reachable
     open_objects = [
         name
         for name in sorted(reachable)
@@ -178,16 +185,36 @@ def test_a_converted_schema_version_1_result_validates_against_the_published_sch
     assert not list(Draft202012Validator(closed(published_result_schema(client))).iter_errors(served))
 
 
+def keys_of(served: Any, stored: Any) -> Any:
+    """``served`` restricted, at every depth, to the keys ``stored`` has."""
+    if isinstance(stored, dict) and isinstance(served, dict):
+        return {key: keys_of(served.get(key), value) for key, value in stored.items()}
+    if isinstance(stored, list) and isinstance(served, list):
+        return [keys_of(item, original) for item, original in zip(served, stored, strict=False)]
+    return served
+
+
 def test_schema_version_1_keeps_its_numbers_and_gains_the_keys_it_left_out(client, v1_run):
     run_id, stored = v1_run
     served = client.get(f"/v1/runs/{run_id}/result").json()
     failed = next(index for index, entry in enumerate(stored["results"]) if "error" in entry)
     scored = next(index for index, entry in enumerate(stored["results"]) if "error" not in entry)
     assert served["results"][failed]["channels"] is None and served["results"][scored]["error"] is None
-    assert served["results"][scored]["channels"] == stored["results"][scored]["channels"]
-    assert served["group"] == stored["group"] and served["ranking"] == stored["ranking"]
+    # version 2 calls the channel statistic `statistic` (version 1: `t`) and names it per entry
+    assert [channel["statistic"] for channel in served["results"][scored]["channels"]] == [
+        channel["t"] for channel in stored["results"][scored]["channels"]
+    ]
+    assert served["results"][scored]["statistic_name"] == "welch_t"
+    stored_boot, served_boot = stored["results"][scored]["bootstrap"], served["results"][scored]["bootstrap"]
+    assert (served_boot["spread_low"], served_boot["spread_high"]) == (stored_boot["ci_low"], stored_boot["ci_high"])
+    assert served_boot["subset_mean"] is None and served["results"][scored]["mean_welch_t"] is None
+    # Keys added to the document later (null in a converted document) are left out of the comparison.
+    assert served["group"] == stored["group"] and keys_of(served["ranking"], stored["ranking"]) == stored["ranking"]
     record = stored["results"][failed]["provenance"][0]
-    assert served["results"][failed]["provenance"][0]["params"] == {"step": record["step"], **record["params"]}
+    served_record = served["results"][failed]["provenance"][0]
+    assert {key: served_record[key] for key in ("step", "params", "trials_removed", "warnings")} == {
+        key: record[key] for key in ("step", "params", "trials_removed", "warnings")
+    }
 
 
 def test_a_schema_version_1_result_is_exported_as_csv_and_reported(client, v1_run):
@@ -198,3 +225,75 @@ def test_a_schema_version_1_result_is_exported_as_csv_and_reported(client, v1_ru
     assert len(table.text.strip().splitlines()) == 1 + channels
     report = client.get(f"/v1/runs/{run_id}/report")
     assert report.status_code == 200 and "Run report" in report.text
+
+
+# A LIMS integrator's view: a client generated from /openapi.json by openapi-python-client (an outside tool).
+GENERATOR_CONFIG = "post_hooks: []\n"  # no formatter run on the generated code: it is only imported
+IMAGE_ONLY_WARNING = "Unsupported content_type image/png, image/svg+xml"
+
+
+@pytest.fixture(scope="module")
+def generated_client(service: LiveService, tmp_path_factory: pytest.TempPathFactory) -> Iterator[Any]:
+    """The package openapi-python-client generates from the served /openapi.json, imported, and its output."""
+    folder = tmp_path_factory.mktemp("generated")
+    with service.client() as client:
+        (folder / "openapi.json").write_text(client.get("/openapi.json").text)
+    (folder / "config.yaml").write_text(GENERATOR_CONFIG)
+    generator = Path(sys.executable).with_name("openapi-python-client")
+    command = [str(generator), "generate", "--path", "openapi.json", "--output-path", "lims_client"]
+    command += ["--meta", "none", "--config", "config.yaml"]
+    finished = subprocess.run(command, cwd=folder, capture_output=True, text=True, timeout=120, check=False)
+    assert finished.returncode == 0, finished.stdout + finished.stderr
+    sys.path.insert(0, str(folder))
+    try:
+        yield importlib.import_module("lims_client.models"), finished.stdout + finished.stderr
+    finally:
+        sys.path.remove(str(folder))
+        for name in [name for name in sys.modules if name == "lims_client" or name.startswith("lims_client.")]:
+            del sys.modules[name]
+
+
+def untyped_values(parsed: Any, path: str = "document") -> Iterator[str]:
+    """Where the parsed tree holds a value the generated classes did not type: a key in the
+    ``additional_properties`` of a class that has declared fields, or a plain dict or list of dicts left
+    as parsed JSON. A map class (only ``additional_properties``, with typed values) is walked into."""
+    if isinstance(parsed, list):
+        for index, item in enumerate(parsed):
+            yield from untyped_values(item, f"{path}[{index}]")
+    elif isinstance(parsed, dict):
+        yield path
+    elif attrs.has(type(parsed)):
+        declared = [field.name for field in attrs.fields(type(parsed)) if field.name != "additional_properties"]
+        extra = getattr(parsed, "additional_properties", {})
+        if declared and extra:
+            yield f"{path}: {sorted(extra)}"
+        for name in declared:
+            yield from untyped_values(getattr(parsed, name), f"{path}.{name}")
+        if not declared:
+            for key, value in extra.items():
+                yield from untyped_values(value, f"{path}[{key!r}]")
+
+
+@pytest.mark.slow
+def test_the_generated_client_has_every_json_operation_without_warnings(generated_client):
+    _models, output = generated_client
+    warnings = [block for block in output.split("WARNING")[1:]]
+    assert all(IMAGE_ONLY_WARNING in block for block in warnings), output  # the PNG/SVG figures, not JSON
+    assert "ERROR" not in output, output
+    assert hasattr(_models, "UploadEpochSetV1StudiesCodeEpochSetsPostJsonBody")  # the JSON epoch-set upload
+
+
+@pytest.mark.slow
+def test_the_generated_client_parses_a_real_result_with_every_value_typed(generated_client, real_result):
+    models, _output = generated_client
+    parsed = models.RunResultDocument.from_dict(real_result)
+    assert list(untyped_values(parsed)) == []
+    assert parsed.to_dict() == real_result  # nothing lost or parsed as the wrong class (step records are a union)
+
+
+@pytest.mark.slow
+def test_the_generated_client_parses_a_converted_schema_version_1_result(generated_client, client, v1_run):
+    models, _output = generated_client
+    served = client.get(f"/v1/runs/{v1_run[0]}/result").json()
+    parsed = models.RunResultDocument.from_dict(served)
+    assert list(untyped_values(parsed)) == [] and parsed.to_dict() == served

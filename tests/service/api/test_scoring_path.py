@@ -3,6 +3,7 @@
 import numpy as np
 from scipy import stats
 
+from epoch_assay.engine.document import RESULT_SCHEMA_VERSION
 from tests.service.api.helpers import SCORING, run_and_wait, upload
 from tests.support.epoch_files import npz_bytes, small_epochs
 
@@ -44,7 +45,7 @@ def test_run_result_p_values_match_scipy_welch(client, study):
     means = epochs.data[:, :, in_window].mean(axis=2)
     # Reference: scipy.stats.ttest_ind with equal_var=False is Welch's t-test (Virtanen et al., 2020, SciPy 1.0).
     expected = stats.ttest_ind(means[epochs.labels == "a"], means[epochs.labels == "b"], equal_var=False)
-    np.testing.assert_allclose([c["t"] for c in entry["channels"]], expected.statistic, rtol=1e-9)
+    np.testing.assert_allclose([c["statistic"] for c in entry["channels"]], expected.statistic, rtol=1e-9)
     np.testing.assert_allclose([c["p"] for c in entry["channels"]], expected.pvalue, rtol=1e-9)
     assert entry["n_trials"] == {"a": 30, "b": 30}
     significant = [c["significant"] for c in entry["channels"]]
@@ -63,13 +64,13 @@ def test_bootstrap_with_the_same_seed_gives_the_same_numbers(client, study):
     second = run_and_wait(client, body)["results"][0]["bootstrap"]
     assert first == second
     assert first["resamples"] == 200 and first["trials_per_condition"] == 20
-    assert 0.0 <= first["ci_low"] <= first["median"] <= first["ci_high"] <= 1.0
+    assert 0.0 <= first["spread_low"] <= first["subset_mean"] <= first["spread_high"] <= 1.0
 
 
 def test_every_pipeline_step_of_the_foundation_runs_and_reports_provenance(client, study):
     epoch_set = upload(client, study, npz_bytes(small_epochs(seed=5))).json()
     steps = [
-        {"step": "highpass", "cutoff_hz": 0.5},
+        {"step": "highpass", "cutoff_hz": 0.5, "allow_short_epochs": True},
         {"step": "lowpass", "cutoff_hz": 30.0},
         {"step": "reference", "kind": "channels", "channels": ["TP9", "TP10"]},
         {"step": "baseline", "window_s": [-0.2, 0.0]},
@@ -86,7 +87,7 @@ def test_every_pipeline_step_of_the_foundation_runs_and_reports_provenance(clien
     (entry,) = document["results"]
     assert [record["step"] for record in entry["provenance"]] == ["highpass", "lowpass", "reference", "baseline"]
     assert any("high-pass" in warning or "highpass" in warning for warning in entry["warnings"])
-    assert document["schema_version"] == 1
+    assert document["schema_version"] == RESULT_SCHEMA_VERSION
     assert document["provenance"]["pipeline_hashes"]["full"] == entry["pipeline_hash"]
 
 

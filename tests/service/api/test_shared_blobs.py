@@ -126,7 +126,7 @@ def test_a_blob_damaged_in_the_shared_store_fails_its_run_naming_the_blob(two_ho
     two_hosts.damage(epoch_set["sha256"])
     state = wait_for_run(shared, _run(shared, study, epoch_set["id"]).json()["id"])
     assert state["status"] == "failed"
-    assert state["error"].startswith(f"BlobCorruptError: blob {epoch_set['sha256']} in the blob store ")
+    assert state["error"].startswith(f"the stored file {epoch_set['sha256']} failed its integrity check")
     assert "is damaged" in state["error"] and "upload the file again" in state["error"]
     # Damage does not pass with time: the first attempt is the last.
     [(attempts,)] = two_hosts.service.query("SELECT attempts FROM jobs WHERE run_id = :run", {"run": state["id"]})

@@ -98,7 +98,7 @@ def test_a_failed_run_sends_run_failed_with_the_reason(client, study, service):
     event = json.loads(request.body)
     assert _verified(request, hook["secret"])
     assert event["type"] == "run.failed" and event["data"]["run"]["id"] == run_id
-    assert "No such file" in event["data"]["run"]["error"]
+    assert "no longer stored" in event["data"]["run"]["error"]  # the run's error in our words, without a path
 
 
 def test_a_receiver_that_fails_twice_gets_the_event_on_the_third_attempt(client, study):

@@ -37,8 +37,8 @@ def _document(**entry_changes) -> RunResultDocument:
     """The fixture document with one entry of two channels, Cz and Pz, changed by ``entry_changes``."""
     channel = scored_entry().channels[0]
     channels = [
-        channel.model_copy(update={"name": "Cz", "t": 2.5, "p": 0.01, "p_adjusted": 0.02, "significant": True}),
-        channel.model_copy(update={"name": "Pz", "t": -0.1, "p": 0.9, "p_adjusted": 0.9, "significant": False}),
+        channel.model_copy(update={"name": "Cz", "statistic": 2.5, "p": 0.01, "p_adjusted": 0.02, "significant": True}),
+        channel.model_copy(update={"name": "Pz", "statistic": -0.1, "p": 0.9, "p_adjusted": 0.9, "significant": False}),
     ]
     entry = scored_entry(
         session=None, n_trials={"a": 30, "b": 29}, significant_fraction=0.5, channels=channels, bootstrap=None
@@ -55,7 +55,8 @@ def test_each_channel_is_one_row_with_the_entry_repeated():
     assert [row["channel"] for row in rows] == ["Cz", "Pz"]
     assert rows[0]["n_trials_a"] == "30" and rows[0]["n_trials_b"] == "29" and rows[0]["condition_a"] == "a"
     assert (rows[0]["significant"], rows[1]["significant"]) == ("true", "false")
-    assert rows[0]["session"] == "" and rows[0]["bootstrap_median"] == ""
+    assert rows[0]["session"] == "" and rows[0]["bootstrap_subset_mean"] == ""
+    assert rows[0]["statistic_name"] == "welch_t"
     assert list(rows[0]) == list(COLUMNS)
 
 
@@ -69,7 +70,7 @@ def test_text_a_spreadsheet_would_run_as_a_formula_is_quoted():
     channels = document.results[0].channels
     renamed = [channels[0].model_copy(update={"name": "=HYPERLINK(1)"}), channels[1]]
     rows = _rows(_document(channels=renamed))
-    assert rows[0]["channel"] == "'=HYPERLINK(1)" and rows[1]["t"] == "-0.1"
+    assert rows[0]["channel"] == "'=HYPERLINK(1)" and rows[1]["statistic"] == "-0.1"
 
 
 def test_a_cursor_gives_back_the_position_it_was_made_from():

@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from epoch_assay.engine.document import RunResultDocument
+from epoch_assay.engine.document import FractionInterval, RunResultDocument, SubsetSpread
 from epoch_assay.engine.document.multiverse import SubjectSpread
 from epoch_assay.engine.document.run import RunProvenance
 from service.report import summary
@@ -85,10 +85,30 @@ def test_ranking_from_entries_orders_by_mean_and_gives_a_t_interval():
     assert rows[1].is_reference and not rows[0].is_reference
 
 
-def test_ranking_of_one_epoch_set_uses_its_bootstrap_interval():
-    bootstrap = scored_entry().bootstrap.model_copy(update={"median": 0.45, "ci_low": 0.25, "ci_high": 0.625})
+def test_ranking_of_one_epoch_set_uses_its_fraction_and_all_mode_percentile_interval():
+    bootstrap = FractionInterval(
+        mode="all", resamples=100, trials_drawn={"a": 30, "b": 30}, ci="percentile", ci_low=0.25, ci_high=0.625
+    )
     document = _document("raw", results=[scored_entry(pipeline="raw", significant_fraction=0.5, bootstrap=bootstrap)])
-    assert summary.ranking(document).rows == [RankingRow("raw", 0.45, 0.25, 0.625, True)]
+    ranking = summary.ranking(document)
+    assert ranking.rows == [RankingRow("raw", 0.5, 0.25, 0.625, True)]
+    assert "percentile bootstrap interval" in ranking.description
+
+
+def test_ranking_of_one_epoch_set_in_fixed_mode_shows_the_subset_mean_and_calls_the_spread_no_interval():
+    bootstrap = SubsetSpread(
+        mode="fixed",
+        resamples=100,
+        trials_per_condition=20,
+        share_of_trials_used={"a": 0.5, "b": 0.5},
+        subset_mean=0.45,
+        spread_low=0.3,
+        spread_high=0.6,
+    )
+    document = _document("raw", results=[scored_entry(pipeline="raw", significant_fraction=0.5, bootstrap=bootstrap)])
+    ranking = summary.ranking(document)
+    assert ranking.rows == [RankingRow("raw", 0.45, 0.3, 0.6, True)]
+    assert "not a confidence interval" in ranking.description
 
 
 def test_ranking_of_the_document_is_used_as_it_stands_with_the_reference_from_vs_reference():
@@ -148,22 +168,23 @@ def test_kept_figure_bars_carry_the_mean_trial_and_channel_counts():
     assert sorted(patch.get_width() for patch in channels_ax.patches) == [7.0, 8.0]
 
 
-def test_channel_map_averages_t_and_marks_channels_significant_in_half_the_sets():
+def test_channel_map_averages_the_statistic_and_marks_channels_significant_in_half_the_sets():
     channel = scored_entry().channels[0]
 
     def entry(t, s):
         return scored_entry(
             pipeline="raw",
             channels=[
-                channel.model_copy(update={"name": "Cz", "t": t, "significant": s}),
-                channel.model_copy(update={"name": "Pz", "t": 1.0, "significant": False}),
+                channel.model_copy(update={"name": "Cz", "statistic": t, "significant": s}),
+                channel.model_copy(update={"name": "Pz", "statistic": 1.0, "significant": False}),
             ],
         )
 
     document = _document("raw", results=[entry(4.0, True), entry(2.0, False)])
     channel_map = summary.channel_map(document, "raw")
     assert channel_map.ch_names == ("Cz", "Pz")
-    np.testing.assert_allclose(channel_map.t, [3.0, 1.0])
+    np.testing.assert_allclose(channel_map.statistic, [3.0, 1.0])
+    assert channel_map.statistic_name == "welch_t"
     assert list(channel_map.significant) == [True, False]
 
 
@@ -187,3 +208,13 @@ def test_palette_colours_differ_in_lightness_so_they_survive_greyscale():
 
 def test_svg_output_is_the_same_for_the_same_figure():
     assert figure_bytes(_ranking(), "svg") == figure_bytes(_ranking(), "svg")
+
+
+@pytest.mark.parametrize("fmt", ["png", "svg"])
+def test_labels_that_look_like_maths_are_drawn_as_plain_text(fmt):
+    # "$\frac$" is invalid mathtext: matplotlib raises ValueError when it parses it as maths.
+    rows = [RankingRow("$\\frac$", 0.5, 0.4, 0.6, False), RankingRow("cost $5 or $6", 0.3, 0.2, 0.4, True)]
+    figure = ranking_figure(rows, description="mean, 95 % CI")
+    assert figure_bytes(figure, fmt)
+    kept = [KeptCounts(pipeline="$x^$", trials={"$\\frac$": 10.0, "b": 9.0}, channels=8.0)]
+    assert figure_bytes(kept_figure(kept, ["$\\frac$", "b"]), fmt)

@@ -69,8 +69,8 @@ def test_a_result_is_stored_only_by_the_worker_holding_the_job(store, database):
     run_id, _ = _queue_run(database, ["sub-01"])
     job = store.claim("w1", lease_seconds=60.0)
     assert job is not None
-    assert not store.store_result(job, "w2", {"schema_version": 1})
-    assert store.store_result(job, "w1", {"schema_version": 1})
+    assert not store.store_result(job, "w2", json.dumps({"schema_version": 1}))
+    assert store.store_result(job, "w1", json.dumps({"schema_version": 1}))
     with database.session() as session:
         assert session.get(Run, run_id).status == queue.SUCCEEDED
         assert json.loads(session.get(RunResult, run_id).document) == {"schema_version": 1}
