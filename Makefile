@@ -9,16 +9,22 @@ DATA_DIR ?= var
 
 .PHONY: install demo run lint test browser postgres bench clean
 
+# Quiet: -qq shows pip's errors only, and PYTHONWARNINGS=ignore silences the build backend's warnings
+# (which pip shows even with -q); a failed install still prints why.
+PIP := PYTHONWARNINGS=ignore PIP_DISABLE_PIP_VERSION_CHECK=1 $(BIN)/pip
 $(STAMP): pyproject.toml
-	$(PYTHON) -m venv $(VENV)
-	$(BIN)/pip install --quiet --upgrade pip
-	$(BIN)/pip install --quiet -e '.[dev]'
-	touch $(STAMP)
+	@echo "installing into $(VENV) (a few minutes the first time)"
+	@$(PYTHON) -m venv $(VENV)
+	@$(PIP) install -qq --upgrade pip
+	@$(PIP) install -qq -e '.[dev]'
+	@touch $(STAMP)
 
 install: $(STAMP)
 
+# SERVER_LOG=console shows the server's log lines here instead of in $(DATA_DIR)/demo-server.log.
+SERVER_LOG ?= file
 demo: $(STAMP)
-	$(BIN)/epoch-assay demo --host $(HOST) --port $(PORT) --data-dir $(DATA_DIR)
+	@$(BIN)/epoch-assay demo --host $(HOST) --port $(PORT) --data-dir $(DATA_DIR) --server-log $(SERVER_LOG)
 
 run: $(STAMP)
 	$(BIN)/epoch-assay serve --host $(HOST) --port $(PORT) --data-dir $(DATA_DIR)

@@ -5,13 +5,18 @@
     export EPOCH_ASSAY_URL=https://epoch-assay.lab.example EPOCH_ASSAY_TOKEN=ea_...   # a read key
     python webhook_to_csv.py --port 8765 --csv runs.csv
 
-Standard library only. A request whose signature does not match, or whose timestamp is more
-than five minutes from this machine's clock, is refused with 401 and writes nothing. Events
+Events are signed as the Standard Webhooks specification defines (headers webhook-id,
+webhook-timestamp, webhook-signature). Where the `standardwebhooks` package is installed
+(pip install standardwebhooks) it checks them; otherwise this script checks them itself with
+the standard library, the same way. A request whose signature does not match, or whose
+timestamp is more than five minutes from this machine's clock, is refused with 401 and writes
+nothing. Events
 can arrive more than once (delivery is retried until answered 2xx), so an event id already in
 the CSV is answered 200 and not written again.
 """
 
 import argparse
+import base64
 import csv
 import hashlib
 import hmac
@@ -39,15 +44,34 @@ COLUMNS = [
 ]
 
 
-def signature_is_valid(secret: str, header: str, body: bytes, now: float) -> bool:
-    """Check ``Epoch-Assay-Signature: t=<unix s>,v1=<hex HMAC-SHA256(secret, "<t>.<body>")>``."""
+def signature_is_valid_stdlib(secret: str, headers: dict[str, str], body: bytes, now: float) -> bool:
+    """Standard Webhooks v1: ``webhook-signature`` holds ``v1,<base64 HMAC-SHA256>`` entries, space-separated,
+    over ``<webhook-id>.<webhook-timestamp>.<body>`` with the base64 key after ``whsec_``."""
     try:
-        fields = dict(part.split("=", 1) for part in header.split(","))
-        timestamp = int(fields["t"])
+        message_id, timestamp = headers["webhook-id"], int(headers["webhook-timestamp"])
+        key = base64.b64decode(secret.removeprefix("whsec_"))
     except (KeyError, ValueError):
         return False
-    expected = hmac.new(secret.encode(), f"{timestamp}.".encode() + body, hashlib.sha256).hexdigest()
-    return hmac.compare_digest(expected, fields.get("v1", "")) and abs(now - timestamp) <= TOLERANCE_S
+    if abs(now - timestamp) > TOLERANCE_S:
+        return False
+    digest = hmac.new(key, f"{message_id}.{timestamp}.".encode() + body, hashlib.sha256).digest()
+    expected = base64.b64encode(digest).decode()
+    offered = [entry.split(",", 1) for entry in headers.get("webhook-signature", "").split()]
+    return any(len(pair) == 2 and pair[0] == "v1" and hmac.compare_digest(pair[1], expected) for pair in offered)
+
+
+def signature_is_valid(secret: str, headers: dict[str, str], body: bytes, now: float) -> bool:
+    """Check the Standard Webhooks signature of ``body``; ``headers`` with lower-case names."""
+    try:
+        from standardwebhooks.webhooks import Webhook, WebhookVerificationError
+    except ImportError:
+        return signature_is_valid_stdlib(secret, headers, body, now)
+    # The library reads the clock itself (and allows the same five minutes).
+    try:
+        Webhook(secret).verify(body, headers)
+    except (WebhookVerificationError, ValueError):  # ValueError: a malformed header or secret
+        return False
+    return True
 
 
 def fetch_result(base_url: str, token: str | None, run_id: str) -> dict:
@@ -113,7 +137,8 @@ def make_handler(secret: str, base_url: str, token: str | None, log: CsvLog) -> 
     class Handler(BaseHTTPRequestHandler):
         def do_POST(self) -> None:
             body = self.rfile.read(int(self.headers.get("Content-Length", 0)))
-            if not signature_is_valid(secret, self.headers.get("Epoch-Assay-Signature", ""), body, time.time()):
+            headers = {name.lower(): value for name, value in self.headers.items()}
+            if not signature_is_valid(secret, headers, body, time.time()):
                 self._answer(401, "bad or stale signature")
                 return
             event = json.loads(body)

@@ -1,7 +1,9 @@
 """The ``epoch-assay`` command: serve, api, worker, migrate, copy-database, keys, client, demo."""
 
 import argparse
+import contextlib
 import ipaddress
+import logging
 import os
 import signal
 import socket
@@ -331,30 +333,41 @@ def _wait_until_healthy(base_url: str, server: subprocess.Popen, timeout_s: floa
 
 def cmd_demo(args: argparse.Namespace) -> int:
     from epoch_assay.demo.load import load_demo
+    from epoch_assay.demo.scenario import STUDY_CODE
 
     settings = _settings(args)
     _refuse_open_off_loopback(settings.model_copy(update={"open": True}), args.host)
     base_url = f"http://{args.host}:{args.port}"
-    # The demo is for one person at this machine: no keys, and log lines for people rather than machines.
+    # The demo is for one person at this machine: no keys, and log lines for people rather than machines,
+    # in a file unless asked for on the console, so the demo's own output stays readable.
     env = {"EPOCH_ASSAY_LOG_FORMAT": "text", **_storage_env(settings)}
-    server = subprocess.Popen(
-        [sys.executable, "-m", "epoch_assay", "serve", "--open", "--host", args.host, "--port", str(args.port)],
-        env=env,
-    )
-    try:
-        _wait_until_healthy(base_url, server)
-        run_id = load_demo(base_url, n_subjects=args.subjects)
-        print(f"\nResult:        {base_url}/v1/runs/{run_id}/result")
-        print(f"API reference: {base_url}/docs")
-        if args.once:
-            return 0
-        print("The service keeps running; press Ctrl-C to stop it.")
-        server.wait()
-    except KeyboardInterrupt:
-        pass
-    finally:
-        if server.poll() is None:
-            _stop_child(server, timeout_s=90.0)
+    logging.getLogger("httpx").setLevel(logging.WARNING)
+    log_path = settings.data_dir / "demo-server.log"
+    log_path.parent.mkdir(parents=True, exist_ok=True)
+    with contextlib.ExitStack() as stack:
+        log_file = None if args.server_log == "console" else stack.enter_context(log_path.open("a"))
+        server = subprocess.Popen(
+            [sys.executable, "-m", "epoch_assay", "serve", "--open", "--host", args.host, "--port", str(args.port)],
+            env=env,
+            stdout=log_file,
+            stderr=subprocess.STDOUT if log_file else None,
+        )
+        try:
+            print(f"server starting on {base_url} (log: {'console' if log_file is None else log_path})", flush=True)
+            _wait_until_healthy(base_url, server)
+            run_id = load_demo(base_url, n_subjects=args.subjects)
+            print(f"\nReport:        {base_url}/v1/runs/{run_id}/report")
+            print(f"Result:        {base_url}/v1/runs/{run_id}/result")
+            print(f"Study page:    {base_url}/v1/studies/{STUDY_CODE}/report")
+            if args.once:
+                return 0
+            print("The service keeps running; press Ctrl-C to stop it.", flush=True)
+            server.wait()
+        except KeyboardInterrupt:
+            pass
+        finally:
+            if server.poll() is None:
+                _stop_child(server, timeout_s=90.0)
     return 0
 
 
@@ -415,7 +428,13 @@ def build_parser() -> argparse.ArgumentParser:
 
     demo = commands.add_parser("demo", help="serve (with --open), load the simulated demo study and score it")
     _add_server_flags(demo)
-    demo.add_argument("--subjects", type=int, default=6, help="number of simulated subjects (default 6)")
+    demo.add_argument("--subjects", type=int, default=8, help="number of simulated subjects (default 8)")
+    demo.add_argument(
+        "--server-log",
+        choices=("file", "console"),
+        default="file",
+        help="where the server's log lines go: DATA_DIR/demo-server.log (default) or this console",
+    )
     demo.add_argument("--once", action="store_true", help="stop the service after the demo run")
     demo.set_defaults(handler=cmd_demo)
     return parser

@@ -1,15 +1,18 @@
 """Sending webhook events from the outbox, signed, with retries; runs as a thread of each worker.
 
-Each request carries
+Requests are signed as the Standard Webhooks specification (standardwebhooks.com, v1
+scheme) defines, so any of its verifier libraries checks them:
 
-    Epoch-Assay-Signature: t=<unix seconds>,v1=<hex HMAC-SHA256(secret, "<t>.<body>")>
+    webhook-id: dlv_…                    (the same on every retry of this delivery)
+    webhook-timestamp: <unix seconds>
+    webhook-signature: v1,<base64 HMAC-SHA256(key, "<webhook-id>.<webhook-timestamp>.<body>")>
     Epoch-Assay-Event: run.succeeded | run.failed
-    Epoch-Assay-Delivery: dlv_…      (the same on every retry of this delivery)
 
-A receiver recomputes the HMAC over the timestamp, a dot and the raw body with the secret it
-was shown when the webhook was made, compares in constant time, and refuses timestamps far
-from its clock (a replayed old request). Any 2xx answer counts as delivered; anything else, a
-redirect included (redirects are not followed), is retried with backoff.
+The key is the base64-decoded part of the secret after ``whsec_``. A receiver recomputes the
+HMAC with the secret it was shown when the webhook was made, compares in constant time, and
+refuses timestamps far from its clock (a replayed old request; verifier libraries allow five
+minutes). Any 2xx answer counts as delivered; anything else, a redirect included (redirects
+are not followed), is retried with backoff.
 
 Before each attempt the URL's host is resolved and checked (``service.webhook_targets``); the
 request goes to the checked address itself, with the host name in the Host header and TLS's
@@ -20,6 +23,7 @@ study at a time, so one study's slow receiver holds one sender for at most the t
 other studies' deliveries go on.
 """
 
+import base64
 import hashlib
 import hmac
 import logging
@@ -33,16 +37,22 @@ from service.settings import Settings
 from service.storage.worker_port import AttemptOutcome, DueDelivery, WorkerStore
 from service.webhook_targets import TargetRefused, resolve
 
-SIGNATURE_HEADER = "Epoch-Assay-Signature"
+ID_HEADER = "webhook-id"
+TIMESTAMP_HEADER = "webhook-timestamp"
+SIGNATURE_HEADER = "webhook-signature"
 EVENT_HEADER = "Epoch-Assay-Event"
-DELIVERY_HEADER = "Epoch-Assay-Delivery"
+SECRET_PREFIX = "whsec_"
 log = logging.getLogger("epoch_assay.delivery")
 
 
-def signature(secret: str, timestamp: int, body: str) -> str:
-    """The signature header value for ``body`` sent at ``timestamp`` (unix seconds)."""
-    digest = hmac.new(secret.encode(), f"{timestamp}.{body}".encode(), hashlib.sha256).hexdigest()
-    return f"t={timestamp},v1={digest}"
+def signature(secret: str, message_id: str, timestamp: int, body: str) -> str:
+    """The ``webhook-signature`` value for ``body`` sent as ``message_id`` at ``timestamp`` (unix seconds).
+
+    ``secret`` is ``whsec_`` followed by the base64 key (Standard Webhooks, "Signature scheme").
+    """
+    key = base64.b64decode(secret.removeprefix(SECRET_PREFIX))
+    digest = hmac.new(key, f"{message_id}.{timestamp}.{body}".encode(), hashlib.sha256).digest()
+    return "v1," + base64.b64encode(digest).decode()
 
 
 def failure_class(error: httpx.HTTPError) -> str:
@@ -129,11 +139,13 @@ class Deliverer:
         )
 
     def _send(self, due: DueDelivery) -> AttemptOutcome:
+        timestamp = int(time.time())
         headers = {
             "Content-Type": "application/json",
-            SIGNATURE_HEADER: signature(due.secret, int(time.time()), due.payload),
+            ID_HEADER: due.id,
+            TIMESTAMP_HEADER: str(timestamp),
+            SIGNATURE_HEADER: signature(due.secret, due.id, timestamp, due.payload),
             EVENT_HEADER: due.event_type,
-            DELIVERY_HEADER: due.id,
         }
         started = time.perf_counter()
         try:

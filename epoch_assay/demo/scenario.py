@@ -14,18 +14,43 @@ Both endings evoke a negativity over centro-parietal sites between 300 and 500 m
 after the final word; the incongruent endings evoke a larger one. The scoring window
 of the demo is therefore ``EFFECT_WINDOW_S`` and the contrast is incongruent minus
 congruent.
+
+What the lab's recordings are like, and so what the demo's pipelines are up against:
+
+- the old amplifier in booth B lets the electrode potentials drift slowly (tens of µV
+  over minutes), so without a high-pass each trial sits on its own offset;
+- in every second session a gel smear made one electrode noisy (``NOISY_CHANNEL``) and
+  one came loose and wanders (``LOOSE_CHANNEL``); an average reference spreads both over
+  every channel unless they are found and interpolated first;
+- readers blink, mostly between words but sometimes during one;
+- once a high-pass has taken the offsets away, a baseline over the 200 ms before the
+  final word only subtracts that interval's background activity from every trial: it
+  adds noise instead of removing it.
 """
 
 STUDY_CODE = "READ-01"
 STUDY_TITLE = "Thessari sentence endings: congruent versus incongruent final words"
 SESSION = "ses-01"
-N_SUBJECTS = 6
+N_SUBJECTS = 8
+
+# Amplitudes of the simulated lab, in µV (see the module docstring).
+DRIFT_UV = 25.0
+BACKGROUND_UV = 6.0
+EFFECT_UV = 8.0
+TRIALS_PER_CONDITION = 40
+NOISY_CHANNEL, NOISY_CHANNEL_UV = "Cz", 80.0
+LOOSE_CHANNEL, LOOSE_CHANNEL_UV = "O1", 40.0
 
 CONGRUENT = "congruent"
 INCONGRUENT = "incongruent"
 CONDITIONS = (CONGRUENT, INCONGRUENT)
 
 EFFECT_WINDOW_S = (0.3, 0.5)
+
+
+def has_faulty_electrodes(subject_index: int) -> bool:
+    """Every second session (subjects 2, 4, …) has the noisy and the loose electrode."""
+    return subject_index % 2 == 0
 
 
 def subject_id(subject_index: int) -> str:

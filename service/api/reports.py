@@ -166,9 +166,25 @@ def get_study_report(code: str, session: SessionDep, caller: CallerDep) -> HTMLR
     )
     return HTMLResponse(
         study_report_html(
-            study.code, study.title, rows, epoch_sets, arrival_png, locked_facts, _quality_on_arrival(session, study)
+            study.code,
+            study.title,
+            rows,
+            epoch_sets,
+            arrival_png,
+            locked_facts,
+            _quality_on_arrival(session, study),
+            _latest_compared(session, study),
         )
     )
+
+
+def _latest_compared(session: Session, study: Study) -> tuple[str, RunResultDocument] | None:
+    """The newest succeeded run that compared pipelines (not a score on arrival): its id and result document."""
+    latest = None
+    for run, document in succeeded_documents_of_study(session, study.id):
+        if run.spec.get("origin") != ARRIVAL_ORIGIN:
+            latest = (run.id, document)
+    return None if latest is None else (latest[0], upgrade_document(json.loads(latest[1])))
 
 
 def _quality_on_arrival(session: Session, study: Study) -> list[ArrivalQuality]:

@@ -19,9 +19,12 @@ from service.storage.webhooks import latest_deliveries, webhook_in_study, webhoo
 
 router = APIRouter(prefix="/v1/studies/{code}/webhooks", tags=["webhooks"])
 SIGNING = (
-    " Each event is a POST with the JSON event as body and the header "
-    '`Epoch-Assay-Signature: t=<unix seconds>,v1=<hex HMAC-SHA256(secret, "<t>.<body>")>`; '
-    "failed deliveries are retried with exponential backoff. The URL's host must resolve to public addresses "
+    " Each event is a POST with the JSON event as body, signed as the Standard Webhooks specification defines: "
+    "headers `webhook-id`, `webhook-timestamp` (unix seconds) and "
+    '`webhook-signature: v1,<base64 HMAC-SHA256(key, "<webhook-id>.<webhook-timestamp>.<body>")>`, '
+    "where the key is the base64 after `whsec_` in the secret; any Standard Webhooks verifier checks it. "
+    "Failed deliveries are retried with exponential backoff. "
+    "The URL's host must resolve to public addresses "
     "only (not loopback, private, link-local, multicast or reserved) unless the operator allows its network."
 )
 

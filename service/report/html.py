@@ -16,6 +16,7 @@ from urllib.parse import quote
 from epoch_assay.engine.document import RunResultDocument
 from epoch_assay.engine.document.run import RunProvenance
 from service.report.catalogue import ReportFigure
+from service.report.summary import verdict_facts, verdict_text
 
 CSS = """
 body { font: 15px/1.45 system-ui, -apple-system, "Segoe UI", Roboto, "Helvetica Neue", Arial, sans-serif;
@@ -26,6 +27,7 @@ h2 { font-size: 1.2em; margin: 32px 0 8px; border-bottom: 2px solid #a9cbe8; pad
 h3 { font-size: 1.02em; margin: 18px 0 6px; }
 .sub { color: #4a4866; margin: 0 0 16px; }
 .caution { background: #fff4e3; border-left: 4px solid #e8a33d; padding: 8px 12px; margin: 14px 0; }
+.verdict { background: #eef4fb; border-left: 4px solid #3d7fc1; padding: 8px 12px; margin: 14px 0; }
 table { border-collapse: collapse; margin: 6px 0 12px; font-size: 0.92em; }
 th, td { text-align: left; padding: 4px 10px 4px 0; border-bottom: 1px solid #e1e1ea; vertical-align: top; }
 th { color: #4a4866; font-weight: 600; }
@@ -170,6 +172,7 @@ def run_report_html(document: RunResultDocument, run: RunFacts, shown: Sequence[
         f'<p class="sub">Study {_code(run.study_code)} — {escape(run.study_title)} · status {escape(run.status)} · '
         f"created {_when(run.created_at)} · finished {_when(run.finished_at)}</p>",
         f'<p class="caution">{escape(CAUTION)}</p>',
+        verdict_html(document),
         "<h2>Results</h2>",
         f"<p>Contrast <strong>{first} − {second}</strong>, window {scoring.window_s[0]:g}–"
         f"{scoring.window_s[1]:g} s, α = {scoring.alpha:g}, correction {escape(scoring.correction)}.</p>",
@@ -187,6 +190,15 @@ def run_report_html(document: RunResultDocument, run: RunFacts, shown: Sequence[
         _provenance_html(document.provenance),
     ]
     return _page(f"epoch-assay run {run.id}", "".join(body))
+
+
+def verdict_html(document: RunResultDocument, run_id: str | None = None) -> str:
+    """The plain-language verdict paragraph of a result document; ``run_id`` names and links the run."""
+    text = escape(verdict_text(verdict_facts(document)))
+    if run_id is None:
+        return f'<p class="verdict"><strong>Verdict.</strong> {text}</p>'
+    link = f'<a href="../../runs/{quote(run_id, safe="")}/report">{escape(run_id)}</a>'
+    return f'<p class="verdict"><strong>Verdict of the latest run, {link}.</strong> {text}</p>'
 
 
 def _exploratory_html(document: RunResultDocument) -> str:
@@ -357,8 +369,10 @@ def study_report_html(
     arrival_png: bytes | None,
     locked: LockedFacts | None,
     quality: Sequence[ArrivalQuality],
+    latest: tuple[str, RunResultDocument] | None = None,
 ) -> str:
-    """The study page: runs so far, the locked pipeline, data quality on arrival, the epoch sets."""
+    """The study page: the verdict of the ``latest`` scored run (its id and result document), the runs so
+    far, the locked pipeline, data quality on arrival, the epoch sets."""
     run_rows = [
         [
             f'<a href="../../runs/{quote(run.id, safe="")}/report">{escape(run.id)}</a>',
@@ -381,6 +395,7 @@ def study_report_html(
         f"<h1>Study {escape(study_code)}</h1>",
         f'<p class="sub">{escape(study_title)}</p>',
         f'<p class="caution">{escape(CAUTION)}</p>',
+        verdict_html(latest[1], latest[0]) if latest else "",
         f"<h2>Runs ({len(runs)})</h2>",
         _table(["run", "status", "created", "pipelines", "epoch sets"], run_rows, numeric=(4,))
         if runs

@@ -278,3 +278,133 @@ class Arrival:
     label: str
     trials: dict[str, int]
     channels: int
+
+
+@dataclass(frozen=True)
+class VerdictFacts:
+    """The few result-document fields the plain-language verdict is built from.
+
+    ``pipeline`` is the selection's winner when the run has a selection, else the top of the
+    ranking. ``difference`` and ``difference_ci`` are its paired mean difference from the
+    reference over subjects; ``p_adjusted`` is adjusted for the number of pipelines compared,
+    ``p_unadjusted`` is the paired t test's p alone (used only when no adjusted p exists).
+    Held-out fields come from a ``tuning_holdout`` selection.
+    """
+
+    pipeline: str | None
+    metric: str | None
+    n_pipelines: int
+    n_subjects: int | None
+    reference: str | None
+    difference: float | None
+    difference_ci: tuple[float | None, float | None] | None
+    p_adjusted: float | None
+    p_unadjusted: float | None
+    selection_rule: str | None
+    tuning_subjects: tuple[str, ...]
+    holdout_subjects: tuple[str, ...]
+    winner_holdout_score: float | None
+    reference_holdout_score: float | None
+
+
+def verdict_facts(document: RunResultDocument) -> VerdictFacts:
+    """The fields of ``document`` the verdict reads (the one place that knows where they are)."""
+    entries = list(document.ranking or [])
+    selection = document.selection if document.selection is not None and document.selection.winner else None
+    top = min(entries, key=lambda entry: entry.rank) if entries else None
+    pipeline = selection.winner if selection else (top.pipeline if top else None)
+    chosen = next((entry for entry in entries if entry.pipeline == pipeline), None)
+    versus = chosen.vs_reference if chosen is not None else None
+    interval = versus.mean_difference_ci if versus is not None else None
+    return VerdictFacts(
+        pipeline=pipeline,
+        metric=selection.metric if selection else (chosen.metric if chosen else None),
+        n_pipelines=len(entries) or len(pipeline_names(document)),
+        n_subjects=chosen.n_subjects if chosen else None,
+        reference=versus.reference_pipeline if versus else reference_pipeline(document),
+        difference=versus.mean_difference if versus else None,
+        difference_ci=(interval[0], interval[1]) if interval else None,
+        p_adjusted=versus.p_adjusted if versus else None,
+        p_unadjusted=versus.paired_t_p if versus else None,
+        selection_rule=selection.rule if selection else None,
+        tuning_subjects=tuple(selection.tuning_subjects or ()) if selection else (),
+        holdout_subjects=tuple(selection.holdout_subjects or ()) if selection else (),
+        winner_holdout_score=selection.winner_holdout_score if selection else None,
+        reference_holdout_score=selection.reference_holdout_score if selection else None,
+    )
+
+
+METRIC_WORDS = {
+    "significant_fraction": "share of channels where the contrast is significant",
+    "median_sme": "median standardised measurement error",
+    "trials_kept": "trials kept",
+}
+
+
+def verdict_text(facts: VerdictFacts) -> str:
+    """One paragraph in plain words: which pipeline, how sure, what was held out. Plain text, not HTML."""
+    if facts.pipeline is None:
+        return "This run has no ranking of its pipelines, so there is no verdict: see the figures below."
+    metric = METRIC_WORDS.get(facts.metric or "", facts.metric or "the run's metric")
+    chosen = "chosen by the run's selection rule" if facts.selection_rule else "ranked first"
+    parts = [f"{facts.pipeline} is {chosen} of {facts.n_pipelines} pipelines on the {metric}."]
+    parts.append(_how_sure(facts))
+    parts.append(_held_out(facts))
+    return " ".join(part for part in parts if part)
+
+
+def _how_sure(facts: VerdictFacts) -> str:
+    if facts.pipeline == facts.reference:
+        return "It is the reference pipeline itself, so there is no comparison with a reference to report."
+    if facts.difference is None:
+        return (
+            f"There is no paired comparison with the reference {facts.reference} (fewer than two subjects scored both)."
+        )
+    subjects = f" over {facts.n_subjects} subjects" if facts.n_subjects else ""
+    low, high = facts.difference_ci or (None, None)
+    interval = f" (95 % confidence interval {low:+.2f} to {high:+.2f})" if low is not None and high is not None else ""
+    text = f"Against the reference {facts.reference} it differs by {facts.difference:+.2f}{subjects}{interval}"
+    if facts.p_adjusted is not None:
+        strength = "a difference unlikely to be chance" if facts.p_adjusted < 0.05 else "not enough to rule out chance"
+        return f"{text}; {_p(facts.p_adjusted)} adjusted for {_comparisons(facts.n_pipelines - 1)} with the reference: {strength}."
+    if facts.p_unadjusted is not None:
+        return (
+            f"{text}; {_p(facts.p_unadjusted)} from a paired t test not adjusted for the "
+            f"{_comparisons(facts.n_pipelines - 1)} made, so it overstates how sure this is."
+        )
+    return f"{text}."
+
+
+def _held_out(facts: VerdictFacts) -> str:
+    if facts.selection_rule == "tuning_holdout":
+        if not facts.holdout_subjects or facts.winner_holdout_score is None:
+            return "It was chosen on tuning subjects, but no held-out subject has a score to confirm it."
+        versus = (
+            f" against {facts.reference_holdout_score:.2f} for the reference"
+            if facts.reference_holdout_score is not None
+            else ""
+        )
+        held = (
+            "held up"
+            if facts.reference_holdout_score is None or facts.winner_holdout_score > facts.reference_holdout_score
+            else "did not hold up"
+        )
+        return (
+            f"It was chosen on {len(facts.tuning_subjects)} tuning subjects only; on the "
+            f"{len(facts.holdout_subjects)} held-out subjects, who played no part in the choice, it scores "
+            f"{facts.winner_holdout_score:.2f}{versus}, so the choice {held}."
+        )
+    if facts.selection_rule is not None:
+        return "It was chosen on a measure blind to the contrast, so no subjects needed to be held out."
+    return (
+        "No subjects were held out: the ranking describes the same subjects it was chosen on, so the top score is "
+        "biased upwards; a run with a tuning/held-out selection confirms a choice."
+    )
+
+
+def _comparisons(count: int) -> str:
+    return "1 comparison" if count == 1 else f"{count} comparisons"
+
+
+def _p(value: float) -> str:
+    return "p < 0.001" if value < 0.001 else f"p = {value:.3f}"

@@ -70,13 +70,16 @@ class WebhookOut(BaseModel):
 class WebhookCreated(WebhookOut):
     model_config = ConfigDict(
         json_schema_extra={
-            "examples": [
-                WEBHOOK_EXAMPLE | {"secret": "whsec_2b7e151628aed2a6abf7158809cf4f3c762e7160f38b4da56a784d9045190cfe"}
-            ]
+            "examples": [WEBHOOK_EXAMPLE | {"secret": "whsec_K34VFiiu0qar9xWICc9PPHYnGb0bUdQ2k1w/nNW/CP4="}]
         }
     )
 
-    secret: str = Field(description="The HMAC-SHA256 signing secret. Shown only in this answer: keep it.")
+    secret: str = Field(
+        description=(
+            "The signing secret in the Standard Webhooks form (`whsec_` and the base64 of the HMAC-SHA256 key); "
+            "give it to a Standard Webhooks verifier. Shown only in this answer: keep it."
+        )
+    )
 
 
 class DeliveryAttempt(BaseModel):

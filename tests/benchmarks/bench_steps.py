@@ -36,12 +36,12 @@ STEPS = [
     {
         "step": "bad_channels",
         "criteria": {
-            "flat": {},
-            "deviation": {},
-            "correlation": {},
-            "line_noise": {},
-            "high_frequency": {},
-            "bridged": {},
+            "near_silent": {},
+            "amplitude_outlier": {},
+            "partner_agreement": {},
+            "mains_excess": {},
+            "fast_power_excess": {},
+            "bridged_pair": {},
         },
         "action": "interpolate",
     },

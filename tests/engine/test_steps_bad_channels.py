@@ -11,14 +11,14 @@ from epoch_assay.engine.steps.bad_channels import BadChannelCriteria, BadChannel
 from epoch_assay.engine.units import uv_to_v
 
 ALL_CRITERIA = {
-    "flat": {},
-    "deviation": {},
-    "correlation": {},
-    "line_noise": {"freq_hz": 50},
-    "high_frequency": {},
-    "bridged": {},
+    "near_silent": {},
+    "amplitude_outlier": {},
+    "partner_agreement": {},
+    "mains_excess": {"mains_hz": 50},
+    "fast_power_excess": {},
+    "bridged_pair": {},
 }
-FAULTY = {"O2": "flat", "T8": "noisy", "FC1": "bridged", "FC2": "bridged", "P7": "disconnected", "TP10": "line"}
+FAULTY = {"O2": "silent", "T8": "noisy", "FC1": "bridged", "FC2": "bridged", "P7": "disconnected", "TP10": "line"}
 CONFIG = SimulationConfig(n_trials_per_condition=20, drift_uv=0.0, sfreq=250.0)
 
 
@@ -54,11 +54,11 @@ def test_injected_faults_found_with_high_recall_and_at_most_one_false_positive()
 @pytest.mark.parametrize(
     ("criterion", "channels"),
     [
-        ("flat", {"O2"}),
-        ("high_frequency", {"T8"}),
-        ("bridged", {"FC1", "FC2"}),
-        ("line_noise", {"TP10"}),
-        ("correlation", {"P7"}),
+        ("near_silent", {"O2"}),
+        ("fast_power_excess", {"T8"}),
+        ("bridged_pair", {"FC1", "FC2"}),
+        ("mains_excess", {"TP10"}),
+        ("partner_agreement", {"P7"}),
     ],
 )
 def test_each_criterion_finds_its_fault(criterion: str, channels: set[str]) -> None:
@@ -75,14 +75,18 @@ def test_clean_simulated_subject_has_no_bad_channel() -> None:
 
 def test_flag_adds_channels_to_bads_and_keeps_data() -> None:
     epochs = _with_faults()
-    flagged, record = BadChannels(criteria=BadChannelCriteria.model_validate({"flat": {}}), action="flag").apply(epochs)
-    assert "O2" in flagged.bads and record.channels_flagged == {"O2": ["flat"]}
+    flagged, record = BadChannels(criteria=BadChannelCriteria.model_validate({"near_silent": {}}), action="flag").apply(
+        epochs
+    )
+    assert "O2" in flagged.bads and record.channels_flagged == {"O2": ["near_silent"]}
     np.testing.assert_array_equal(flagged.data, epochs.data)
 
 
 def test_drop_removes_channels_from_every_field() -> None:
     epochs = _with_faults()
-    dropped, record = BadChannels(criteria=BadChannelCriteria.model_validate({"flat": {}}), action="drop").apply(epochs)
+    dropped, record = BadChannels(criteria=BadChannelCriteria.model_validate({"near_silent": {}}), action="drop").apply(
+        epochs
+    )
     assert record.channels_dropped == ["O2"]
     assert "O2" not in dropped.ch_names and dropped.n_channels == epochs.n_channels - 1
     assert dropped.positions.shape == (epochs.n_channels - 1, 3) and len(dropped.ch_types) == dropped.n_channels
@@ -124,13 +128,13 @@ def test_interpolate_without_positions_is_refused() -> None:
     epochs = simulate_subject(CONFIG, 1)
     renamed = epochs.with_changes(ch_names=tuple(f"ch{i}" for i in range(epochs.n_channels)), positions=None)
     with pytest.raises(SpecError, match="positions") as error:
-        BadChannels(criteria=BadChannelCriteria.model_validate({"flat": {}})).check(renamed.meta())
+        BadChannels(criteria=BadChannelCriteria.model_validate({"near_silent": {}})).check(renamed.meta())
     assert error.value.loc == ("action",)
 
 
 def test_interpolate_with_standard_names_but_no_file_positions_is_accepted() -> None:
     epochs = simulate_subject(CONFIG, 1).with_changes(positions=None)
-    meta = BadChannels(criteria=BadChannelCriteria.model_validate({"flat": {}})).check(epochs.meta())
+    meta = BadChannels(criteria=BadChannelCriteria.model_validate({"near_silent": {}})).check(epochs.meta())
     assert meta == epochs.meta()
 
 
@@ -139,17 +143,35 @@ def test_empty_criteria_are_refused() -> None:
         BadChannelCriteria.model_validate({})
 
 
-def test_line_criterion_at_nyquist_is_refused() -> None:
+@pytest.mark.parametrize(
+    ("old", "new"),
+    [
+        ("flat", "near_silent"),
+        ("deviation", "amplitude_outlier"),
+        ("correlation", "partner_agreement"),
+        ("line_noise", "mains_excess"),
+        ("high_frequency", "fast_power_excess"),
+        ("bridged", "bridged_pair"),
+    ],
+)
+def test_criterion_names_of_earlier_releases_are_refused_naming_their_successor(old: str, new: str) -> None:
+    with pytest.raises(ValueError, match=f"'{old}' is now {new} "):
+        BadChannelCriteria.model_validate({old: {}})
+
+
+def test_mains_criterion_at_nyquist_is_refused() -> None:
     meta = simulate_subject(SimulationConfig(n_trials_per_condition=2, sfreq=100.0, line_freq_hz=20.0), 1).meta()
     with pytest.raises(SpecError) as error:
-        BadChannels(criteria=BadChannelCriteria.model_validate({"line_noise": {"freq_hz": 50}})).check(meta)
-    assert error.value.loc == ("criteria", "line_noise", "freq_hz")
+        BadChannels(criteria=BadChannelCriteria.model_validate({"mains_excess": {"mains_hz": 50}})).check(meta)
+    assert error.value.loc == ("criteria", "mains_excess", "mains_hz")
 
 
 def test_continuous_single_trial_recording_is_processed() -> None:
     epochs = _with_faults()
     data = epochs.data.transpose(1, 0, 2).reshape(1, epochs.n_channels, -1)
     continuous = epochs.with_changes(data=data, labels=np.array(["rest"]))
-    step = BadChannels(criteria=BadChannelCriteria.model_validate({"flat": {}, "line_noise": {}}), action="flag")
+    step = BadChannels(
+        criteria=BadChannelCriteria.model_validate({"near_silent": {}, "mains_excess": {}}), action="flag"
+    )
     _, record = step.apply(continuous)
     assert {"O2", "TP10"} <= set(record.channels_flagged)

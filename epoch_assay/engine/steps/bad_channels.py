@@ -1,31 +1,37 @@
 """Detection of bad EEG channels, then flagging, interpolating or dropping them.
 
-Each criterion looks at the EEG channels not already marked bad, over all trials (each
-trial's mean removed first, so offsets between epochs do not count as signal):
+Each criterion computes one statistic per EEG channel not already marked bad, over all
+trials (each trial's mean removed first, so offsets between epochs do not count as
+signal), and flags the channels beyond its threshold:
 
-``flat``
-    standard deviation below ``min_std_uv``: an electrode that records nothing.
-``deviation``
+``near_silent``
+    standard deviation below ``std_below_uv``: an electrode that records almost nothing.
+``amplitude_outlier``
     robust z (median / MAD over channels) of the channel's robust amplitude
-    (interquartile range / 1.349) above ``z``: a channel much larger than the others
-    (Bigdely-Shamlo et al., 2015, "deviation criterion").
-``correlation``
-    mean of a channel's ``n_best`` highest correlations with the other channels below
-    ``min_r``: a channel that does not share the spatially smooth signal of the scalp
-    (after Bigdely-Shamlo et al., 2015, who use the highest correlation).
-``line_noise``
-    robust z of log10 of the line-band power over the power of the bands beside it,
-    above ``z``.
-``high_frequency``
+    (interquartile range / 1.349) above ``robust_z_above``: a channel much larger than
+    the others (the deviation measure of Bigdely-Shamlo et al., 2015).
+``partner_agreement``
+    mean of a channel's ``n_partners`` highest correlations with the other channels
+    below ``mean_r_below``: a channel that does not share the signal volume conduction
+    spreads over the scalp (a decoupled or wandering electrode).
+``mains_excess``
+    robust z of log10 of the power in the mains band over the power of the bands beside
+    it, above ``robust_z_above``.
+``fast_power_excess``
     robust z of log10 of the median power above 40 Hz over the median power in 1-40 Hz,
-    above ``z`` (the median keeps narrow line peaks out).
-``bridged``
+    above ``robust_z_above`` (the median keeps narrow line peaks out): muscle or a
+    loose contact.
+``bridged_pair``
     electrical distance (variance of the difference of two channels; Tenke & Kayser,
-    2001) below ``max_ratio`` times its median over all pairs: two electrodes joined by
-    gel record the same signal. Both channels of such a pair are flagged.
+    2001) below ``distance_below_ratio`` times its median over all pairs: two electrodes
+    joined by gel record the same signal. Both channels of such a pair are flagged.
 
-Robust z scores of log ratios use a spread of at least ``MIN_LOG_SPREAD`` decades, so
-that on a set where all channels look alike tiny differences are not called outliers.
+The default thresholds were chosen on the project's own simulated faults
+(``tests/benchmarks/bench_bad_channels.py``; recall and false-positive rates in
+``docs/steps.md``). Robust z scores of log ratios use a spread of at least
+``MIN_LOG_SPREAD`` decades, so that on a set where all channels look alike tiny
+differences are not called outliers. Criterion names used before this vocabulary are
+refused with a message naming their successors (``RENAMED_CRITERIA``).
 
 Action on the channels flagged now and on EEG channels already marked bad:
 ``flag`` adds them to ``bads`` (left out of references and scoring); ``interpolate``
@@ -50,63 +56,146 @@ from epoch_assay.engine.steps.mne_bridge import MNE_QUIET, to_mne_epochs
 from epoch_assay.engine.steps.spectra import mean_channel_psd, robust_z
 from epoch_assay.engine.units import uv_to_v
 
-HIGH_FREQUENCY_HZ = 40.0
-LOW_FREQUENCY_HZ = 1.0
+FAST_POWER_FROM_HZ = 40.0
+SLOW_POWER_FROM_HZ = 1.0
 MIN_LOG_SPREAD = 0.05
-# Half-width of the line band, and the bands beside it, in Hz (plus half a frequency bin).
-LINE_BAND_HALF_WIDTH_HZ = 1.0
-LINE_NEIGHBOURS_HZ = (2.0, 6.0)
+# Half-width of the mains band, and the bands beside it, in Hz (plus half a frequency bin).
+MAINS_BAND_HALF_WIDTH_HZ = 1.0
+MAINS_NEIGHBOURS_HZ = (2.0, 6.0)
 # Robust z needs a few channels to estimate a median and spread from.
 MIN_EEG_CHANNELS = 5
+
+# Criterion names of earlier releases, refused with the name and fields that replace them.
+RENAMED_CRITERIA = {
+    "flat": "near_silent {std_below_uv}",
+    "deviation": "amplitude_outlier {robust_z_above}",
+    "correlation": "partner_agreement {mean_r_below, n_partners}",
+    "line_noise": "mains_excess {robust_z_above, mains_hz}",
+    "high_frequency": "fast_power_excess {robust_z_above}",
+    "bridged": "bridged_pair {distance_below_ratio}",
+}
 
 
 class _Criterion(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True)
 
 
-class FlatCriterion(_Criterion):
-    min_std_uv: float = Field(0.5, gt=0.0, allow_inf_nan=False, description="Lowest standard deviation, in µV.")
+class NearSilentCriterion(_Criterion):
+    """A channel whose standard deviation is below a floor."""
+
+    model_config = ConfigDict(title="Near-silent channel")
+
+    std_below_uv: float = Field(
+        1.0, gt=0.0, allow_inf_nan=False, description="Flag a channel whose standard deviation is below this, in µV."
+    )
+
+    def flags(self, std: np.ndarray) -> np.ndarray:
+        """Mask of channels whose standard deviation (shape (n_channels,), in V) is below the floor."""
+        return std < uv_to_v(self.std_below_uv)
 
 
-class DeviationCriterion(_Criterion):
-    z: float = Field(5.0, gt=0.0, allow_inf_nan=False, description="Highest robust z of the channel amplitude.")
+class AmplitudeOutlierCriterion(_Criterion):
+    """A channel whose robust amplitude is far above the others' (Bigdely-Shamlo et al., 2015)."""
+
+    model_config = ConfigDict(title="Amplitude outlier")
+
+    robust_z_above: float = Field(
+        4.0, gt=0.0, allow_inf_nan=False, description="Flag a channel whose amplitude has a robust z above this."
+    )
+
+    def flags(self, z: np.ndarray) -> np.ndarray:
+        """Mask of channels whose amplitude robust z (shape (n_channels,)) is above the threshold."""
+        return z > self.robust_z_above
 
 
-class CorrelationCriterion(_Criterion):
-    min_r: float = Field(0.4, gt=-1.0, lt=1.0, description="Lowest mean correlation with the best-correlated channels.")
-    n_best: int = Field(3, ge=1, le=10, description="How many best-correlated channels are averaged.")
+class PartnerAgreementCriterion(_Criterion):
+    """A channel that agrees too little with the channels it agrees with best."""
+
+    model_config = ConfigDict(title="Agreement with partner channels")
+
+    mean_r_below: float = Field(
+        0.2, gt=-1.0, lt=1.0, description="Flag a channel whose mean correlation with its partners is below this."
+    )
+    n_partners: int = Field(3, ge=1, le=10, description="How many best-correlated channels are its partners.")
+
+    def flags(self, mean_r: np.ndarray) -> np.ndarray:
+        """Mask of channels whose mean partner correlation (shape (n_channels,)) is below the threshold."""
+        return mean_r < self.mean_r_below
 
 
-class LineNoiseCriterion(_Criterion):
-    z: float = Field(5.0, gt=0.0, allow_inf_nan=False, description="Highest robust z of the line-power ratio.")
-    freq_hz: float = Field(50.0, description="Mains frequency, 50 or 60 Hz.")
+class MainsExcessCriterion(_Criterion):
+    """A channel with much more power at the mains frequency than the others."""
+
+    model_config = ConfigDict(title="Mains power excess")
+
+    robust_z_above: float = Field(
+        2.5,
+        gt=0.0,
+        allow_inf_nan=False,
+        description="Flag a channel whose mains-power ratio has a robust z above this.",
+    )
+    mains_hz: float = Field(50.0, description="Mains frequency, 50 or 60 Hz.")
 
     @model_validator(mode="after")
-    def _mains_frequency(self) -> "LineNoiseCriterion":
-        if self.freq_hz not in LINE_FREQUENCIES_HZ:
-            raise ValueError("freq_hz is the mains frequency: 50 or 60")
+    def _mains_frequency(self) -> "MainsExcessCriterion":
+        if self.mains_hz not in LINE_FREQUENCIES_HZ:
+            raise ValueError("mains_hz is the mains frequency: 50 or 60")
         return self
 
+    def flags(self, z: np.ndarray) -> np.ndarray:
+        """Mask of channels whose mains-ratio robust z (shape (n_channels,)) is above the threshold."""
+        return z > self.robust_z_above
 
-class HighFrequencyCriterion(_Criterion):
-    z: float = Field(5.0, gt=0.0, allow_inf_nan=False, description="Highest robust z of the high-frequency ratio.")
 
+class FastPowerExcessCriterion(_Criterion):
+    """A channel with much more power above 40 Hz, relative to its power below, than the others."""
 
-class BridgedCriterion(_Criterion):
-    max_ratio: float = Field(
-        0.01, gt=0.0, lt=1.0, description="Highest electrical distance of a pair, as a fraction of the median."
+    model_config = ConfigDict(title="Fast power excess")
+
+    robust_z_above: float = Field(
+        2.0, gt=0.0, allow_inf_nan=False, description="Flag a channel whose fast-power ratio has a robust z above this."
     )
+
+    def flags(self, z: np.ndarray) -> np.ndarray:
+        """Mask of channels whose fast-power robust z (shape (n_channels,)) is above the threshold."""
+        return z > self.robust_z_above
+
+
+class BridgedPairCriterion(_Criterion):
+    """Two channels whose difference is almost nothing (Tenke & Kayser, 2001)."""
+
+    model_config = ConfigDict(title="Bridged pair")
+
+    distance_below_ratio: float = Field(
+        0.05, gt=0.0, lt=1.0, description="Flag a pair whose electrical distance is below this fraction of the median."
+    )
+
+    def flags(self, ratio: np.ndarray) -> np.ndarray:
+        """Mask of channels whose smallest distance ratio (shape (n_channels,)) is below the threshold."""
+        return ratio < self.distance_below_ratio
 
 
 class BadChannelCriteria(_Criterion):
     """Which criteria to apply; at least one."""
 
-    flat: FlatCriterion | None = None
-    deviation: DeviationCriterion | None = None
-    correlation: CorrelationCriterion | None = None
-    line_noise: LineNoiseCriterion | None = None
-    high_frequency: HighFrequencyCriterion | None = None
-    bridged: BridgedCriterion | None = None
+    model_config = ConfigDict(title="Bad-channel criteria")
+
+    near_silent: NearSilentCriterion | None = None
+    amplitude_outlier: AmplitudeOutlierCriterion | None = None
+    partner_agreement: PartnerAgreementCriterion | None = None
+    mains_excess: MainsExcessCriterion | None = None
+    fast_power_excess: FastPowerExcessCriterion | None = None
+    bridged_pair: BridgedPairCriterion | None = None
+
+    @model_validator(mode="before")
+    @classmethod
+    def _renamed(cls, data: Any) -> Any:
+        if isinstance(data, dict):
+            old = [name for name in data if name in RENAMED_CRITERIA]
+            if old:
+                renamed = "; ".join(f"'{name}' is now {RENAMED_CRITERIA[name]}" for name in old)
+                raise ValueError(f"bad-channel criteria were renamed: {renamed}")
+        return data
 
     @model_validator(mode="after")
     def _at_least_one(self) -> "BadChannelCriteria":
@@ -121,81 +210,88 @@ def _demeaned_rows(data: np.ndarray) -> np.ndarray:
     return centred.transpose(1, 0, 2).reshape(data.shape[1], -1)
 
 
-def flat_channels(rows: np.ndarray, criterion: FlatCriterion) -> np.ndarray:
-    """Mask, shape (n_channels,), of channels whose std (rows in V) is below the floor."""
-    return rows.std(axis=-1) < uv_to_v(criterion.min_std_uv)
+def channel_std(rows: np.ndarray) -> np.ndarray:
+    """Standard deviation per channel, shape (n_channels,), in V; rows shape (n_channels, n_samples) in V."""
+    return rows.std(axis=-1)
 
 
-def deviating_channels(rows: np.ndarray, criterion: DeviationCriterion) -> np.ndarray:
-    """Mask of channels whose robust amplitude has a robust z above the threshold."""
+def amplitude_robust_z(rows: np.ndarray) -> np.ndarray:
+    """Robust z over channels of each channel's robust amplitude, shape (n_channels,)."""
     quartiles = np.percentile(rows, [25.0, 75.0], axis=-1)
     # IQR / 1.349 estimates the standard deviation of normal data.
     amplitude = (quartiles[1] - quartiles[0]) / 1.349
-    return robust_z(amplitude) > criterion.z
+    return robust_z(amplitude)
 
 
-def uncorrelated_channels(rows: np.ndarray, criterion: CorrelationCriterion) -> np.ndarray:
-    """Mask of channels whose mean correlation with their ``n_best`` best partners is below ``min_r``."""
+def partner_correlation(rows: np.ndarray, n_partners: int) -> np.ndarray:
+    """Mean of each channel's ``n_partners`` highest correlations with the others, shape (n_channels,)."""
     correlation = np.corrcoef(rows)
     np.fill_diagonal(correlation, -np.inf)
     correlation = np.nan_to_num(correlation, nan=0.0)
-    n_best = min(criterion.n_best, rows.shape[0] - 1)
+    n_best = min(n_partners, rows.shape[0] - 1)
     best = -np.sort(-correlation, axis=-1)[:, :n_best]
-    return best.mean(axis=-1) < criterion.min_r
+    return best.mean(axis=-1)
 
 
-def bridged_channels(rows: np.ndarray, criterion: BridgedCriterion) -> np.ndarray:
-    """Mask of channels in a pair whose electrical distance is below ``max_ratio`` of the median."""
+def bridge_distance_ratio(rows: np.ndarray) -> np.ndarray:
+    """Each channel's smallest electrical distance to another, over the median of all pairs, shape (n_channels,)."""
     covariance = np.cov(rows)
     variance = np.diag(covariance)
     distance = variance[:, None] + variance[None, :] - 2.0 * covariance
-    pairs = np.triu_indices(rows.shape[0], k=1)
-    threshold = criterion.max_ratio * np.median(distance[pairs])
-    bridged = distance < threshold
-    np.fill_diagonal(bridged, False)
-    return bridged.any(axis=-1)
+    median = np.median(distance[np.triu_indices(rows.shape[0], k=1)])
+    np.fill_diagonal(distance, np.inf)
+    return distance.min(axis=-1) / median
 
 
-def line_noise_channels(freqs: np.ndarray, psd: np.ndarray, criterion: LineNoiseCriterion) -> np.ndarray:
-    """Mask of channels whose line-power ratio has a robust z above the threshold (psd in V²/Hz)."""
+def mains_ratio_z(freqs: np.ndarray, psd: np.ndarray, mains_hz: float) -> np.ndarray:
+    """Robust z of log10 mains-band over neighbouring-band power, shape (n_channels,); psd in V²/Hz."""
     half_bin = (freqs[1] - freqs[0]) / 2.0
-    distance = np.abs(freqs - criterion.freq_hz)
-    in_line = distance <= LINE_BAND_HALF_WIDTH_HZ + half_bin
-    beside = (distance >= LINE_NEIGHBOURS_HZ[0] + half_bin) & (distance <= LINE_NEIGHBOURS_HZ[1] + half_bin)
-    ratio = psd[:, in_line].mean(axis=-1) / np.median(psd[:, beside], axis=-1)
-    return robust_z(np.log10(ratio), min_scale=MIN_LOG_SPREAD) > criterion.z
+    distance = np.abs(freqs - mains_hz)
+    in_band = distance <= MAINS_BAND_HALF_WIDTH_HZ + half_bin
+    beside = (distance >= MAINS_NEIGHBOURS_HZ[0] + half_bin) & (distance <= MAINS_NEIGHBOURS_HZ[1] + half_bin)
+    ratio = psd[:, in_band].mean(axis=-1) / np.median(psd[:, beside], axis=-1)
+    return robust_z(np.log10(ratio), min_scale=MIN_LOG_SPREAD)
 
 
-def high_frequency_channels(freqs: np.ndarray, psd: np.ndarray, criterion: HighFrequencyCriterion) -> np.ndarray:
-    """Mask of channels whose high- over low-frequency power has a robust z above the threshold."""
-    high = np.median(psd[:, freqs >= HIGH_FREQUENCY_HZ], axis=-1)
-    low = np.median(psd[:, (freqs >= LOW_FREQUENCY_HZ) & (freqs < HIGH_FREQUENCY_HZ)], axis=-1)
-    return robust_z(np.log10(high / low), min_scale=MIN_LOG_SPREAD) > criterion.z
+def fast_power_ratio_z(freqs: np.ndarray, psd: np.ndarray) -> np.ndarray:
+    """Robust z of log10 median power above 40 Hz over median power in 1-40 Hz, shape (n_channels,)."""
+    fast = np.median(psd[:, freqs >= FAST_POWER_FROM_HZ], axis=-1)
+    slow = np.median(psd[:, (freqs >= SLOW_POWER_FROM_HZ) & (freqs < FAST_POWER_FROM_HZ)], axis=-1)
+    return robust_z(np.log10(fast / slow), min_scale=MIN_LOG_SPREAD)
+
+
+def criterion_statistics(epochs: EpochSet, criteria: BadChannelCriteria) -> tuple[np.ndarray, dict[str, np.ndarray]]:
+    """Indices of the good EEG channels of ``epochs`` and, per chosen criterion, its statistic on them.
+
+    Each statistic has shape (n_picks,); the criterion's ``flags`` turns it into a mask.
+    """
+    picks = epochs.picks(SCORED_CHANNEL_TYPES, exclude_bads=True)
+    rows = _demeaned_rows(np.asarray(epochs.data[:, picks], dtype=np.float64))
+    statistics: dict[str, np.ndarray] = {}
+    if criteria.near_silent:
+        statistics["near_silent"] = channel_std(rows)
+    if criteria.amplitude_outlier:
+        statistics["amplitude_outlier"] = amplitude_robust_z(rows)
+    if criteria.partner_agreement:
+        statistics["partner_agreement"] = partner_correlation(rows, criteria.partner_agreement.n_partners)
+    if criteria.bridged_pair:
+        statistics["bridged_pair"] = bridge_distance_ratio(rows)
+    if criteria.mains_excess or criteria.fast_power_excess:
+        freqs, psd = mean_channel_psd(epochs.data[:, picks], epochs.sfreq)
+        if criteria.mains_excess:
+            statistics["mains_excess"] = mains_ratio_z(freqs, psd, criteria.mains_excess.mains_hz)
+        if criteria.fast_power_excess:
+            statistics["fast_power_excess"] = fast_power_ratio_z(freqs, psd)
+    return picks, statistics
 
 
 def detect_bad_channels(epochs: EpochSet, criteria: BadChannelCriteria) -> dict[str, list[str]]:
     """Good EEG channels of ``epochs`` that fail a criterion, with the criteria each fails."""
-    picks = epochs.picks(SCORED_CHANNEL_TYPES, exclude_bads=True)
-    rows = _demeaned_rows(np.asarray(epochs.data[:, picks], dtype=np.float64))
-    masks: dict[str, np.ndarray] = {}
-    if criteria.flat:
-        masks["flat"] = flat_channels(rows, criteria.flat)
-    if criteria.deviation:
-        masks["deviation"] = deviating_channels(rows, criteria.deviation)
-    if criteria.correlation:
-        masks["correlation"] = uncorrelated_channels(rows, criteria.correlation)
-    if criteria.bridged:
-        masks["bridged"] = bridged_channels(rows, criteria.bridged)
-    if criteria.line_noise or criteria.high_frequency:
-        freqs, psd = mean_channel_psd(epochs.data[:, picks], epochs.sfreq)
-        if criteria.line_noise:
-            masks["line_noise"] = line_noise_channels(freqs, psd, criteria.line_noise)
-        if criteria.high_frequency:
-            masks["high_frequency"] = high_frequency_channels(freqs, psd, criteria.high_frequency)
+    picks, statistics = criterion_statistics(epochs, criteria)
     flagged: dict[str, list[str]] = {}
-    for criterion, mask in masks.items():
-        for index in picks[mask]:
-            flagged.setdefault(epochs.ch_names[index], []).append(criterion)
+    for name, values in statistics.items():
+        for index in picks[getattr(criteria, name).flags(values)]:
+            flagged.setdefault(epochs.ch_names[index], []).append(name)
     return flagged
 
 
@@ -266,17 +362,19 @@ class BadChannels(Step):
                 f"bad channels are found by comparing channels, which needs at least {MIN_EEG_CHANNELS} EEG "
                 f"channels; this set has {n_eeg}: remove the bad_channels step",
             )
-        if self.criteria.line_noise and self.criteria.line_noise.freq_hz + LINE_NEIGHBOURS_HZ[1] >= meta.nyquist:
+        mains = self.criteria.mains_excess
+        if mains and mains.mains_hz + MAINS_NEIGHBOURS_HZ[1] >= meta.nyquist:
             raise SpecError(
-                ("criteria", "line_noise", "freq_hz"),
-                f"the line frequency {self.criteria.line_noise.freq_hz:g} Hz and the bands beside it are not below "
-                f"the Nyquist frequency of {meta.nyquist:g} Hz; remove the line_noise criterion",
+                ("criteria", "mains_excess", "mains_hz"),
+                f"the mains frequency {mains.mains_hz:g} Hz and the bands beside it are not below "
+                f"the Nyquist frequency of {meta.nyquist:g} Hz; remove the mains_excess criterion",
             )
-        if self.criteria.high_frequency and meta.nyquist <= HIGH_FREQUENCY_HZ + 5.0:
+        if self.criteria.fast_power_excess and meta.nyquist <= FAST_POWER_FROM_HZ + 5.0:
             raise SpecError(
-                ("criteria", "high_frequency"),
-                f"the high-frequency criterion measures power above {HIGH_FREQUENCY_HZ:g} Hz, which needs a Nyquist "
-                f"frequency above {HIGH_FREQUENCY_HZ + 5.0:g} Hz (this set's is {meta.nyquist:g} Hz); remove it",
+                ("criteria", "fast_power_excess"),
+                f"the fast_power_excess criterion measures power above {FAST_POWER_FROM_HZ:g} Hz, which needs a "
+                f"Nyquist frequency above {FAST_POWER_FROM_HZ + 5.0:g} Hz (this set's is {meta.nyquist:g} Hz); "
+                "remove it",
             )
         if self.action == "interpolate":
             unplaced = eeg_channels_without_position(meta)

@@ -151,6 +151,11 @@ def test_webhook_receiver_writes_the_summary_of_a_real_run_to_csv(client, study,
 def test_webhook_receiver_refuses_a_bad_signature_and_writes_nothing(receiver):
     url, csv_path = receiver
     body = json.dumps({"id": "evt_forged", "type": "run.succeeded", "data": {"run": {}}})
-    answer = httpx.post(url, content=body, headers={"Epoch-Assay-Signature": f"t={int(time.time())},v1={'0' * 64}"})
+    forged = {
+        "webhook-id": "dlv_forged",
+        "webhook-timestamp": str(int(time.time())),
+        "webhook-signature": "v1," + "A" * 44,
+    }
+    answer = httpx.post(url, content=body, headers=forged)
     assert answer.status_code == 401
     assert not csv_path.exists()
