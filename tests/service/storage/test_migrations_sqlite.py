@@ -5,13 +5,13 @@ from datetime import UTC, datetime
 import pytest
 from alembic import command
 from alembic.script import ScriptDirectory
-from sqlalchemy import JSON, Boolean, DateTime, Float, Integer, create_engine, func, inspect, select
+from sqlalchemy import JSON, Boolean, DateTime, Float, Integer, LargeBinary, create_engine, func, inspect, select
 
 from service.storage.migrate import alembic_config, upgrade_to_head
 from service.storage.models import Base, UTCDateTime
 
 
-def _value(table_name: str, column) -> object:  # type: ignore[no-untyped-def]
+def _value(table_name: str, column) -> object:
     kind = column.type
     if isinstance(kind, JSON):
         return [] if column.name in ("ch_names", "ch_types", "events", "log") else {}
@@ -23,6 +23,8 @@ def _value(table_name: str, column) -> object:  # type: ignore[no-untyped-def]
         return 1.0
     if isinstance(kind, UTCDateTime | DateTime):
         return datetime(2026, 1, 1, tzinfo=UTC)
+    if isinstance(kind, LargeBinary):
+        return b"\x89PNG"
     return f"{table_name}-{column.name}"[: getattr(kind, "length", None) or 200]
 
 
