@@ -135,3 +135,20 @@ def test_invalid_reference_spec_is_refused(spec: dict, fragment: str) -> None:
     with pytest.raises(ValidationError) as caught:
         Reference.model_validate({"step": "reference", **spec})
     assert fragment in str(caught.value)
+
+
+def test_rest_on_fewer_than_four_good_channels_is_refused_by_check_and_apply() -> None:
+    # A sphere fit to electrode positions needs at least four points (four unknowns: centre and radius).
+    epochs = EpochSet(
+        data=np.random.default_rng(0).standard_normal((4, 3, 50)) * 1e-5,
+        sfreq=100.0,
+        tmin=0.0,
+        ch_names=("Cz", "Pz", "Fz"),
+        ch_types=("eeg",) * 3,
+        labels=np.array(["a", "b"] * 2),
+    )
+    step = Reference(kind="rest")
+    with pytest.raises(SpecError, match="at least 4"):
+        step.check(epochs.meta())
+    with pytest.raises(SpecError, match="at least 4"):
+        step.apply(epochs)

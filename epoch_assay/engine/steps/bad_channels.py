@@ -344,9 +344,15 @@ class BadChannels(Step):
     stage: ClassVar[Stage] = Stage.CONTINUOUS
     Outputs: ClassVar[type[StepOutputs]] = BadChannelsOutputs
     examples: ClassVar[tuple[dict[str, Any], ...]] = (
-        {"criteria": {"flat": {}, "deviation": {}, "correlation": {}}, "action": "flag"},
-        {"criteria": {"deviation": {"z": 3.0}, "line_noise": {}, "high_frequency": {}}, "action": "interpolate"},
-        {"criteria": {"flat": {}, "deviation": {"z": 3.0}, "bridged": {}}, "action": "drop"},
+        {"criteria": {"near_silent": {}, "amplitude_outlier": {}, "partner_agreement": {}}, "action": "flag"},
+        {
+            "criteria": {"amplitude_outlier": {"robust_z_above": 3.0}, "mains_excess": {}, "fast_power_excess": {}},
+            "action": "interpolate",
+        },
+        {
+            "criteria": {"near_silent": {}, "amplitude_outlier": {"robust_z_above": 3.0}, "bridged_pair": {}},
+            "action": "drop",
+        },
     )
 
     criteria: BadChannelCriteria = Field(description="Which criteria to apply, with their thresholds.")

@@ -19,6 +19,10 @@ REFERENCED_CHANNEL_TYPES = ("eeg",)
 _KINDS_WITH_CHANNELS = frozenset({"channels"})
 
 
+# A sphere through the electrodes is fitted to their positions: four points at the least.
+MIN_REST_CHANNELS = 4
+
+
 class Reference(Step):
     """Subtract a reference signal from every EEG channel, bad ones included.
 
@@ -85,6 +89,7 @@ class Reference(Step):
             unplaced = eeg_channels_without_position(meta)
             if unplaced:
                 raise missing_positions_error(("kind",), "the REST reference", unplaced, "kind 'average'")
+            _check_enough_for_rest(len([name for name in eeg_names if name not in meta.bads]))
         return meta
 
     def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepProvenanceBase]:
@@ -136,4 +141,15 @@ class Reference(Step):
         ]
         if unplaced:
             raise missing_positions_error(("kind",), "the REST reference", unplaced, "kind 'average'")
+        _check_enough_for_rest(sources.size)
         return rest_reference_weights(positions)
+
+
+def _check_enough_for_rest(n_good_eeg: int) -> None:
+    """Refuse REST on fewer good EEG channels than the sphere fit to their positions needs."""
+    if n_good_eeg < MIN_REST_CHANNELS:
+        raise SpecError(
+            ("kind",),
+            f"the REST reference fits a sphere to the positions of the good EEG channels and needs at least "
+            f"{MIN_REST_CHANNELS} of them; {n_good_eeg} are left; use kind 'average' or keep more channels",
+        )
