@@ -10,6 +10,7 @@ record model of each step is built from its parameters and outputs by
 ``step``.
 """
 
+from collections.abc import Callable
 from enum import StrEnum
 from functools import lru_cache
 from importlib.metadata import PackageNotFoundError, version
@@ -66,11 +67,17 @@ class StepProvenanceBase(BaseModel):
         return self.model_dump(mode="json")
 
 
+#: Per step name, how a stored record's ``params`` and outputs written under names a step has since
+#: changed are put in today's names; a step that renames its parameters registers one here.
+LEGACY_RECORD_RENAMES: dict[str, Callable[[dict[str, Any]], dict[str, Any]]] = {}
+
+
 def upgrade_legacy_record(record: dict[str, Any]) -> dict[str, Any]:
     """A record stored before records were typed per step, in today's shape.
 
     Those records had every step's output fields (empty where the step has none) and no
-    ``version``; each step was then at its first version.
+    ``version``; each step was then at its first version. Names a step has changed since are
+    put in today's names (``LEGACY_RECORD_RENAMES``).
     """
     legacy_output_fields = (
         "channels_flagged",
@@ -81,7 +88,8 @@ def upgrade_legacy_record(record: dict[str, Any]) -> dict[str, Any]:
     )
     upgraded = {name: value for name, value in record.items() if name not in legacy_output_fields or value}
     upgraded.setdefault("version", 1)
-    return upgraded
+    rename = LEGACY_RECORD_RENAMES.get(upgraded.get("step", ""))
+    return rename(upgraded) if rename is not None else upgraded
 
 
 @lru_cache(maxsize=64)

@@ -55,9 +55,11 @@ def test_a_record_stored_before_typing_reads_back_as_the_steps_record(legacy):
     )
 
 
-def test_legacy_outputs_are_kept():
+def test_legacy_outputs_are_kept_under_todays_criterion_names():
     record = RECORDS.validate_python(upgrade_legacy_record(LEGACY_BAD_CHANNELS))
-    assert (record.channels_flagged, record.channels_dropped) == ({"O2": ["flat"]}, ["O2"])
+    assert (record.channels_flagged, record.channels_dropped) == ({"O2": ["near_silent"]}, ["O2"])
+    assert record.params.criteria.near_silent is not None
+    assert record.params.criteria.near_silent.std_below_uv == 0.5 and record.version == 1
 
 
 def test_the_version_of_a_missing_distribution_says_so():
@@ -65,6 +67,6 @@ def test_the_version_of_a_missing_distribution_says_so():
 
 
 def test_a_record_survives_pickling_between_processes():
-    step = BadChannels.model_validate({"criteria": {"flat": {}}, "action": "drop"})
-    record = step.record(channels_flagged={"O2": ["flat"]}, channels_dropped=["O2"])
+    step = BadChannels.model_validate({"criteria": {"near_silent": {}}, "action": "drop"})
+    record = step.record(channels_flagged={"O2": ["near_silent"]}, channels_dropped=["O2"])
     assert pickle.loads(pickle.dumps(record)) == record

@@ -49,7 +49,7 @@ from pydantic import BaseModel, ConfigDict, Field, model_validator
 from epoch_assay.engine.epochs import SCORED_CHANNEL_TYPES, EpochSet, EpochSetMeta
 from epoch_assay.engine.errors import SpecError
 from epoch_assay.engine.montage import eeg_channels_without_position, epoch_set_positions, missing_positions_error
-from epoch_assay.engine.provenance import Stage, StepOutputs, StepProvenanceBase
+from epoch_assay.engine.provenance import LEGACY_RECORD_RENAMES, Stage, StepOutputs, StepProvenanceBase
 from epoch_assay.engine.steps.base import DataDependentField, Step
 from epoch_assay.engine.steps.line_noise import LINE_FREQUENCIES_HZ
 from epoch_assay.engine.steps.mne_bridge import MNE_QUIET, to_mne_epochs
@@ -74,6 +74,40 @@ RENAMED_CRITERIA = {
     "high_frequency": "fast_power_excess {robust_z_above}",
     "bridged": "bridged_pair {distance_below_ratio}",
 }
+
+# How a record stored under the earlier names reads today: criterion and field names, in that order.
+_LEGACY_NAMES = {
+    "flat": ("near_silent", {"min_std_uv": "std_below_uv"}),
+    "deviation": ("amplitude_outlier", {"z": "robust_z_above"}),
+    "correlation": ("partner_agreement", {"min_r": "mean_r_below", "n_best": "n_partners"}),
+    "line_noise": ("mains_excess", {"z": "robust_z_above", "freq_hz": "mains_hz"}),
+    "high_frequency": ("fast_power_excess", {"z": "robust_z_above"}),
+    "bridged": ("bridged_pair", {"max_ratio": "distance_below_ratio"}),
+}
+
+
+def legacy_record_in_current_names(record: dict[str, Any]) -> dict[str, Any]:
+    """A stored bad-channel record (result documents of schema version 1) with its criteria in today's names.
+
+    Only names change: the record still says what version 1 of the step computed, with the
+    thresholds it used then (``version`` stays 1).
+    """
+
+    def renamed(name: str) -> str:
+        return _LEGACY_NAMES[name][0] if name in _LEGACY_NAMES else name
+
+    params = dict(record.get("params", {}))
+    criteria = {}
+    for name, fields in (params.get("criteria") or {}).items():
+        fields_renamed = _LEGACY_NAMES.get(name, (name, {}))[1]
+        criteria[renamed(name)] = {fields_renamed.get(key, key): value for key, value in (fields or {}).items()}
+    flagged = {
+        channel: [renamed(name) for name in names] for channel, names in (record.get("channels_flagged") or {}).items()
+    }
+    upgraded = {**record, "params": {**params, "criteria": criteria}}
+    if "channels_flagged" in record:
+        upgraded["channels_flagged"] = flagged
+    return upgraded
 
 
 class _Criterion(BaseModel):
@@ -415,3 +449,6 @@ class BadChannels(Step):
                 channels_flagged=flagged, channels_interpolated=bad_eeg
             )
         return drop_channels(epochs, bad_eeg), self.record(channels_flagged=flagged, channels_dropped=bad_eeg)
+
+
+LEGACY_RECORD_RENAMES["bad_channels"] = legacy_record_in_current_names

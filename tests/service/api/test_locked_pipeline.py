@@ -7,7 +7,10 @@ from tests.support.live import wait_for_run
 
 PIPELINE = {
     "name": "hp1-avg",
-    "steps": [{"step": "highpass", "cutoff_hz": 1.0, "allow_short_epochs": True}, {"step": "reference", "kind": "average"}],
+    "steps": [
+        {"step": "highpass", "cutoff_hz": 1.0, "allow_short_epochs": True},
+        {"step": "reference", "kind": "average"},
+    ],
 }
 
 
