@@ -24,6 +24,8 @@ from concurrent.futures import FIRST_COMPLETED, Future, ProcessPoolExecutor, wai
 from dataclasses import dataclass
 from typing import Any, Generic, Protocol, TypeVar
 
+from threadpoolctl import threadpool_limits
+
 Result = TypeVar("Result")
 Handle = TypeVar("Handle")
 Unit = Callable[[], Result]
@@ -32,9 +34,11 @@ PENDING_PER_WORKER = 2
 
 @dataclass(frozen=True)
 class Progress:
-    """Units done out of the total, the time since the first unit started and the time left, in s.
+    """Work done out of the total, the time since the first unit started and the time left, in s.
 
-    ``eta_s`` extrapolates the mean time per unit so far; None before the first unit is done.
+    Work is counted in units, each weighing its ``weight`` (1 unless it says otherwise: a
+    :class:`SharedInputUnit` scoring several pipelines weighs one per pipeline).
+    ``eta_s`` extrapolates the mean time per unit of work so far; None before the first unit is done.
     """
 
     done: int
@@ -53,12 +57,14 @@ class SharedInputUnit(Generic[Result]):
     consecutive units have in common (one epoch set, for its tree branches).
 
     Called with no argument it is an ordinary unit; a Dask cluster gets ``shared`` once for all
-    the units that carry the same object, not once per unit.
+    the units that carry the same object, not once per unit. ``weight`` is its share of the
+    run's work in progress reports.
     """
 
     function: Callable[..., Result]
     shared: Any
     args: tuple[Any, ...] = ()
+    weight: int = 1
 
     def __call__(self) -> Result:
         return self.function(self.shared, *self.args)
@@ -111,17 +117,38 @@ def run_units(
         results = []
         for unit in units:
             results.append(unit())
-            clock.unit_done()
+            clock.unit_done(unit_weight(unit))
         return results
     context = multiprocessing.get_context("forkserver")
     context.set_forkserver_preload(list(preload))
     executor = ProcessPoolExecutor(
-        max_workers=workers, mp_context=context, initializer=exit_with, initargs=(os.getpid(),)
+        max_workers=workers, mp_context=context, initializer=start_pool_process, initargs=(os.getpid(),)
     )
     try:
         return run_bounded(units, _PoolBackend(executor, PENDING_PER_WORKER * workers), clock)
     finally:
         executor.shutdown(wait=True, cancel_futures=True)
+
+
+def unit_weight(unit: Unit[Any]) -> int:
+    """The unit's share of the work, for progress (1 unless the unit has a ``weight``)."""
+    return getattr(unit, "weight", 1)
+
+
+def start_pool_process(owner_pid: int) -> None:
+    """Set up a pool process: one BLAS thread (see :func:`one_blas_thread`), and exit with the owner."""
+    one_blas_thread()
+    exit_with(owner_pid)
+
+
+def one_blas_thread() -> None:
+    """Limit the BLAS and OpenMP libraries loaded in this process to one thread each.
+
+    Pool processes already run one per core; a BLAS that also starts a thread per core in each of
+    them puts cores × cores threads on the cores, which then wait on each other (OpenBLAS spins
+    while it waits). Set once per pool process, for its whole life.
+    """
+    threadpool_limits(limits=1)
 
 
 def exit_with(owner_pid: int) -> None:
@@ -163,8 +190,8 @@ class ProgressClock:
         self._started = time.monotonic()
         self._done = 0
 
-    def unit_done(self) -> None:
-        self._done += 1
+    def unit_done(self, weight: int = 1) -> None:
+        self._done += weight
         elapsed = time.monotonic() - self._started
         eta = elapsed / self._done * max(self._total - self._done, 0)
         self._on_progress(Progress(done=self._done, total=self._total, elapsed_s=elapsed, eta_s=eta))
@@ -177,6 +204,7 @@ def run_bounded(
     and return the results in unit order; on any exception the pending units are cancelled."""
     results: dict[int, Result] = {}
     pending: dict[Handle, int] = {}
+    weights: dict[int, int] = {}
     iterator = enumerate(units)
     try:
         exhausted = False
@@ -187,12 +215,14 @@ def run_bounded(
                     exhausted = True
                     break
                 index, unit = item
+                weights[index] = unit_weight(unit)
                 pending[backend.submit(unit, index)] = index
             if not pending:
                 break
             for handle in backend.wait_first(list(pending)):
-                results[pending.pop(handle)] = backend.collect(handle)
-                clock.unit_done()
+                index = pending.pop(handle)
+                results[index] = backend.collect(handle)
+                clock.unit_done(weights[index])
     finally:
         if pending:
             backend.cancel(list(pending))
