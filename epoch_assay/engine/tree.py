@@ -98,6 +98,17 @@ class PipelineTree:
             trees.insert(0, PipelineTree(TreeNode((), self.root.pipelines, ())))
         return trees
 
+    def recording_branches(self) -> list["PipelineTree"]:
+        """A two-stage tree split at its root for a recording: one tree per continuous-stage first step,
+        and one with the pipelines that start on the epochs of the recording as it is (epoched once).
+        """
+        continuous = [child for child in self.root.children if child.prefix[-1].stage == Stage.CONTINUOUS]
+        on_epochs = tuple(child for child in self.root.children if child.prefix[-1].stage != Stage.CONTINUOUS)
+        trees = [PipelineTree(TreeNode((), (), (child,))) for child in continuous]
+        if self.root.pipelines or on_epochs:
+            trees.insert(0, PipelineTree(TreeNode((), self.root.pipelines, on_epochs)))
+        return trees
+
 
 @dataclass(frozen=True)
 class LeafOutput:

@@ -84,6 +84,14 @@ def test_two_stage_tree_applies_each_high_pass_once_at_the_top():
     assert len(staged) == 2 and all(len(node.prefix) == 1 for node in staged)
 
 
+def test_a_recording_is_split_into_one_branch_per_filter_and_one_on_its_own_epochs():
+    branches = build_tree(PIPELINES, two_stage=True).recording_branches()
+    assert [len(branch.pipelines) for branch in branches] == [4, 4, 4]
+    assert [branch.root.children[0].prefix[0].step for branch in branches[1:]] == ["highpass", "highpass"]
+    # The unfiltered branch holds the pipeline of no step and those starting with reference or baseline.
+    assert branches[0].root.pipelines and len(branches[0].root.children) == 2
+
+
 def test_tree_gives_each_pipeline_the_epochs_and_records_of_apply_two_stage_bit_for_bit(session):
     leaves = [
         leaf_result(leaf, None)

@@ -130,7 +130,7 @@ def execute_multiverse(
 
     Progress counts entries (a pipeline on a source): each unit weighs the pipelines it scores.
     """
-    trees = {two_stage: build_tree(pipelines, two_stage=two_stage).branches() for two_stage in (False, True)}
+    trees = {False: build_tree(pipelines).branches(), True: build_tree(pipelines, two_stage=True).recording_branches()}
     if settings.dask_scheduler is not None and settings.cache_dir is not None:
         # A relative folder would be taken from each Dask worker's own working directory.
         settings = replace(settings, cache_dir=settings.cache_dir.absolute())

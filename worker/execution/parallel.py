@@ -6,7 +6,11 @@ Processes are started with the "forkserver" method, because the calling worker h
 (heartbeat, webhook delivery) that a forked child would inherit half-way through whatever
 they were doing. The fork server imports the ``preload`` modules once and forks each worker
 from there, so workers do not pay for importing the scientific stack themselves. With one
-worker the units run in the calling process, without pickling.
+worker the units run in the calling process, without pickling. The large input of a
+:class:`SharedInputUnit` (an epoch set, a recording) is pickled once into a file of a folder
+private to the run, and each worker process reads it once and keeps it while consecutive
+units use it, instead of receiving a copy with every unit; the file goes when its last unit
+is collected.
 If ``on_progress`` raises (the job is handed back, or its lease was lost), units not yet
 started are cancelled, the ones running finish, and the exception propagates.
 
@@ -14,14 +18,19 @@ The submission loop (:func:`run_bounded`) is shared with the Dask cluster path
 (``worker.execution.dask_units``), which gives it another :class:`UnitBackend`.
 """
 
+import importlib
 import multiprocessing
 import os
+import pickle
 import select
+import shutil
+import tempfile
 import threading
 import time
 from collections.abc import Callable, Collection, Iterable, Sequence
 from concurrent.futures import FIRST_COMPLETED, Future, ProcessPoolExecutor, wait
-from dataclasses import dataclass
+from dataclasses import dataclass, field
+from pathlib import Path
 from typing import Any, Generic, Protocol, TypeVar
 
 from threadpoolctl import threadpool_limits
@@ -124,10 +133,12 @@ def run_units(
     executor = ProcessPoolExecutor(
         max_workers=workers, mp_context=context, initializer=start_pool_process, initargs=(os.getpid(),)
     )
+    folder = Path(tempfile.mkdtemp(prefix="epoch-assay-inputs-"))
     try:
-        return run_bounded(units, _PoolBackend(executor, PENDING_PER_WORKER * workers), clock)
+        return run_bounded(units, _PoolBackend(executor, PENDING_PER_WORKER * workers, folder), clock)
     finally:
         executor.shutdown(wait=True, cancel_futures=True)
+        shutil.rmtree(folder, ignore_errors=True)
 
 
 def unit_weight(unit: Unit[Any]) -> int:
@@ -146,8 +157,10 @@ def one_blas_thread() -> None:
 
     Pool processes already run one per core; a BLAS that also starts a thread per core in each of
     them puts cores × cores threads on the cores, which then wait on each other (OpenBLAS spins
-    while it waits). Set once per pool process, for its whole life.
+    while it waits). Set once per pool process, for its whole life, after loading NumPy, since a limit
+    applies to the libraries loaded when it is set.
     """
+    importlib.import_module("numpy")
     threadpool_limits(limits=1)
 
 
@@ -229,20 +242,81 @@ def run_bounded(
     return [results[index] for index in range(len(results))]
 
 
+# In a pool process: the input last read from a spooled file, by path (one at a time).
+_READ_INPUT: dict[str, Any] = {}
+
+
+@dataclass(frozen=True)
+class SpooledInputUnit(Generic[Result]):
+    """A :class:`SharedInputUnit` whose input waits in a pickle file, read once per process."""
+
+    function: Callable[..., Result]
+    path: str
+    args: tuple[Any, ...]
+    weight: int
+
+    def __call__(self) -> Result:
+        if self.path not in _READ_INPUT:
+            _READ_INPUT.clear()
+            with open(self.path, "rb") as stream:
+                _READ_INPUT[self.path] = pickle.load(stream)
+        return self.function(_READ_INPUT[self.path], *self.args)
+
+
+@dataclass
+class _Spooled:
+    value: Any
+    path: Path
+    users: int = 0
+
+
 @dataclass
 class _PoolBackend(Generic[Result]):
     executor: ProcessPoolExecutor
     capacity: int
+    folder: Path
+    _spooled: list[_Spooled] = field(default_factory=list)
+    _input_of: dict[Future, _Spooled] = field(default_factory=dict)
+    _written: int = 0
 
     def submit(self, unit: Unit[Result], index: int) -> Future[Result]:
-        return self.executor.submit(unit)
+        if not isinstance(unit, SharedInputUnit):
+            return self.executor.submit(unit)
+        spooled = self._spool(unit.shared)
+        future = self.executor.submit(SpooledInputUnit(unit.function, str(spooled.path), unit.args, unit.weight))
+        spooled.users += 1
+        self._input_of[future] = spooled
+        return future
 
     def wait_first(self, pending: Collection[Future[Result]]) -> Iterable[Future[Result]]:
         return wait(pending, return_when=FIRST_COMPLETED).done
 
     def collect(self, handle: Future[Result]) -> Result:
+        spooled = self._input_of.pop(handle, None)
+        if spooled is not None:
+            spooled.users -= 1
+            self._forget_unused()
         return handle.result()
 
     def cancel(self, pending: Collection[Future]) -> None:
         for future in pending:
             future.cancel()
+
+    def _spool(self, value: Any) -> _Spooled:
+        """The file of ``value``: the latest one when units of the same input follow each other."""
+        if self._spooled and self._spooled[-1].value is value:
+            return self._spooled[-1]
+        self._written += 1
+        path = self.folder / f"input-{self._written}.pickle"
+        with open(path, "wb") as stream:
+            pickle.dump(value, stream, protocol=pickle.HIGHEST_PROTOCOL)
+        self._spooled.append(_Spooled(value, path))
+        self._forget_unused()
+        return self._spooled[-1]
+
+    def _forget_unused(self) -> None:
+        """Delete the files no pending unit reads, but the latest, whose next units may still come."""
+        for spooled in self._spooled[:-1]:
+            if spooled.users == 0:
+                spooled.path.unlink(missing_ok=True)
+        self._spooled = [spooled for spooled in self._spooled[:-1] if spooled.users > 0] + self._spooled[-1:]
