@@ -20,8 +20,9 @@ agree within one channel (the service draws its own subsets) and prints the timi
 
 Small-sets case: 12 subjects of 16 channels × 60 trials × 71 samples at 100 Hz, the same grid on
 the uploaded epochs (full-trial Welch test, Benjamini–Hochberg, no subsets), through
-``execute_run`` with the pool, against its arithmetic: the same pipelines applied and scored
-in one process in a plain loop (``apply_pipeline`` + ``score_epochs``).
+``execute_run`` with the pool, against its arithmetic: the prefix tree of the same pipelines
+applied and each entry scored in one process (``execute_tree`` + ``score_epochs``), without
+processes, cache or group level.
 
     python tests/benchmarks/bench_continuous_grid.py          # sizes above
     python tests/benchmarks/bench_continuous_grid.py --quick  # tiny smoke run
@@ -46,10 +47,10 @@ from epoch_assay.engine.epochs import EpochSet
 from epoch_assay.engine.grid import GridSpec, expand_grid
 from epoch_assay.engine.io.detect import FileFormat
 from epoch_assay.engine.io.events import Events
-from epoch_assay.engine.pipeline import apply_pipeline
 from epoch_assay.engine.recording import ContinuousInput, EpochingSpec, RecordingRun
 from epoch_assay.engine.scoring import score_epochs
 from epoch_assay.engine.scoring_spec import ScoringSpec
+from epoch_assay.engine.tree import build_tree, execute_tree
 from service.settings import Settings
 from worker.execution.multiverse import ExecutionSettings
 from worker.run_job import EpochSetRef, execute_run
@@ -257,10 +258,13 @@ def small_sets(size: Size) -> dict[str, EpochSet]:
 
 
 def arithmetic(sets: dict[str, EpochSet]) -> None:
+    """The computation the service's run cannot avoid: each distinct step once (the prefix tree), and
+    each entry scored, in this one process, with no cache, no other process and no group level."""
     spec = ScoringSpec.model_validate(scoring(None))
+    tree = build_tree([point.pipeline for point in expand_grid(grid())])
     for epochs in sets.values():
-        for point in expand_grid(grid()):
-            score_epochs(apply_pipeline(point.pipeline, epochs)[0], spec)
+        for leaf in execute_tree(tree, epochs, "0" * 64):
+            score_epochs(leaf.epochs, spec)
 
 
 def agree(name: str, mine: dict, reference: dict, tolerance: float) -> None:
@@ -301,7 +305,7 @@ def main() -> None:
     _, small_s = timed(lambda: service_run(small_spec, sets, workers=None))
     _, arithmetic_s = timed(lambda: arithmetic(sets))
     print(f"  service (pool, cold cache): {small_s:7.2f} s")
-    print(f"  arithmetic (one process):   {arithmetic_s:7.2f} s")
+    print(f"  arithmetic (tree + scoring in one process): {arithmetic_s:7.2f} s")
     print(f"  service / arithmetic: {small_s / arithmetic_s:5.1f} x")
     print(f"load average after: {' '.join(f'{x:.2f}' for x in os.getloadavg())}")
 
