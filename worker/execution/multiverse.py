@@ -5,9 +5,10 @@ A unit is one epoch set × one or more branches of the tree (a branch: the pipel
 with the same step). In the local pool an epoch set smaller than ``SMALL_SOURCE_BYTES`` goes as
 one unit with all its branches, since sending it to a process and back costs more than its
 steps; a larger one (and every one on a Dask cluster, which gets each input once and has more
-workers to spread branches over) as one unit per branch, so that its branches run side by side. Epoch sets are loaded in the calling
-process, one at a time as their units are submitted, and handed to the units; each unit opens the
-cache folder itself, so processes share entries through the files. A recording
+workers to spread branches over) as one unit per branch, so that its branches run side by side.
+Epoch sets are loaded in the calling process, one at a time as their units are submitted, and
+handed to the units; each unit opens the cache folder itself, so processes share entries
+through the files. A recording
 (``ContinuousInput``) goes through the tree of its pipelines in two-stage order
 (``epoch_assay.engine.tree.execute_recording_tree``): the continuous-stage prefixes run once per
 run of the session and are shared and cached like any step, the runs are epoched once per
@@ -130,7 +131,8 @@ def execute_multiverse(
 
     Progress counts entries (a pipeline on a source): each unit weighs the pipelines it scores.
     """
-    trees = {False: build_tree(pipelines).branches(), True: build_tree(pipelines, two_stage=True).recording_branches()}
+    epoch_set_branches = build_tree(pipelines).branches()
+    recording_branches = build_tree(pipelines, two_stage=True).recording_branches()
     if settings.dask_scheduler is not None and settings.cache_dir is not None:
         # A relative folder would be taken from each Dask worker's own working directory.
         settings = replace(settings, cache_dir=settings.cache_dir.absolute())
@@ -141,7 +143,8 @@ def execute_multiverse(
     def units() -> Iterator[SharedInputUnit[UnitOutcome]]:
         for source in sources:
             loaded = handlers.load(source)
-            groups = unit_branches(loaded, trees[isinstance(loaded, ContinuousInput)], batch_small=on_pool)
+            branches = recording_branches if isinstance(loaded, ContinuousInput) else epoch_set_branches
+            groups = unit_branches(loaded, branches, batch_small=on_pool)
             units_of_source.append(len(groups))
             for group in groups:
                 yield SharedInputUnit(
