@@ -12,6 +12,7 @@ from epoch_assay.engine.recording import ChannelSpec, ContinuousInput, EpochingS
 from epoch_assay.engine.tree import LeafOutput, TreeNode, build_tree, execute_recording_tree
 from tests.support.recording_files import known_recording, recording_bytes
 from worker.execution.multiverse import ExecutionSettings, SourceHandlers, execute_multiverse
+from worker.execution.step_cache import DiskStepCache
 from worker.run_job import EpochSetRef, execute_run
 
 EPOCHING = EpochingSpec(tmin=-0.2, tmax=0.6, conditions={"a": ["a"], "b": ["b"]})
@@ -143,3 +144,15 @@ def test_a_second_run_with_another_scoring_window_takes_the_steps_from_the_cache
     assert [without_seconds(e.provenance) for e in second.results] == [
         without_seconds(e.provenance) for e in first.results
     ]
+
+
+def test_another_epoching_reuses_the_filtered_runs_but_not_the_outputs_after_epoching(session, tmp_path):
+    tree = build_tree([next(p for p in PIPELINES if len(p.steps) == 3)], two_stage=True)
+    first = DiskStepCache(tmp_path, 10**9)
+    list(execute_recording_tree(tree, session, SHA256, first))
+    # One high-pass per run (2), then reference and baseline on the epochs (2).
+    assert (first.stats().hits, first.stats().misses) == (0, 4)
+    shorter = ContinuousInput(session.runs, session.epoching.model_copy(update={"tmax": 0.5}))
+    second = DiskStepCache(tmp_path, 10**9)
+    list(execute_recording_tree(tree, shorter, SHA256, second))
+    assert (second.stats().hits, second.stats().misses) == (2, 2)
