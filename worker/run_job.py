@@ -1,6 +1,6 @@
 """One run from spec to result document: load each epoch set, apply each pipeline, score.
 
-The pipelines (listed, or expanded from a grid) run as a prefix tree per epoch set, in worker
+The pipelines (listed, or expanded from a grid) run as a prefix tree per epoch set or recording, in worker
 processes and with a step cache when the runner asks for them (``worker.execution.multiverse``); the
 document then also ranks the pipelines, gives a grid's factor effects and the selection.
 
@@ -33,9 +33,9 @@ from epoch_assay.engine.multiverse_report import (
     ranking_document,
     selection_document,
 )
-from epoch_assay.engine.pipeline import PipelineSpec, apply_pipeline
+from epoch_assay.engine.pipeline import PipelineSpec
 from epoch_assay.engine.provenance import StepProvenanceBase
-from epoch_assay.engine.recording import ContinuousInput, apply_two_stage
+from epoch_assay.engine.recording import ContinuousInput
 from epoch_assay.engine.scoring import eeg_channel_names, score_epochs
 from epoch_assay.engine.scoring_spec import ScoringSpec
 from epoch_assay.engine.selection import SelectionSpec
@@ -67,26 +67,13 @@ def software_versions() -> dict[str, str]:
     return versions
 
 
-def score_unit(
-    pipeline: PipelineSpec, epochs: EpochSet | ContinuousInput, scoring: ScoringSpec, ref: EpochSetRef
-) -> ResultEntry:
-    """Apply one pipeline to one epoch set and score it; an entry of the result's ``results``.
-
-    A recording (``ContinuousInput``) is processed in two stages: continuous-stage steps before
-    epoching, the others after (see ``epoch_assay.engine.recording``).
+def score_leaf(leaf: LeafOutput, source: EpochSet, scoring: ScoringSpec, ref: EpochSetRef) -> ResultEntry:
+    """The entry of a pipeline whose output was reached in a prefix tree built on ``source`` (for a
+    recording, its first run: the channels uploaded are those of the recording).
 
     A spec that turns out impossible only now (a pipeline left too few trials, say) is
     reported in the entry's ``error`` rather than failing the whole run.
     """
-    processed, records = (
-        apply_two_stage(pipeline, epochs) if isinstance(epochs, ContinuousInput) else apply_pipeline(pipeline, epochs)
-    )
-    uploaded = eeg_channel_names(epochs.recording if isinstance(epochs, ContinuousInput) else epochs)
-    return _scored_entry(pipeline, processed, records, uploaded, scoring, ref)
-
-
-def score_leaf(leaf: LeafOutput, source: EpochSet, scoring: ScoringSpec, ref: EpochSetRef) -> ResultEntry:
-    """The entry of a pipeline whose output was reached in a prefix tree built on ``source``."""
     return _scored_entry(leaf.pipeline, leaf.epochs, list(leaf.records), eeg_channel_names(source), scoring, ref)
 
 
@@ -129,8 +116,9 @@ def execute_run(
     """Score every pipeline of ``spec`` on every epoch set; return the result document.
 
     ``execution`` sets the worker processes and the step cache (default: this process, no
-    cache). After each unit (an epoch set × a branch of the tree) ``on_detail`` gets the units
-    done, their total and an ETA, then ``on_progress`` the share done; either may raise to stop.
+    cache). After each unit (an epoch set × one or more branches of the tree) ``on_detail`` gets the
+    entries (pipeline × epoch set) done, their total and an ETA, then ``on_progress`` the share
+    done; either may raise to stop.
     """
     grid = GridSpec.model_validate(spec["grid"]) if spec.get("grid") else None
     points = expand_grid(grid, max_pipelines=grid.size()) if grid is not None else []
@@ -141,7 +129,6 @@ def execute_run(
         load=load,
         source_sha256=lambda ref: ref.sha256,
         score_leaf=lambda ref: functools.partial(score_leaf, scoring=scoring, ref=ref),
-        score_alone=lambda ref: functools.partial(score_unit, scoring=scoring, ref=ref),
     )
 
     def report(progress: Progress) -> None:

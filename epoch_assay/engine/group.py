@@ -23,6 +23,7 @@ from epoch_assay.engine.document.multiverse import (
 )
 from epoch_assay.engine.scoring_spec import ScoringSpec
 from epoch_assay.engine.stats import adjust_pvalues, one_sample_t, sign_flip_test
+from epoch_assay.engine.stats.signed_rank import wilcoxon_p as signed_rank_p
 from epoch_assay.engine.units import uv_to_v, v_to_uv
 
 CI_LEVEL = 0.95
@@ -84,11 +85,12 @@ def paired_comparisons(values: np.ndarray, reference: np.ndarray) -> list[Paired
         raise ValueError(f"a paired comparison needs at least 2 subjects, got {n}")
     mean = differences.mean(axis=-1)
     half_width = stats.t.ppf(0.5 * (1 + CI_LEVEL), n - 1) * differences.std(axis=-1, ddof=1) / np.sqrt(n)
-    # Reference implementations: scipy.stats.wilcoxon and scipy.stats.ttest_rel (Virtanen et al., 2020, SciPy 1.0).
+    # Reference implementations: scipy.stats.wilcoxon (signed_rank.wilcoxon_p gives its p-value, faster with
+    # ties) and scipy.stats.ttest_rel (Virtanen et al., 2020, SciPy 1.0).
     nonzero = np.any(differences != 0, axis=-1)
     wilcoxon_p = np.full(mean.shape, np.nan)
-    if nonzero.any():
-        wilcoxon_p[nonzero] = stats.wilcoxon(differences[nonzero], axis=-1).pvalue
+    for row in np.flatnonzero(nonzero):
+        wilcoxon_p[row] = signed_rank_p(differences[row])
     with np.errstate(divide="ignore", invalid="ignore"):
         paired_t_p = np.atleast_1d(stats.ttest_rel(values, np.broadcast_to(reference, values.shape), axis=-1).pvalue)
     return [

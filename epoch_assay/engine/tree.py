@@ -15,6 +15,16 @@ and the installed versions of the packages it depends on (``Step.dependencies``:
 scipy, mne, epoch-assay, and scikit-learn or python-picard for the ICA methods that use
 them). So a different input, a different chain of steps, a changed step or an upgraded
 package never reuses an output, even from a cache shared by several installations.
+
+Recordings (:class:`~epoch_assay.engine.recording.ContinuousInput`) go through the same tree,
+built on each pipeline's steps in two-stage order (continuous-stage steps first, in written
+order, then the epochs-stage steps; :func:`two_stage_steps`), with exactly the semantics of
+:func:`~epoch_assay.engine.recording.apply_two_stage`. A continuous-stage node is applied to
+each run of the session; the runs are epoched and concatenated once per continuous-stage node
+that has pipelines ending at it or epochs-stage steps below it, and the epochs-stage subtree
+runs on those epochs. Keys of continuous-stage outputs use the source's SHA-256 and the run
+number in place of the source hash; keys of epochs-stage outputs use the source's SHA-256 and
+the epoching spec.
 """
 
 import hashlib
@@ -27,7 +37,8 @@ from typing import Protocol
 from epoch_assay.engine import provenance
 from epoch_assay.engine.epochs import EpochSet
 from epoch_assay.engine.pipeline import PipelineSpec
-from epoch_assay.engine.provenance import StepProvenanceBase
+from epoch_assay.engine.provenance import Stage, StepProvenanceBase
+from epoch_assay.engine.recording import ContinuousInput, epoch_runs
 from epoch_assay.engine.steps.base import Step
 
 
@@ -87,6 +98,17 @@ class PipelineTree:
             trees.insert(0, PipelineTree(TreeNode((), self.root.pipelines, ())))
         return trees
 
+    def recording_branches(self) -> list["PipelineTree"]:
+        """A two-stage tree split at its root for a recording: one tree per continuous-stage first step,
+        and one with the pipelines that start on the epochs of the recording as it is (epoched once).
+        """
+        continuous = [child for child in self.root.children if child.prefix[-1].stage == Stage.CONTINUOUS]
+        on_epochs = tuple(child for child in self.root.children if child.prefix[-1].stage != Stage.CONTINUOUS)
+        trees = [PipelineTree(TreeNode((), (), (child,))) for child in continuous]
+        if self.root.pipelines or on_epochs:
+            trees.insert(0, PipelineTree(TreeNode((), self.root.pipelines, on_epochs)))
+        return trees
+
 
 @dataclass(frozen=True)
 class LeafOutput:
@@ -117,9 +139,21 @@ def prefix_cache_key(source_sha256: str, prefix: Sequence[Step]) -> str:
     return hashlib.sha256("\n".join((source_sha256, *map(step_fingerprint, prefix))).encode()).hexdigest()
 
 
-def build_tree(pipelines: Sequence[PipelineSpec]) -> PipelineTree:
-    """Arrange ``pipelines`` by shared prefixes; children keep the order their first pipeline has."""
-    return PipelineTree(_build_node((), list(pipelines)))
+def two_stage_steps(pipeline: PipelineSpec) -> tuple[Step, ...]:
+    """The pipeline's steps in the order a recording runs them: continuous-stage steps, then the others,
+    each in written order (as in :func:`~epoch_assay.engine.recording.apply_two_stage`)."""
+    continuous = tuple(step for step in pipeline.steps if step.stage == Stage.CONTINUOUS)
+    return continuous + tuple(step for step in pipeline.steps if step.stage != Stage.CONTINUOUS)
+
+
+def build_tree(pipelines: Sequence[PipelineSpec], *, two_stage: bool = False) -> PipelineTree:
+    """Arrange ``pipelines`` by shared prefixes; children keep the order their first pipeline has.
+
+    With ``two_stage`` the prefixes are those of each pipeline's :func:`two_stage_steps` (the tree
+    that :func:`execute_recording_tree` takes); the leaves keep the pipelines as written.
+    """
+    steps_of = two_stage_steps if two_stage else (lambda pipeline: tuple(pipeline.steps))
+    return PipelineTree(_build_node((), [(steps_of(pipeline), pipeline) for pipeline in pipelines]))
 
 
 def execute_tree(
@@ -133,14 +167,72 @@ def execute_tree(
     yield from _execute_node(tree.root, epochs, (), source_sha256, cache)
 
 
-def _build_node(prefix: tuple[Step, ...], pipelines: list[PipelineSpec]) -> TreeNode:
+def execute_recording_tree(
+    tree: PipelineTree, source: ContinuousInput, source_sha256: str, cache: StepCache | None = None
+) -> Iterator[LeafOutput]:
+    """Apply a two-stage tree (``build_tree(..., two_stage=True)``) to a session, depth-first.
+
+    Each leaf's epochs and records are those ``apply_two_stage`` gives its pipeline: continuous-stage
+    records run by run (stage "continuous", the run number when the session has several runs),
+    then the epochs-stage records. ``source_sha256`` identifies the session (the stored set's SHA-256).
+    """
+    recordings = tuple(run.recording for run in source.runs)
+    yield from _execute_continuous(tree.root, recordings, tuple(() for _ in recordings), source, source_sha256, cache)
+
+
+def run_source_sha256(source_sha256: str, run: int) -> str:
+    """What identifies run ``run`` (1-based) of a session in the keys of its continuous-stage outputs."""
+    return hashlib.sha256(f"{source_sha256}\nrun {run}".encode()).hexdigest()
+
+
+def epoched_source_sha256(source_sha256: str, source: ContinuousInput) -> str:
+    """What identifies a session's epochs in the keys of epochs-stage outputs: the session and its epoching."""
+    epoching = json.dumps(source.epoching.model_dump(mode="json"), sort_keys=True, separators=(",", ":"))
+    return hashlib.sha256(f"{source_sha256}\nepoching {epoching}".encode()).hexdigest()
+
+
+def _execute_continuous(
+    node: TreeNode,
+    recordings: tuple[EpochSet, ...],
+    records_by_run: tuple[tuple[StepProvenanceBase, ...], ...],
+    source: ContinuousInput,
+    source_sha256: str,
+    cache: StepCache | None,
+) -> Iterator[LeafOutput]:
+    continuous = tuple(child for child in node.children if child.prefix[-1].stage == Stage.CONTINUOUS)
+    after_epoching = tuple(child for child in node.children if child.prefix[-1].stage != Stage.CONTINUOUS)
+    if node.pipelines or after_epoching:
+        epochs = epoch_runs([(r, run.events) for r, run in zip(recordings, source.runs, strict=True)], source.epoching)
+        records = tuple(record for run_records in records_by_run for record in run_records)
+        epochs_node = TreeNode(node.prefix, node.pipelines, after_epoching)
+        yield from _execute_node(epochs_node, epochs, records, epoched_source_sha256(source_sha256, source), cache)
+    several = len(recordings) > 1
+    for child in continuous:
+        outputs = [
+            _apply_step(child, recording, run_source_sha256(source_sha256, number), cache)
+            for number, recording in enumerate(recordings, start=1)
+        ]
+        # A copy: the cached record stays as the step made it, whatever run it is reused for.
+        child_records_by_run = tuple(
+            (
+                *run_records,
+                output.record.model_copy(update={"stage": Stage.CONTINUOUS, "run": number if several else None}),
+            )
+            for number, (run_records, output) in enumerate(zip(records_by_run, outputs, strict=True), start=1)
+        )
+        yield from _execute_continuous(
+            child, tuple(output.epochs for output in outputs), child_records_by_run, source, source_sha256, cache
+        )
+
+
+def _build_node(prefix: tuple[Step, ...], pipelines: list[tuple[tuple[Step, ...], PipelineSpec]]) -> TreeNode:
     depth = len(prefix)
-    groups: dict[str, list[PipelineSpec]] = {}
-    for pipeline in pipelines:
-        if len(pipeline.steps) > depth:
-            groups.setdefault(canonical_step_json(pipeline.steps[depth]), []).append(pipeline)
-    children = tuple(_build_node((*prefix, group[0].steps[depth]), group) for group in groups.values())
-    ending = tuple(pipeline for pipeline in pipelines if len(pipeline.steps) == depth)
+    groups: dict[str, list[tuple[tuple[Step, ...], PipelineSpec]]] = {}
+    for steps, pipeline in pipelines:
+        if len(steps) > depth:
+            groups.setdefault(canonical_step_json(steps[depth]), []).append((steps, pipeline))
+    children = tuple(_build_node((*prefix, group[0][0][depth]), group) for group in groups.values())
+    ending = tuple(pipeline for steps, pipeline in pipelines if len(steps) == depth)
     return TreeNode(prefix=prefix, pipelines=ending, children=children)
 
 

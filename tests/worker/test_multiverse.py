@@ -5,10 +5,16 @@ import functools
 import pytest
 
 from epoch_assay.engine.grid import GridSpec, expand_grid
-from epoch_assay.engine.pipeline import PipelineSpec, apply_pipeline
+from epoch_assay.engine.pipeline import apply_pipeline
 from epoch_assay.engine.tree import LeafOutput, build_tree
 from tests.engine.conftest import random_epoch_set
-from worker.execution.multiverse import ExecutionSettings, SourceHandlers, execute_multiverse
+from worker.execution.multiverse import (
+    SMALL_SOURCE_BYTES,
+    ExecutionSettings,
+    SourceHandlers,
+    execute_multiverse,
+    unit_branches,
+)
 
 GRID = GridSpec(
     factors={
@@ -32,16 +38,11 @@ def leaf_entry(leaf: LeafOutput, epochs, source: str, window: int) -> dict:
     return {"pipeline": leaf.pipeline.name, "subject": source, "value": float(leaf.epochs.data[:, :, window].sum())}
 
 
-def alone_entry(pipeline: PipelineSpec, loaded, source: str) -> dict:
-    return {"pipeline": pipeline.name, "subject": source, "alone": True}
-
-
 def handlers(window: int = 10) -> SourceHandlers:
     return SourceHandlers(
         load=load,
         source_sha256=lambda source: source.encode().hex().ljust(64, "0"),
         score_leaf=lambda source: functools.partial(leaf_entry, source=source, window=window),
-        score_alone=lambda source: functools.partial(alone_entry, source=source),
     )
 
 
@@ -59,10 +60,20 @@ def test_entries_equal_each_pipeline_alone_in_run_order(workers):
     assert outcome.results == expected()
 
 
-def test_progress_counts_one_unit_per_epoch_set_and_branch():
+def test_progress_counts_entries_and_a_small_epoch_set_goes_as_one_unit():
     seen = []
     execute_multiverse(PIPELINES, SOURCES, handlers(), ExecutionSettings(workers=1), seen.append)
-    assert seen[-1].done == seen[-1].total == len(SOURCES) * len(build_tree(PIPELINES).branches())
+    # Each source is far below SMALL_SOURCE_BYTES: one unit with all its pipelines.
+    assert [p.done for p in seen] == [len(PIPELINES) * (i + 1) for i in range(len(SOURCES))]
+    assert seen[-1].total == len(SOURCES) * len(PIPELINES)
+
+
+def test_a_large_epoch_set_goes_as_one_unit_per_branch():
+    branches = build_tree(PIPELINES).branches()
+    large = random_epoch_set(n_trials=2, n_channels=2, n_times=SMALL_SOURCE_BYTES // 32 + 1, sfreq=100.0, seed=0)
+    small = load("s0")
+    assert unit_branches(large, branches) == [(branch,) for branch in branches]
+    assert unit_branches(small, branches) == [tuple(branches)]
 
 
 def test_second_run_with_another_scoring_recomputes_no_step(tmp_path):
@@ -73,15 +84,3 @@ def test_second_run_with_another_scoring_recomputes_no_step(tmp_path):
     second = execute_multiverse(PIPELINES, SOURCES, handlers(window=20), settings, lambda _: None)
     assert (second.cache.hits, second.cache.misses) == (steps, 0)
     assert second.results == expected(window=20)
-
-
-def test_inputs_that_are_not_epoch_sets_are_scored_pipeline_by_pipeline():
-    other = SourceHandlers(
-        load=lambda source: {"recording": source},
-        source_sha256=handlers().source_sha256,
-        score_leaf=handlers().score_leaf,
-        score_alone=handlers().score_alone,
-    )
-    outcome = execute_multiverse(PIPELINES, SOURCES, other, ExecutionSettings(workers=1), lambda _: None)
-    assert [(e["pipeline"], e["subject"]) for e in outcome.results] == [(p.name, s) for s in SOURCES for p in PIPELINES]
-    assert all(e["alone"] for e in outcome.results)

@@ -17,7 +17,7 @@ GRID = {
 SCORING = {"conditions": ["a", "b"], "window_s": [0.1, 0.3], "correction": "none"}
 PIPELINES = [point.pipeline for point in expand_grid(GridSpec.model_validate(GRID))]
 STEPS = build_tree(PIPELINES).count_steps() * 4  # 3 steps per epoch set: highpass, baseline after it, baseline alone
-UNITS = len(build_tree(PIPELINES).branches()) * 4
+ENTRIES = len(PIPELINES) * 4
 REFS = [EpochSetRef(id=f"es_{i}", subject=f"sub-{i}", session=None, sha256=f"{i:064x}") for i in range(4)]
 
 
@@ -88,7 +88,7 @@ def test_a_run_with_a_selection_marks_group_and_ranking_exploratory():
     assert grid_run().exploratory is None
 
 
-def test_progress_detail_counts_units_and_gives_an_eta():
+def test_progress_detail_counts_entries_and_gives_an_eta():
     details = []
     execute_run(
         "run_x",
@@ -100,5 +100,6 @@ def test_progress_detail_counts_units_and_gives_an_eta():
         execution=ExecutionSettings(workers=1),
         on_detail=details.append,
     )
-    assert [d.done for d in details] == list(range(1, UNITS + 1))
-    assert details[-1].total == UNITS and details[-1].eta_s == 0.0
+    # Each small epoch set is one unit: progress moves by its pipelines.
+    assert [d.done for d in details] == [len(PIPELINES) * (i + 1) for i in range(4)]
+    assert details[-1].total == ENTRIES and details[-1].eta_s == 0.0

@@ -6,7 +6,11 @@ Processes are started with the "forkserver" method, because the calling worker h
 (heartbeat, webhook delivery) that a forked child would inherit half-way through whatever
 they were doing. The fork server imports the ``preload`` modules once and forks each worker
 from there, so workers do not pay for importing the scientific stack themselves. With one
-worker the units run in the calling process, without pickling.
+worker the units run in the calling process, without pickling. The large input of a
+:class:`SharedInputUnit` (an epoch set, a recording) is pickled once into a file of a folder
+private to the run, and each worker process reads it once and keeps it while consecutive
+units use it, instead of receiving a copy with every unit; the file goes when its last unit
+is collected.
 If ``on_progress`` raises (the job is handed back, or its lease was lost), units not yet
 started are cancelled, the ones running finish, and the exception propagates.
 
@@ -14,15 +18,22 @@ The submission loop (:func:`run_bounded`) is shared with the Dask cluster path
 (``worker.execution.dask_units``), which gives it another :class:`UnitBackend`.
 """
 
+import importlib
 import multiprocessing
 import os
+import pickle
 import select
+import shutil
+import tempfile
 import threading
 import time
 from collections.abc import Callable, Collection, Iterable, Sequence
 from concurrent.futures import FIRST_COMPLETED, Future, ProcessPoolExecutor, wait
-from dataclasses import dataclass
+from dataclasses import dataclass, field
+from pathlib import Path
 from typing import Any, Generic, Protocol, TypeVar
+
+from threadpoolctl import threadpool_limits
 
 Result = TypeVar("Result")
 Handle = TypeVar("Handle")
@@ -32,9 +43,11 @@ PENDING_PER_WORKER = 2
 
 @dataclass(frozen=True)
 class Progress:
-    """Units done out of the total, the time since the first unit started and the time left, in s.
+    """Work done out of the total, the time since the first unit started and the time left, in s.
 
-    ``eta_s`` extrapolates the mean time per unit so far; None before the first unit is done.
+    Work is counted in units, each weighing its ``weight`` (1 unless it says otherwise: a
+    :class:`SharedInputUnit` scoring several pipelines weighs one per pipeline).
+    ``eta_s`` extrapolates the mean time per unit of work so far; None before the first unit is done.
     """
 
     done: int
@@ -53,12 +66,14 @@ class SharedInputUnit(Generic[Result]):
     consecutive units have in common (one epoch set, for its tree branches).
 
     Called with no argument it is an ordinary unit; a Dask cluster gets ``shared`` once for all
-    the units that carry the same object, not once per unit.
+    the units that carry the same object, not once per unit. ``weight`` is its share of the
+    run's work in progress reports.
     """
 
     function: Callable[..., Result]
     shared: Any
     args: tuple[Any, ...] = ()
+    weight: int = 1
 
     def __call__(self) -> Result:
         return self.function(self.shared, *self.args)
@@ -111,17 +126,42 @@ def run_units(
         results = []
         for unit in units:
             results.append(unit())
-            clock.unit_done()
+            clock.unit_done(unit_weight(unit))
         return results
     context = multiprocessing.get_context("forkserver")
     context.set_forkserver_preload(list(preload))
     executor = ProcessPoolExecutor(
-        max_workers=workers, mp_context=context, initializer=exit_with, initargs=(os.getpid(),)
+        max_workers=workers, mp_context=context, initializer=start_pool_process, initargs=(os.getpid(),)
     )
+    folder = Path(tempfile.mkdtemp(prefix="epoch-assay-inputs-"))
     try:
-        return run_bounded(units, _PoolBackend(executor, PENDING_PER_WORKER * workers), clock)
+        return run_bounded(units, _PoolBackend(executor, PENDING_PER_WORKER * workers, folder), clock)
     finally:
         executor.shutdown(wait=True, cancel_futures=True)
+        shutil.rmtree(folder, ignore_errors=True)
+
+
+def unit_weight(unit: Unit[Any]) -> int:
+    """The unit's share of the work, for progress (1 unless the unit has a ``weight``)."""
+    return getattr(unit, "weight", 1)
+
+
+def start_pool_process(owner_pid: int) -> None:
+    """Set up a pool process: one BLAS thread (see :func:`one_blas_thread`), and exit with the owner."""
+    one_blas_thread()
+    exit_with(owner_pid)
+
+
+def one_blas_thread() -> None:
+    """Limit the BLAS and OpenMP libraries loaded in this process to one thread each.
+
+    Pool processes already run one per core; a BLAS that also starts a thread per core in each of
+    them puts cores × cores threads on the cores, which then wait on each other (OpenBLAS spins
+    while it waits). Set once per pool process, for its whole life, after loading NumPy, since a limit
+    applies to the libraries loaded when it is set.
+    """
+    importlib.import_module("numpy")
+    threadpool_limits(limits=1)
 
 
 def exit_with(owner_pid: int) -> None:
@@ -163,8 +203,8 @@ class ProgressClock:
         self._started = time.monotonic()
         self._done = 0
 
-    def unit_done(self) -> None:
-        self._done += 1
+    def unit_done(self, weight: int = 1) -> None:
+        self._done += weight
         elapsed = time.monotonic() - self._started
         eta = elapsed / self._done * max(self._total - self._done, 0)
         self._on_progress(Progress(done=self._done, total=self._total, elapsed_s=elapsed, eta_s=eta))
@@ -177,6 +217,7 @@ def run_bounded(
     and return the results in unit order; on any exception the pending units are cancelled."""
     results: dict[int, Result] = {}
     pending: dict[Handle, int] = {}
+    weights: dict[int, int] = {}
     iterator = enumerate(units)
     try:
         exhausted = False
@@ -187,32 +228,95 @@ def run_bounded(
                     exhausted = True
                     break
                 index, unit = item
+                weights[index] = unit_weight(unit)
                 pending[backend.submit(unit, index)] = index
             if not pending:
                 break
             for handle in backend.wait_first(list(pending)):
-                results[pending.pop(handle)] = backend.collect(handle)
-                clock.unit_done()
+                index = pending.pop(handle)
+                results[index] = backend.collect(handle)
+                clock.unit_done(weights[index])
     finally:
         if pending:
             backend.cancel(list(pending))
     return [results[index] for index in range(len(results))]
 
 
+# In a pool process: the input last read from a spooled file, by path (one at a time).
+_READ_INPUT: dict[str, Any] = {}
+
+
+@dataclass(frozen=True)
+class SpooledInputUnit(Generic[Result]):
+    """A :class:`SharedInputUnit` whose input waits in a pickle file, read once per process."""
+
+    function: Callable[..., Result]
+    path: str
+    args: tuple[Any, ...]
+    weight: int
+
+    def __call__(self) -> Result:
+        if self.path not in _READ_INPUT:
+            _READ_INPUT.clear()
+            with open(self.path, "rb") as stream:
+                _READ_INPUT[self.path] = pickle.load(stream)
+        return self.function(_READ_INPUT[self.path], *self.args)
+
+
+@dataclass
+class _Spooled:
+    value: Any
+    path: Path
+    users: int = 0
+
+
 @dataclass
 class _PoolBackend(Generic[Result]):
     executor: ProcessPoolExecutor
     capacity: int
+    folder: Path
+    _spooled: list[_Spooled] = field(default_factory=list)
+    _input_of: dict[Future, _Spooled] = field(default_factory=dict)
+    _written: int = 0
 
     def submit(self, unit: Unit[Result], index: int) -> Future[Result]:
-        return self.executor.submit(unit)
+        if not isinstance(unit, SharedInputUnit):
+            return self.executor.submit(unit)
+        spooled = self._spool(unit.shared)
+        future = self.executor.submit(SpooledInputUnit(unit.function, str(spooled.path), unit.args, unit.weight))
+        spooled.users += 1
+        self._input_of[future] = spooled
+        return future
 
     def wait_first(self, pending: Collection[Future[Result]]) -> Iterable[Future[Result]]:
         return wait(pending, return_when=FIRST_COMPLETED).done
 
     def collect(self, handle: Future[Result]) -> Result:
+        spooled = self._input_of.pop(handle, None)
+        if spooled is not None:
+            spooled.users -= 1
+            self._forget_unused()
         return handle.result()
 
     def cancel(self, pending: Collection[Future]) -> None:
         for future in pending:
             future.cancel()
+
+    def _spool(self, value: Any) -> _Spooled:
+        """The file of ``value``: the latest one when units of the same input follow each other."""
+        if self._spooled and self._spooled[-1].value is value:
+            return self._spooled[-1]
+        self._written += 1
+        path = self.folder / f"input-{self._written}.pickle"
+        with open(path, "wb") as stream:
+            pickle.dump(value, stream, protocol=pickle.HIGHEST_PROTOCOL)
+        self._spooled.append(_Spooled(value, path))
+        self._forget_unused()
+        return self._spooled[-1]
+
+    def _forget_unused(self) -> None:
+        """Delete the files no pending unit reads, but the latest, whose next units may still come."""
+        for spooled in self._spooled[:-1]:
+            if spooled.users == 0:
+                spooled.path.unlink(missing_ok=True)
+        self._spooled = [spooled for spooled in self._spooled[:-1] if spooled.users > 0] + self._spooled[-1:]
