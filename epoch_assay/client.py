@@ -36,10 +36,10 @@ def add_client_parser(commands: argparse._SubParsersAction) -> None:
         "upload",
         help="upload an epoch set (NPZ, MNE -epo.fif, JSON) or, with --epoching, the runs of a recording session",
         description="An epoch-set file goes to the study's epoch sets. With --epoching the files are a "
-        "recording session (EDF/BDF, MNE raw FIF, BrainVision .vhdr with its .eeg and .vmrk; several "
+        "recording session (EDF/BDF, MNE raw FIF, VHDR .vhdr with its .eeg and .vmrk; several "
         "runs in order) and go to its recordings; see docs/inputs.md.",
     )
-    upload.add_argument("file", type=Path, nargs="+", help="the file(s); a BrainVision set is all three files")
+    upload.add_argument("file", type=Path, nargs="+", help="the file(s); a VHDR set is all three files")
     upload.add_argument("--study", required=True, help="study code")
     upload.add_argument("--subject", required=True, help="subject id, e.g. sub-01")
     upload.add_argument("--session", help="session label, e.g. ses-01")

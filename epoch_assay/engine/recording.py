@@ -27,7 +27,6 @@ from pydantic import BaseModel, ConfigDict, Field, field_validator, model_valida
 from epoch_assay.engine.epochs import EpochSet
 from epoch_assay.engine.errors import EpochSetFormatError, EpochSetTooLargeError
 from epoch_assay.engine.io.bids_sidecars import read_channels_tsv, read_coordinate_units, read_electrodes_tsv
-from epoch_assay.engine.io.brainvision import read_brainvision
 from epoch_assay.engine.io.channels import checked_positions, merged_positions, positions_from_montage
 from epoch_assay.engine.io.detect import RECORDING_FORMATS, FileFormat, detect_format
 from epoch_assay.engine.io.edf import read_continuous
@@ -44,6 +43,7 @@ from epoch_assay.engine.io.triggers import (
     default_trigger_mask,
     trigger_events,
 )
+from epoch_assay.engine.io.vhdr_set import read_vhdr_set
 from epoch_assay.engine.pipeline import PipelineSpec, apply_pipeline
 from epoch_assay.engine.provenance import Stage, StepProvenanceBase
 
@@ -389,9 +389,9 @@ def read_sidecars(session: SessionFiles) -> SessionSidecars:
 
 def read_run_file(run: RunFiles, *, max_array_bytes: int) -> ContinuousFile:
     """Read one run's recording, whatever its format."""
-    if run.file_format == FileFormat.BRAINVISION:
-        with tempfile.TemporaryDirectory(prefix="epoch-assay-brainvision-") as folder:
-            return read_brainvision(
+    if run.file_format == FileFormat.VHDR_SET:
+        with tempfile.TemporaryDirectory(prefix="epoch-assay-vhdr-") as folder:
+            return read_vhdr_set(
                 run.files[HEADER],
                 run.files[DATA],
                 run.files.get(MARKERS),

@@ -1,8 +1,8 @@
-"""Continuous recordings (EDF/EDF+, BDF/BDF+, BrainVision, MNE raw FIF) with events, stored as epoch sets
+"""Continuous recordings (EDF/EDF+, BDF/BDF+, VHDR, MNE raw FIF) with events, stored as epoch sets
 that the worker epochs; several runs of one session in one post.
 
 The multipart body (see docs/inputs.md): repeated ``file`` parts (each recording; a
-BrainVision header with the data and marker files it names), optional repeated ``events``
+VHDR header with the data and marker files it names), optional repeated ``events``
 parts (one events.tsv per run, in run order), ``epoching`` (JSON), optional ``channels`` (the
 JSON channel spec and/or a channels.tsv file part), optional ``electrodes`` (an
 electrodes.tsv file part) with ``coordsystem`` (its coordsystem.json file part).
@@ -66,7 +66,7 @@ class RecordingRunOut(BaseModel):
     """One run of a session as read: its format, where its events came from, and what was found."""
 
     run: int = Field(description="1-based, in the order the recordings were posted.")
-    file_format: str = Field(description='"edf", "bdf", "vhdr" (BrainVision) or "fif" (MNE raw), read from content.')
+    file_format: str = Field(description='"edf", "bdf", "vhdr" (VHDR) or "fif" (MNE raw), read from content.')
     events_from: str = Field(description='"events.tsv", "annotations" or "channel:<name>".')
     n_trials: int = Field(description="Epochs this run gives.")
     events_found: dict[str, int] = Field(description="Events per condition in this run.")
@@ -215,7 +215,7 @@ def upload_recording(
     file: Annotated[
         list[UploadFile],
         File(
-            description="Each run's recording: EDF/EDF+, BDF/BDF+, MNE raw FIF, or a BrainVision header with the "
+            description="Each run's recording: EDF/EDF+, BDF/BDF+, MNE raw FIF, or a VHDR header with the "
             "data and marker files it names (sent under those names). Repeat for several runs, in order."
         ),
     ],

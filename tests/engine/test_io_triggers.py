@@ -13,8 +13,8 @@ from tests.support.recording_files import known_recording
 from tests.support.session_files import bdf_bytes, event_codes, status_words
 
 LIMIT = 1 << 28
-# Bits 16-23 of a BDF Status word report the amplifier's state, not triggers (BioSemi, "Trigger signals",
-# biosemi.com/faq/trigger_signals.htm, as cited by MNE's read_raw_bdf documentation). Bit 16 ("new
+# Bits 16-23 of a BDF Status word report the amplifier's state, not triggers (the BDF format's maker, "Trigger signals",
+# bdf.com/faq/trigger_signals.htm, as cited by MNE's read_raw_bdf documentation). Bit 16 ("new
 # epoch") is set here: MNE's reader keeps the low 17 bits of a stim channel, so it reaches the mask.
 AMPLIFIER_STATE_BITS = 1 << 16
 EPOCHING = {"tmin": -0.2, "tmax": 0.6, "conditions": {"a": ["1"], "b": ["2"]}}

@@ -1,12 +1,12 @@
 """Recordings written by writers the project did not write, for the inputs of issue 16.
 
-* BrainVision sets by pybv (Appelhoff, Stenner et al., pybv, https://pypi.org/project/pybv/),
-  the maintained BrainVision writer.
+* VHDR sets by pybv (Appelhoff, Stenner et al., pybv, https://pypi.org/project/pybv/),
+  the maintained VHDR writer.
 * Raw FIF files by MNE-Python (``mne.io.RawArray.save``; Gramfort et al., 2013).
 * BDF files with a ``Status`` trigger channel, written byte by byte to the published layout:
-  the EDF header (Kemp et al., 1992, Table 1) with BioSemi's BDF changes (BioSemi, "BDF file
-  format", biosemi.com/faq/file_format.htm; recalled from memory): the version field is byte
-  255 then "BIOSEMI", the reserved field says "24BIT", samples are 24-bit little-endian
+  the EDF header (Kemp et al., 1992, Table 1) with the BDF format's maker's BDF changes (the BDF format's maker, "BDF file
+  format", bdf.com/faq/file_format.htm; recalled from memory): the version field is byte
+  255 then "BDF", the reserved field says "24BIT", samples are 24-bit little-endian
   two's complement, and the trigger codes sit in the low 16 bits of the ``Status`` signal.
 """
 
@@ -34,7 +34,7 @@ def event_codes(known: KnownRecording) -> np.ndarray:
 
 
 def write_brainvision(known: KnownRecording, folder: Path, name: str = "rec") -> dict[str, Path]:
-    """The EEG channels of ``known`` as a pybv BrainVision set, events as markers "Stimulus/S  1" and "S  2"."""
+    """The EEG channels of ``known`` as a pybv VHDR set, events as markers "Stimulus/S  1" and "S  2"."""
     events = np.column_stack([event_samples(known), event_codes(known)])
     pybv.write_brainvision(
         data=known.signal_v[: len(EEG_NAMES)],  # pybv takes volts and stores the given unit

@@ -16,12 +16,12 @@ class FileFormat(StrEnum):
     JSON = "json"
     EDF = "edf"
     BDF = "bdf"
-    BRAINVISION = "vhdr"
-    BRAINVISION_MARKERS = "vmrk"
+    VHDR_SET = "vhdr"
+    VHDR_MARKERS = "vmrk"
 
 
 EPOCH_FILE_FORMATS = (FileFormat.NPZ, FileFormat.FIF, FileFormat.JSON)
-RECORDING_FORMATS = (FileFormat.EDF, FileFormat.BDF, FileFormat.FIF, FileFormat.BRAINVISION)
+RECORDING_FORMATS = (FileFormat.EDF, FileFormat.BDF, FileFormat.FIF, FileFormat.VHDR_SET)
 
 # Zip local-file header and empty-archive end record (PKWARE APPNOTE 4.3.7, 4.3.16).
 _ZIP_MAGICS = (b"PK\x03\x04", b"PK\x05\x06")
@@ -32,10 +32,10 @@ _FIF_MAGIC = b"\x00\x00\x00\x64\x00\x00\x00\x1f\x00\x00\x00\x14"
 _EDF_MAGIC = b"0       "
 _BDF_MAGIC = b"\xff\x42\x49\x4f\x53\x45\x4d\x49"
 _JSON_OPENERS = (b"{",)
-# The first line of a BrainVision header or marker file (Brain Products, BrainVision Core Data
+# The first line of a VHDR header or marker file (Brain Products, VHDR Core Data
 # Format 1.0) names the vendor and the file's role, e.g. "Brain Vision Data Exchange Header File
 # Version 1.0"; writers vary the middle words ("Core", "V-Amp"), so only the ends are compared.
-_BRAINVISION_VENDORS = (b"Brain Vision", b"BrainVision")
+_VHDR_VENDORS = (b"Brain Vision", b"VHDR")
 _UTF8_BOM = b"\xef\xbb\xbf"
 _HEAD_BYTES = 64
 
@@ -53,11 +53,11 @@ def sniff(head: bytes) -> FileFormat | None:
     if head.lstrip().startswith(_JSON_OPENERS):
         return FileFormat.JSON
     first_line = head.removeprefix(_UTF8_BOM).split(b"\n", 1)[0]
-    if first_line.startswith(_BRAINVISION_VENDORS):
+    if first_line.startswith(_VHDR_VENDORS):
         if b"Header File" in first_line:
-            return FileFormat.BRAINVISION
+            return FileFormat.VHDR_SET
         if b"Marker File" in first_line:
-            return FileFormat.BRAINVISION_MARKERS
+            return FileFormat.VHDR_MARKERS
     return None
 
 

@@ -2,7 +2,7 @@
 
 A post carries its files as repeated ``file`` parts and, when events come from events.tsv
 files, as many ``events`` parts. Recordings are told apart by content: an EDF, BDF or raw
-FIF file is a run of its own; a BrainVision header is a run together with the data and marker
+FIF file is a run of its own; a VHDR header is a run together with the data and marker
 files it names (``DataFile=``, ``MarkerFile=``), found among the other parts by the name the
 client gave them (only the last path component of that name is compared; it is never used
 to store or open anything). Runs keep the order of their recording (or header) parts; the
@@ -13,10 +13,10 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from epoch_assay.engine.errors import EpochSetFormatError
-from epoch_assay.engine.io.brainvision import header_references
 from epoch_assay.engine.io.detect import RECORDING_FORMATS, FileFormat, detect_format, sniff
+from epoch_assay.engine.io.vhdr_set import header_references
 
-# Roles of a run's files: a single-file recording, or a BrainVision header with its data and markers.
+# Roles of a run's files: a single-file recording, or a VHDR header with its data and markers.
 RECORDING, HEADER, DATA, MARKERS = "recording", "header", "data", "markers"
 MAX_RUNS = 64
 _SNIFF_BYTES = 64
@@ -60,7 +60,7 @@ def group_runs(parts: list[UploadedPart], events: list[Path]) -> tuple[RunFiles,
     claimed: dict[int, str] = {}
     header_files: dict[int, dict[str, Path]] = {}
     for index, (part, found) in enumerate(zip(parts, formats, strict=True)):
-        if found == FileFormat.BRAINVISION:
+        if found == FileFormat.VHDR_SET:
             references = header_references(part.path.read_bytes())
             header_files[index] = {HEADER: part.path}
             for role, name in ((DATA, references.data_file), (MARKERS, references.marker_file)):
@@ -71,7 +71,7 @@ def group_runs(parts: list[UploadedPart], events: list[Path]) -> tuple[RunFiles,
     runs = []
     for index, (part, found) in enumerate(zip(parts, formats, strict=True)):
         if index in header_files:
-            runs.append(RunFiles(file_format=FileFormat.BRAINVISION, files=header_files[index]))
+            runs.append(RunFiles(file_format=FileFormat.VHDR_SET, files=header_files[index]))
             claimed[index] = part.label
         elif found in RECORDING_FORMATS and index not in claimed:
             runs.append(RunFiles(file_format=found, files={RECORDING: part.path}))
@@ -81,8 +81,8 @@ def group_runs(parts: list[UploadedPart], events: list[Path]) -> tuple[RunFiles,
         raise EpochSetFormatError(
             "file",
             f"file(s) {', '.join(repr(name) for name in unclaimed)} match none of the recording formats read here "
-            "(EDF, BDF, MNE raw FIF, BrainVision header), and no uploaded BrainVision header names them",
-            "Upload each recording as written by its program, unchanged; with a BrainVision header, also the data "
+            "(EDF, BDF, MNE raw FIF, VHDR header), and no uploaded VHDR header names them",
+            "Upload each recording as written by its program, unchanged; with a VHDR header, also the data "
             "and marker files it names, under those names (see docs/inputs.md)",
         )
     if not runs:
@@ -116,7 +116,7 @@ def _claim(parts: list[UploadedPart], name: str, header: str, claimed: dict[int,
     if not matches:
         raise EpochSetFormatError(
             "file",
-            f"the BrainVision header {header!r} names file {name!r}, which was not sent (the files sent are {sent})",
+            f"the VHDR header {header!r} names file {name!r}, which was not sent (the files sent are {sent})",
             f"Send {name!r} as a 'file' part under that name, or correct the header's reference",
         )
     if len(matches) > 1:
@@ -126,7 +126,7 @@ def _claim(parts: list[UploadedPart], name: str, header: str, claimed: dict[int,
     if matches[0] in claimed:
         raise EpochSetFormatError(
             "file",
-            f"file {name!r} is named by both BrainVision headers {claimed[matches[0]]!r} and {header!r}",
+            f"file {name!r} is named by both VHDR headers {claimed[matches[0]]!r} and {header!r}",
             "Give each run's data and marker files their own names",
         )
     return matches[0]

@@ -11,9 +11,9 @@ shortest_event=1, initial_event=False)`` (MNE-Python, Gramfort et al., 2013; mas
 
 The default mask depends on the file: a BDF ``Status`` channel is a 24-bit word whose low 16
 bits are the trigger inputs and whose high 8 bits report the amplifier's state (new epoch,
-speed mode, CMS in range, battery low) — BioSemi, "Trigger signals"
-(biosemi.com/faq/trigger_signals.htm, cited by MNE's ``read_raw_bdf`` documentation) and
-BioSemi's BDF format description — so BDF files are masked to ``0xFFFF``; other files keep
+speed mode, CMS in range, battery low) — the BDF format's maker, "Trigger signals"
+(bdf.com/faq/trigger_signals.htm, cited by MNE's ``read_raw_bdf`` documentation) and
+the BDF format's maker's BDF format description — so BDF files are masked to ``0xFFFF``; other files keep
 every bit. (MNE's EDF/BDF reader already drops bits 17-23 of a stim channel, keeping the
 16 trigger bits and the "new epoch" bit 16; the mask removes that one too.) Codes are masked
 as the bits stored, not as their absolute value.

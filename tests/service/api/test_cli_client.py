@@ -75,7 +75,7 @@ def test_a_refused_request_exits_non_zero_with_the_servers_detail(cli):
     assert "404" in finished.stderr and "no run with id" in finished.stderr
 
 
-def test_upload_sends_a_brainvision_set_and_events_per_run_as_one_recording_session(cli, study, tmp_path):
+def test_upload_sends_a_vhdr_set_and_events_per_run_as_one_recording_session(cli, study, tmp_path):
     files = write_brainvision(known_recording(seed=92), tmp_path)
     epoching = {"tmin": -0.2, "tmax": 0.6, "conditions": {"a": ["Stimulus/S  1"], "b": ["Stimulus/S  2"]}}
     finished = cli(

@@ -1,4 +1,4 @@
-"""Recordings as labs have them, through a real server and worker: BrainVision, raw FIF, BDF Status
+"""Recordings as labs have them, through a real server and worker: VHDR, raw FIF, BDF Status
 triggers, BIDS sidecars, renamed channels and several runs in one post."""
 
 import json
@@ -14,7 +14,7 @@ from tests.support.recording_files import events_tsv, known_recording, mne_epoch
 from tests.support.session_files import bdf_bytes, status_words, write_brainvision, write_raw_fif
 
 EPOCHING = {"tmin": -0.2, "tmax": 0.6, "conditions": {"a": ["1"], "b": ["2"]}}
-BRAINVISION_EPOCHING = EPOCHING | {"conditions": {"a": ["Stimulus/S  1"], "b": ["Stimulus/S  2"]}}
+VHDR_EPOCHING = EPOCHING | {"conditions": {"a": ["Stimulus/S  1"], "b": ["Stimulus/S  2"]}}
 ANNOTATION_EPOCHING = EPOCHING | {"conditions": {"a": ["a"], "b": ["b"]}}
 
 
@@ -49,10 +49,10 @@ def _scored_t(client, study, epoch_set_id: str) -> np.ndarray:
     return np.array([channel["statistic"] for channel in entry["channels"]])
 
 
-def test_a_pybv_brainvision_set_scores_as_mne_reads_and_epochs_it(client, study, tmp_path):
+def test_a_pybv_vhdr_set_scores_as_mne_reads_and_epochs_it(client, study, tmp_path):
     files = write_brainvision(known_recording(seed=51, effect_uv=8.0), tmp_path)
     parts = [("file", path.name, path.read_bytes()) for path in files.values()]
-    answer = post_session(client, study, parts, BRAINVISION_EPOCHING)
+    answer = post_session(client, study, parts, VHDR_EPOCHING)
     assert answer.status_code == 201, answer.text
     assert answer.json()["runs"][0] | {"events_found": None} == {
         "run": 1,
@@ -139,7 +139,7 @@ def test_sidecars_and_a_rename_map_are_applied_and_reported(client, study, tmp_p
         ("electrodes", "electrodes.tsv", electrodes),
         ("coordsystem", "coordsystem.json", coordsystem),
     ]
-    answer = post_session(client, study, files, BRAINVISION_EPOCHING, channels=json.dumps({"rename": {"Pz": "POz"}}))
+    answer = post_session(client, study, files, VHDR_EPOCHING, channels=json.dumps({"rename": {"Pz": "POz"}}))
     assert answer.status_code == 201, answer.text
     assert answer.json()["sidecars"] == ["channels.tsv", "electrodes.tsv", "coordsystem.json"]
     document = run_and_wait(
@@ -162,16 +162,16 @@ def _bad_inputs(tmp_path) -> list[tuple[str, list, dict, dict, str]]:
     edf = recording_bytes(known_recording(seed=59), "edf")
     return [
         (
-            "a missing member of a BrainVision set",
+            "a missing member of a VHDR set",
             [("file", n, bv[n]) for n in ("rec.vhdr", "rec.vmrk")],
-            BRAINVISION_EPOCHING,
+            VHDR_EPOCHING,
             {},
             "'rec.eeg', which was not sent",
         ),
         (
             "a header pointing elsewhere",
             [("file", "rec.vhdr", elsewhere), ("file", "rec.eeg", bv["rec.eeg"])],
-            BRAINVISION_EPOCHING,
+            VHDR_EPOCHING,
             {},
             "points outside",
         ),
@@ -223,7 +223,7 @@ def test_a_bad_session_input_is_refused_with_422_saying_what_to_fix_and_no_serve
 def test_a_channel_spec_sent_as_a_json_file_part_is_read_as_the_spec(client, study, tmp_path):
     spec = json.dumps({"rename": {"Pz": "POz"}, "types": {"Fz": "eog"}}).encode()
     files = [*_brainvision_parts(tmp_path, 60), ("channels", "channels.json", spec)]
-    answer = post_session(client, study, files, BRAINVISION_EPOCHING)
+    answer = post_session(client, study, files, VHDR_EPOCHING)
     assert answer.status_code == 201, answer.text
     assert answer.json()["ch_names"] == ["Fz", "Cz", "POz"] and answer.json()["sidecars"] == []
 

@@ -1,13 +1,13 @@
-"""BrainVision sets written by pybv, read as MNE reads them; headers that point elsewhere are refused."""
+"""VHDR sets written by pybv, read as MNE reads them; headers that point elsewhere are refused."""
 
 import mne
 import numpy as np
 import pytest
 
 from epoch_assay.engine.errors import EpochSetFormatError
-from epoch_assay.engine.io.brainvision import header_references
 from epoch_assay.engine.io.detect import FileFormat, sniff
 from epoch_assay.engine.io.session_files import SessionFiles, UploadedPart, group_runs
+from epoch_assay.engine.io.vhdr_set import header_references
 from epoch_assay.engine.recording import ChannelSpec, EpochingSpec, epoch_runs, load_session
 from tests.support.recording_files import known_recording
 from tests.support.session_files import write_brainvision
@@ -39,7 +39,7 @@ def test_a_pybv_set_gives_the_epochs_mne_gives_from_the_same_files(tmp_path):
 def test_the_three_files_are_found_by_the_names_the_header_gives_in_any_order(tmp_path):
     files = write_brainvision(known_recording(seed=12), tmp_path)
     (run,) = group_runs([UploadedPart(files[key], files[key].name) for key in ("eeg", "vmrk", "vhdr")], [])
-    assert run.file_format == FileFormat.BRAINVISION
+    assert run.file_format == FileFormat.VHDR_SET
     assert run.files == {"header": files["vhdr"], "data": files["eeg"], "markers": files["vmrk"]}
 
 
@@ -67,5 +67,5 @@ def test_a_marker_file_no_header_names_is_refused(tmp_path):
 
 def test_header_and_marker_files_are_told_apart_by_their_first_line(tmp_path):
     files = write_brainvision(known_recording(seed=16), tmp_path)
-    assert sniff(files["vhdr"].read_bytes()[:64]) == FileFormat.BRAINVISION
-    assert sniff(files["vmrk"].read_bytes()[:64]) == FileFormat.BRAINVISION_MARKERS
+    assert sniff(files["vhdr"].read_bytes()[:64]) == FileFormat.VHDR_SET
+    assert sniff(files["vmrk"].read_bytes()[:64]) == FileFormat.VHDR_MARKERS

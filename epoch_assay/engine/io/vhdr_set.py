@@ -1,5 +1,5 @@
-"""BrainVision recordings: a header (``.vhdr``), a data file and a marker file (Brain Products,
-BrainVision Core Data Format 1.0; one of the EEG formats the BIDS specification names).
+"""VHDR recordings: a header (``.vhdr``), a data file and a marker file (Brain Products,
+VHDR Core Data Format 1.0; one of the EEG formats the BIDS specification names).
 
 The header names its data and marker files (``DataFile=`` and ``MarkerFile=`` in its
 ``[Common Infos]`` section). Those names are only ever compared with the names the client
@@ -27,12 +27,12 @@ from epoch_assay.engine.io.raw_mne import ContinuousFile, continuous_from_raw, l
 HEADER_NAME, DATA_NAME, MARKERS_NAME = "recording.vhdr", "recording.eeg", "recording.vmrk"
 MAX_REFERENCE_CHARS = 255
 _REFERENCE = re.compile(rb"^(DataFile|MarkerFile)=([^\r\n]*)", re.MULTILINE)
-_WRITE_AGAIN = "Export the recording again as BrainVision and upload its .vhdr, .eeg and .vmrk files unchanged"
+_WRITE_AGAIN = "Export the recording again as VHDR and upload its .vhdr, .eeg and .vmrk files unchanged"
 
 
 @dataclass(frozen=True)
 class HeaderReferences:
-    """The file names a BrainVision header refers to; ``marker_file`` is None when it names none."""
+    """The file names a VHDR header refers to; ``marker_file`` is None when it names none."""
 
     data_file: str
     marker_file: str | None
@@ -45,9 +45,7 @@ def header_references(header: bytes) -> HeaderReferences:
         name = value.decode("utf-8", errors="replace").strip()
         found.setdefault(key.decode(), name)
     if not found.get("DataFile"):
-        raise EpochSetFormatError(
-            "file", "the BrainVision header has no DataFile= line naming its data file", _WRITE_AGAIN
-        )
+        raise EpochSetFormatError("file", "the VHDR header has no DataFile= line naming its data file", _WRITE_AGAIN)
     for key, name in found.items():
         _check_bare_name(key, name)
     return HeaderReferences(data_file=found["DataFile"], marker_file=found.get("MarkerFile") or None)
@@ -57,15 +55,15 @@ def _check_bare_name(key: str, name: str) -> None:
     if "/" in name or "\\" in name or name in (".", "..") or "\x00" in name or len(name) > MAX_REFERENCE_CHARS:
         raise EpochSetFormatError(
             "file",
-            f"the BrainVision header's {key}= is {name[:80]!r}, which points outside the set of uploaded files",
+            f"the VHDR header's {key}= is {name[:80]!r}, which points outside the set of uploaded files",
             f"Write {key}= as the bare name of the uploaded file (no folders, no '..'), or export the set again",
         )
 
 
-def read_brainvision(
+def read_vhdr_set(
     header: Path, data: Path, markers: Path | None, folder: Path, *, max_array_bytes: int
 ) -> ContinuousFile:
-    """Read a BrainVision set from its three files, placed in ``folder`` (private, empty) under our own names.
+    """Read a VHDR set from its three files, placed in ``folder`` (private, empty) under our own names.
 
     The recording's data are in V, shape (1, n_channels, n_samples); its markers are its annotations.
     """
@@ -77,12 +75,10 @@ def read_brainvision(
     if markers is not None:
         shutil.copyfile(markers, folder / MARKERS_NAME)
     # The files are untrusted and MNE's parser raises many types on damaged input (value, key,
-    # index, configparser, OS errors...): each means "not a readable BrainVision set".
+    # index, configparser, OS errors...): each means "not a readable VHDR set".
     try:
         raw = mne.io.read_raw_brainvision(folder / HEADER_NAME, preload=False, verbose="error")
     except Exception:
-        raise EpochSetFormatError("file", "MNE cannot read the BrainVision header or markers", _WRITE_AGAIN) from None
-    load_within(
-        raw, max_array_bytes, "the BrainVision data file is shorter or other than its header declares", _WRITE_AGAIN
-    )
-    return continuous_from_raw(raw, FileFormat.BRAINVISION)
+        raise EpochSetFormatError("file", "MNE cannot read the VHDR header or markers", _WRITE_AGAIN) from None
+    load_within(raw, max_array_bytes, "the VHDR data file is shorter or other than its header declares", _WRITE_AGAIN)
+    return continuous_from_raw(raw, FileFormat.VHDR_SET)
