@@ -11,10 +11,13 @@ from tests.service.api.helpers import upload, without_timing
 from tests.support.epoch_files import npz_bytes, small_epochs
 from tests.support.live import LOOPBACK_NETWORK, LiveService, start_service, stop, wait_for_run
 from tests.support.receiver import Receiver
+from worker.execution.multiverse import SMALL_SOURCE_BYTES
 
 LEASE_SECONDS = "3"
 # Slow on purpose (14 units per epoch set, each 40,000 resamples: seconds in all), so a worker can be stopped
-# after its first unit is reported (heartbeats come every 0.5 s here) and well before its last.
+# after its first unit is reported (heartbeats come every 0.5 s here) and well before its last. The epoch sets
+# are above the worker's small-source size (``SMALL_SOURCE_BYTES``), so each pipeline is a unit of its own and
+# progress moves in fourteen steps rather than one.
 SLOW_SCORING = {
     "conditions": ["a", "b"],
     "window_s": [0.3, 0.5],
@@ -60,8 +63,10 @@ def _slow_run(http, study: str, epoch_sets: list[str]) -> str:
 
 def _study_with_epoch_sets(http, code: str, seeds: tuple[int, ...]) -> list[str]:
     assert http.post("/v1/studies", json={"code": code, "title": "faults"}).status_code == 201
+    sets = [small_epochs(seed=seed, n_per_condition=50, sfreq=1000.0) for seed in seeds]
+    assert all(epochs.data.nbytes > SMALL_SOURCE_BYTES for epochs in sets)
     return [
-        upload(http, code, npz_bytes(small_epochs(seed=seed)), subject=f"sub-{seed}").json()["id"] for seed in seeds
+        upload(http, code, npz_bytes(epochs), subject=f"sub-{seed}").json()["id"] for seed, epochs in zip(seeds, sets)
     ]
 
 
