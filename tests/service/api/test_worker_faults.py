@@ -66,7 +66,8 @@ def _study_with_epoch_sets(http, code: str, seeds: tuple[int, ...]) -> list[str]
     sets = [small_epochs(seed=seed, n_per_condition=50, sfreq=1000.0) for seed in seeds]
     assert all(epochs.data.nbytes > SMALL_SOURCE_BYTES for epochs in sets)
     return [
-        upload(http, code, npz_bytes(epochs), subject=f"sub-{seed}").json()["id"] for seed, epochs in zip(seeds, sets)
+        upload(http, code, npz_bytes(epochs), subject=f"sub-{seed}").json()["id"]
+        for seed, epochs in zip(seeds, sets, strict=True)
     ]
 
 
