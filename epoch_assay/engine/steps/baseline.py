@@ -8,6 +8,7 @@ from pydantic import Field, model_validator
 from epoch_assay.engine.epochs import EpochSet, EpochSetMeta
 from epoch_assay.engine.provenance import StepProvenanceBase
 from epoch_assay.engine.steps.base import Step
+from epoch_assay.engine.steps.channel_data import channel_rows, subtract_on_channels
 from epoch_assay.engine.windows import check_window_in_epoch, window_mask
 
 BASELINED_CHANNEL_TYPES = ("eeg", "eog")
@@ -37,7 +38,7 @@ class Baseline(Step):
 
     def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepProvenanceBase]:
         picks = epochs.picks(BASELINED_CHANNEL_TYPES, exclude_bads=False)
-        in_window = window_mask(epochs.times, self.window_s)
-        data = epochs.data.astype(np.float64, copy=True)
-        data[:, picks] -= data[:, picks][:, :, in_window].mean(axis=-1, keepdims=True)
-        return epochs.with_changes(data=data), self.record()
+        in_window = np.flatnonzero(window_mask(epochs.times, self.window_s))
+        window = slice(in_window[0], in_window[-1] + 1)
+        means = channel_rows(epochs.data, picks)[:, :, window].mean(axis=-1, keepdims=True)
+        return epochs.with_changes(data=subtract_on_channels(epochs.data, picks, means)), self.record()

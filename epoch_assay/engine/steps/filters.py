@@ -77,6 +77,7 @@ from epoch_assay.engine.epochs import EpochSet, EpochSetMeta
 from epoch_assay.engine.errors import SpecError
 from epoch_assay.engine.provenance import Stage, StepOutputs, StepProvenanceBase
 from epoch_assay.engine.steps.base import Step
+from epoch_assay.engine.steps.channel_data import channel_rows, replace_channels
 
 FILTERED_CHANNEL_TYPES = ("eeg", "eog")
 
@@ -344,17 +345,16 @@ class _ZeroPhaseFilter(Step):
 
     def apply(self, epochs: EpochSet) -> tuple[EpochSet, StepProvenanceBase]:
         picks = epochs.picks(FILTERED_CHANNEL_TYPES, exclude_bads=False)
-        data = epochs.data.astype(np.float64, copy=True)
+        rows = channel_rows(epochs.data, picks)
         if self.method == "fir":
             kernel = design_fir(self.band, self._cutoffs(), epochs.sfreq)
             edges = fir_edges(self.band, self._cutoffs())
-            if picks.size:
-                data[:, picks] = fir_zero_phase(epochs.data[:, picks], kernel)
+            filtered = fir_zero_phase(rows, kernel)
         else:
             sos = design_iir(self.band, self._cutoffs(), self.order, epochs.sfreq)
             edges = iir_edges(self.band, self._cutoffs(), sos, epochs.sfreq)
-            if picks.size:
-                data[:, picks] = iir_zero_phase(epochs.data[:, picks], sos)
+            filtered = iir_zero_phase(rows, sos)
+        data = replace_channels(epochs.data, picks, filtered)
         highpass_hz = self.highpass_hz()
         warnings = [] if highpass_hz is None else short_epoch_warnings(epochs, highpass_hz)
         return epochs.with_changes(data=data), self.record(filter_edges=edges, warnings=warnings)

@@ -10,6 +10,7 @@ from epoch_assay.engine.errors import SpecError
 from epoch_assay.engine.montage import eeg_channels_without_position, epoch_set_positions, missing_positions_error
 from epoch_assay.engine.provenance import StepProvenanceBase
 from epoch_assay.engine.steps.base import Step
+from epoch_assay.engine.steps.channel_data import subtract_on_channels
 from epoch_assay.engine.steps.rest import rest_reference_weights
 
 REFERENCED_CHANNEL_TYPES = ("eeg",)
@@ -106,8 +107,7 @@ class Reference(Step):
         sources = self._reference_channels(epochs)
         weights = self._reference_weights(epochs, sources)
         reference = np.einsum("c,tcn->tn", weights, epochs.data[:, sources])[:, None, :]
-        data = epochs.data.astype(np.float64, copy=True)
-        data[:, targets] -= reference
+        data = subtract_on_channels(epochs.data, targets, reference)
         bad_sources = [name for name in self.channels if name in epochs.bads]
         warnings = (
             [f"reference channel(s) {', '.join(bad_sources)} are marked bad and were used nonetheless"]
