@@ -9,6 +9,7 @@ from epoch_assay.engine.epochs import EpochSet, EpochSetMeta
 from epoch_assay.engine.errors import SpecError
 from epoch_assay.engine.steps.baseline import Baseline
 from epoch_assay.engine.steps.filters import (
+    MATRIX_FILTER_ROWS_PER_SAMPLE,
     BandPass,
     FilterEdge,
     HighPass,
@@ -336,3 +337,32 @@ def test_mne_h_freq_plus_half_its_transition_is_our_cutoff() -> None:
     mne_db = _gain_db(kernel, [45.0, 40.0])
     assert mne_db[0] == pytest.approx(-6.02, abs=0.15) and abs(mne_db[1]) < 0.05
     assert _gain_db(design_fir("lowpass", 45.0, SFREQ), [45.0])[0] == pytest.approx(-6.02, abs=0.15)
+
+
+@pytest.mark.parametrize(("method", "cutoff_hz"), [("fir", 0.5), ("iir", 0.1), ("fir", 8.0)])
+def test_many_short_epochs_filter_like_scipy_on_each_padded_row(method: str, cutoff_hz: float) -> None:
+    # Enough rows per sample that the step filters them by one matrix product (MATRIX_FILTER_ROWS_PER_SAMPLE).
+    # Reference: each row padded by numpy.pad "reflect" and filtered by scipy.signal.oaconvolve (FIR) or
+    # sosfiltfilt (IIR) (Virtanen et al., 2020, SciPy 1.0), one row at a time, then the padding cut off.
+    epochs = random_epoch_set(n_trials=60, n_channels=4, n_times=50, sfreq=SFREQ, seed=3)
+    assert epochs.data.shape[0] * epochs.data.shape[1] >= MATRIX_FILTER_ROWS_PER_SAMPLE * epochs.n_times
+    step = HighPass(cutoff_hz=cutoff_hz, method=method, allow_short_epochs=True)
+    filtered, _ = step.apply(epochs)
+    if method == "fir":
+        kernel = design_fir("highpass", cutoff_hz, SFREQ)
+        n_pad = kernel.size
+
+        def one_row(padded: np.ndarray) -> np.ndarray:
+            return signal.oaconvolve(padded, kernel, mode="same")
+    else:
+        sos = design_iir("highpass", cutoff_hz, 4, SFREQ)
+        n_pad = iir_padding_samples(sos)
+
+        def one_row(padded: np.ndarray) -> np.ndarray:
+            return signal.sosfiltfilt(sos, padded, padtype=None)
+
+    rows = epochs.data.reshape(-1, epochs.n_times)
+    expected = np.array([one_row(np.pad(row, n_pad, mode="reflect"))[n_pad:-n_pad] for row in rows])
+    np.testing.assert_allclose(
+        filtered.data.reshape(expected.shape), expected, rtol=0, atol=1e-10 * np.abs(expected).max()
+    )

@@ -62,6 +62,15 @@ Memory
     Rows (one channel of one trial) are filtered in blocks whose padded copy stays under
     ``FILTER_BLOCK_BYTES``: many short epochs each padded by a long kernel (a 0.1 Hz
     high-pass at 500 Hz has 16 501 taps) would otherwise need many times the data's size.
+
+Many short rows
+    Padding, filtering and cutting is linear in each row (:func:`filter_linear_rows`). When an epoch set has at least
+    ``MATRIX_FILTER_ROWS_PER_SAMPLE`` rows per sample and epochs of at most
+    ``MATRIX_FILTER_MAX_SAMPLES`` samples, the filter's response to each unit impulse of the
+    epoch is computed as above, and every row is filtered by one matrix product with that
+    (n_times, n_times) matrix. Same output to about 1e-12 relative; on 300 trials × 64
+    channels × 250 samples a 0.5 Hz FIR high-pass went from 1.7 s to 0.05 s and a 0.1 Hz IIR
+    from 3.2 s to 0.25 s on this project's 2-core machine.
 """
 
 import math
@@ -96,6 +105,11 @@ _PASSBAND_RIPPLE_DB = 0.02
 
 # Padded rows filtered at once stay below this size (float64); see "Memory" above.
 FILTER_BLOCK_BYTES = 64 * 2**20
+# Rows of at most this many samples, at least this many rows per sample, are filtered by one matrix
+# product (see filter_linear_rows). Both measured on this project's 2-core machines: the product's
+# cost per row grows as n_times², the impulse responses cost n_times rows of filtering.
+MATRIX_FILTER_MAX_SAMPLES = 1024
+MATRIX_FILTER_ROWS_PER_SAMPLE = 4
 
 FilterBand = Literal["highpass", "lowpass", "bandpass"]
 
@@ -161,13 +175,31 @@ def filter_rows_in_blocks(
     return filtered.reshape(data.shape)
 
 
+def filter_linear_rows(data: np.ndarray, n_pad: int, filter_padded: Callable[[np.ndarray], np.ndarray]) -> np.ndarray:
+    """:func:`filter_rows_in_blocks` for a ``filter_padded`` that is linear in each row (FIR, IIR).
+
+    Padding, filtering and cutting a row is then linear in it, so when there are many short rows
+    (the trials × channels of an epoch set) it is one matrix: the response to each of the
+    ``n_times`` unit impulses, shape (n_times, n_times), computed the same way and applied to every
+    row by one matrix product. Same output, to rounding (about 1e-12 relative), for far less work
+    than padding every row to the length of a long kernel or of an IIR filter's decay.
+    """
+    n_times = data.shape[-1]
+    n_rows = data.size // n_times if n_times else 0
+    if n_times <= MATRIX_FILTER_MAX_SAMPLES and n_rows >= MATRIX_FILTER_ROWS_PER_SAMPLE * n_times > 0:
+        response = filter_rows_in_blocks(np.eye(n_times), n_pad, filter_padded)
+        rows = np.asarray(data, dtype=np.float64).reshape(n_rows, n_times)
+        return (rows @ response).reshape(data.shape)
+    return filter_rows_in_blocks(data, n_pad, filter_padded)
+
+
 def fir_zero_phase(data: np.ndarray, kernel: np.ndarray) -> np.ndarray:
     """Filter along the last axis with a symmetric odd-length kernel, delay removed.
 
     data : array, shape (..., n_times); returned with the same shape, as float64.
     """
     kernel_2d = kernel.reshape(1, -1)
-    return filter_rows_in_blocks(
+    return filter_linear_rows(
         data, kernel.size, lambda padded: signal.oaconvolve(padded, kernel_2d, mode="same", axes=-1)
     )
 
@@ -177,7 +209,7 @@ def iir_zero_phase(data: np.ndarray, sos: np.ndarray) -> np.ndarray:
 
     data : array, shape (..., n_times); returned with the same shape, as float64.
     """
-    return filter_rows_in_blocks(
+    return filter_linear_rows(
         data, iir_padding_samples(sos), lambda padded: signal.sosfiltfilt(sos, padded, axis=-1, padtype=None)
     )
 
