@@ -125,9 +125,13 @@ def run_units(
     clock = ProgressClock(total, on_progress)
     if min(workers, total) <= 1:
         results = []
-        for unit in units:
-            results.append(unit())
-            clock.unit_done(unit_weight(unit))
+        keep_freed_memory()
+        try:
+            for unit in units:
+                results.append(unit())
+                clock.unit_done(unit_weight(unit))
+        finally:
+            release_freed_memory()
         return results
     context = multiprocessing.get_context("forkserver")
     context.set_forkserver_preload(list(preload))
@@ -155,8 +159,9 @@ def start_pool_process(owner_pid: int) -> None:
     exit_with(owner_pid)
 
 
-# glibc's mallopt parameters (malloc.h): M_TRIM_THRESHOLD and M_MMAP_MAX.
+# glibc's mallopt parameters (malloc.h) and their defaults (mallopt(3)).
 _M_TRIM_THRESHOLD, _M_MMAP_MAX = -1, -4
+_DEFAULT_TRIM_THRESHOLD, _DEFAULT_MMAP_MAX = 128 * 1024, 65536
 KEPT_FREE_BYTES = 2**30
 
 
@@ -166,18 +171,36 @@ def keep_freed_memory() -> None:
     By default glibc serves each large block (an epoch set, a filtered recording) with its own
     ``mmap`` and unmaps it when freed, so the next array of that size starts from fresh pages, and
     the kernel faults in and zeroes every page again: on a virtual machine that costs about as much
-    as the arithmetic of a filter or a baseline step. A pool process lives for one run and handles
-    one unit at a time, so it keeps up to ``KEPT_FREE_BYTES`` of freed heap for the next array
-    (mallopt(3): M_MMAP_MAX 0, M_TRIM_THRESHOLD). A no-op where the C library is not glibc.
+    as the arithmetic of a baseline or reference step. While a run computes, up to ``KEPT_FREE_BYTES``
+    of freed heap stay for the next array (mallopt(3): M_MMAP_MAX 0, M_TRIM_THRESHOLD). A pool
+    process lives for one run and keeps this setting; the calling process restores the defaults after
+    its run with :func:`release_freed_memory`. Both are no-ops where the C library is not glibc.
     """
+    _mallopt(_M_MMAP_MAX, 0)
+    _mallopt(_M_TRIM_THRESHOLD, KEPT_FREE_BYTES)
+
+
+def release_freed_memory() -> None:
+    """Restore glibc's default allocation thresholds and give the freed heap back to the system."""
+    _mallopt(_M_MMAP_MAX, _DEFAULT_MMAP_MAX)
+    _mallopt(_M_TRIM_THRESHOLD, _DEFAULT_TRIM_THRESHOLD)
+    trim = getattr(_libc(), "malloc_trim", None)
+    if trim is not None:
+        trim(0)
+
+
+def _libc() -> ctypes.CDLL | None:
     try:
-        libc = ctypes.CDLL(None)
-        mallopt = libc.mallopt
-    except (OSError, AttributeError):
-        return
-    mallopt.argtypes, mallopt.restype = (ctypes.c_int, ctypes.c_int), ctypes.c_int
-    mallopt(_M_MMAP_MAX, 0)
-    mallopt(_M_TRIM_THRESHOLD, KEPT_FREE_BYTES)
+        return ctypes.CDLL(None)
+    except OSError:
+        return None
+
+
+def _mallopt(parameter: int, value: int) -> None:
+    mallopt = getattr(_libc(), "mallopt", None)
+    if mallopt is not None:
+        mallopt.argtypes, mallopt.restype = (ctypes.c_int, ctypes.c_int), ctypes.c_int
+        mallopt(parameter, value)
 
 
 def one_blas_thread() -> None:
