@@ -15,7 +15,7 @@ from service.http.access import CallerDep
 from service.http.deps import BlobsDep, SessionDep, SettingsDep
 from service.http.idempotency import IdempotencyDep, canonical_fingerprint
 from service.http.lookups import study_by_code
-from service.http.responses import BLOB_STORE_DOWN, errors
+from service.http.responses import errors, upload_errors
 from service.http.uploads import answer_upload, epoch_set_out
 from service.schemas.epoch_sets import SUBJECT_PATTERN, EpochSetOut
 from service.schemas.json_epoch_sets import JSON_EPOCH_SET_OPENAPI
@@ -32,18 +32,8 @@ router = APIRouter(prefix="/v1/studies/{code}/epoch-sets", tags=["epoch sets"])
     openapi_extra=JSON_EPOCH_SET_OPENAPI,
     responses={
         200: {"model": EpochSetOut, "description": "The same bytes were stored before; the existing epoch set."},
-        **errors(
-            400,
-            401,
-            403,
-            404,
-            409,
-            413,
-            422,
-            503,
-            unavailable=BLOB_STORE_DOWN,
-            unprocessable="The file is malformed (the detail names the field and the fix), or a form field "
-            "breaks its pattern.",
+        **upload_errors(
+            "The file is malformed (the detail names the field and the fix), or a form field breaks its pattern."
         ),
     },
 )

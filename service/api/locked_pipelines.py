@@ -15,7 +15,7 @@ from service.errors import NotFound
 from service.http.access import CallerDep
 from service.http.deps import SessionDep
 from service.http.lookups import run_by_id, study_by_code
-from service.http.responses import errors
+from service.http.responses import BODY_ERRORS, errors
 from service.schemas.locked_pipelines import LockCreate, LockedOut
 from service.storage.models import LockedPipeline
 
@@ -38,13 +38,7 @@ def locked_out(row: LockedPipeline, study_code: str) -> LockedOut:
     status_code=status.HTTP_201_CREATED,
     response_model=LockedOut,
     responses=errors(
-        400,
-        401,
-        403,
-        404,
-        409,
-        413,
-        422,
+        *BODY_ERRORS,
         conflict="The run named has not succeeded.",
         unprocessable="The body is malformed, or the run has no selection winner.",
     ),

@@ -43,7 +43,7 @@ from service.http.access import CallerDep
 from service.http.deps import BlobsDep, SessionDep, SettingsDep
 from service.http.idempotency import IdempotencyDep, canonical_fingerprint
 from service.http.lookups import study_by_code
-from service.http.responses import BLOB_STORE_DOWN, errors
+from service.http.responses import upload_errors
 from service.http.uploads import answer_upload, epoch_set_out
 from service.schemas.epoch_sets import SUBJECT_PATTERN, EpochSetOut
 from service.storage.epoch_sets import epoch_set_with_hash
@@ -195,18 +195,9 @@ def _identity(bundle_sha256: str, epoching: EpochingSpec, channels: ChannelSpec)
     response_model=RecordingOut,
     responses={
         200: {"model": RecordingOut, "description": "The same upload was stored before; the existing epoch set."},
-        **errors(
-            400,
-            401,
-            403,
-            404,
-            409,
-            413,
-            422,
-            503,
-            unavailable=BLOB_STORE_DOWN,
-            unprocessable="The recordings, their events, sidecars or the epoching spec cannot be used (the detail "
-            "says what is wrong and how to fix it).",
+        **upload_errors(
+            "The recordings, their events, sidecars or the epoching spec cannot be used (the detail "
+            "says what is wrong and how to fix it)."
         ),
     },
 )

@@ -15,7 +15,7 @@ from service.http.deps import SessionDep, SettingsDep
 from service.http.idempotency import IdempotencyDep, canonical_fingerprint
 from service.http.lookups import run_by_id, study_by_code
 from service.http.pagination import as_utc, decode_cursor, encode_cursor
-from service.http.responses import errors
+from service.http.responses import BODY_ERRORS, errors
 from service.http.result_csv import CSV_EXAMPLE, preferred_media_type, result_csv
 from service.schemas.epoch_sets import SUBJECT_PATTERN
 from service.schemas.runs import RunAccepted, RunCreate, RunOut, RunPage, RunStatus
@@ -47,13 +47,7 @@ def run_out(run: Run, study_code: str) -> RunOut:
     status_code=status.HTTP_202_ACCEPTED,
     response_model=RunAccepted,
     responses=errors(
-        400,
-        401,
-        403,
-        404,
-        409,
-        413,
-        422,
+        *BODY_ERRORS,
         unprocessable="The spec is malformed or cannot run on these epoch sets; the detail names the field.",
     ),
 )

@@ -19,6 +19,8 @@ DESCRIPTIONS = {
     422: "The request does not match the schema or cannot be carried out; the detail names the field.",
     503: "The service is not ready.",
 }
+# What a route that takes a JSON or file body may answer besides its success.
+BODY_ERRORS = (400, 401, 403, 404, 409, 413, 422)
 BLOB_STORE_DOWN = "The blob store could not keep the file (unreachable or full); nothing was stored; retry later."
 
 
@@ -31,6 +33,11 @@ def errors(*codes: int, **descriptions: str) -> dict[int | str, dict[str, Any]]:
         503: descriptions.get("unavailable"),
     }
     return {code: {"model": Problem, "description": overrides.get(code) or DESCRIPTIONS[code]} for code in codes}
+
+
+def upload_errors(unprocessable: str) -> dict[int | str, dict[str, Any]]:
+    """``responses=`` of a route that stores an uploaded file in the blob store."""
+    return errors(*BODY_ERRORS, 503, unavailable=BLOB_STORE_DOWN, unprocessable=unprocessable)
 
 
 def install_problem_openapi(app: FastAPI) -> None:
